@@ -1,0 +1,209 @@
+"""The Python API: audit a geometry (path, ASE Atoms, pyscf Mole or Molecule)."""
+from __future__ import annotations
+
+import math
+import re
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from . import __version__
+from .basis import BasisSpec, parse_overrides
+from .diagnose import attribute_causes, crowding_findings, duplicate_findings, geometry_findings, Finding
+from .errors import InputError, UsageError
+from .geometry import Molecule, element_symbol, molecule_from_atoms, parse_atom_numbers, read_geometry
+from .orthogonalize import advise
+from .overlap import FunctionTable, build_mole, function_table, normalized_overlap
+from .policy import Policy, decide
+from .result import AuditResult, InputInfo, SpectrumInfo
+from .spectrum import Spectrum, compute_spectrum
+
+
+@dataclass
+class Prepared:
+    """A geometry with its basis: the pyscf Mole, the function table and unit-diagonal S."""
+
+    molecule: Molecule
+    spec: BasisSpec
+    mole: object
+    table: FunctionTable
+    S: np.ndarray
+
+
+def make_spec(basis: str | BasisSpec | None, basis_for=None, cartesian: bool = False) -> BasisSpec:
+    """BasisSpec from a name (or file) plus overrides given as dict or ['H=cc-pvtz', ...]."""
+    if isinstance(basis, BasisSpec):
+        return basis
+    if not basis:
+        raise UsageError("a basis is required (e.g. basis='aug-cc-pvdz')")
+    if isinstance(basis_for, dict):
+        over = {element_symbol(k, "basis_for"): v for k, v in basis_for.items()}
+    else:
+        over = parse_overrides(basis_for)
+    return BasisSpec(default=basis, per_element=over, cartesian=cartesian)
+
+
+def prepare(mol: Molecule, spec: BasisSpec) -> Prepared:
+    """Build the pyscf Mole, the function table and S for one molecule."""
+    pm = build_mole(mol, spec)
+    table = function_table(pm, mol, spec)
+    return Prepared(mol, spec, pm, table, normalized_overlap(pm))
+
+
+def _from_mole(pm) -> tuple[Molecule, BasisSpec]:
+    symbols, ghost = [], []
+    for i in range(pm.natm):
+        raw = re.sub(r"^(ghost-?|x-)", "", pm.atom_pure_symbol(i), flags=re.IGNORECASE)
+        symbols.append(element_symbol(raw, f"pyscf Mole atom {i + 1}"))
+        ghost.append(bool(pm.atom_charge(i) == 0))
+    coords = pm.atom_coords(unit="Angstrom")
+    b = pm.basis
+    if isinstance(b, str):
+        spec = BasisSpec(b, {}, bool(pm.cart))
+    elif isinstance(b, dict) and all(isinstance(v, str) for v in b.values()):
+        over = {}
+        for k, v in b.items():
+            try:
+                over[element_symbol(re.sub(r"^(ghost-?|x-)", "", k, flags=re.IGNORECASE), "basis")] = v
+            except InputError:
+                continue
+        spec = BasisSpec("custom", over, bool(pm.cart))
+    else:
+        spec = BasisSpec("custom", {}, bool(pm.cart))
+    mol = Molecule(tuple(symbols), np.asarray(coords), tuple(ghost), charge=int(pm.charge),
+                   multiplicity=int(pm.spin) + 1, source="<pyscf Mole>")
+    return mol, spec
+
+
+def audit_prepared(prep: Prepared, policy: Policy | None = None, spectrum_method: str = "full") -> AuditResult:
+    """Run the whole audit on a prepared geometry + basis."""
+    policy = policy or Policy()
+    mol, table, S = prep.molecule, prep.table, prep.S
+    spec = compute_spectrum(S, vector_level=policy.caution, method=spectrum_method)
+    findings: list[Finding] = geometry_findings(mol)
+    findings += duplicate_findings(S, table)
+    findings += crowding_findings(S, mol, table, troubled=spec.smallest < policy.caution)
+    causes = attribute_causes(spec.vectors, table, below=policy.caution)
+    verdict, reason = decide(policy, spec.smallest, [f.kind for f in findings])
+    recommendation = advise(spec, default_threshold=_default_threshold(policy), min_kept=policy.fail)
+    if spec.smallest < policy.caution:
+        findings.append(_near_singular(spec, policy, causes))
+    return AuditResult(
+        version=__version__,
+        input=_input_info(prep),
+        spectrum=_spectrum_info(spec),
+        verdict=verdict,
+        verdict_reason=reason,
+        policy=policy.as_dict(),
+        findings=tuple(findings),
+        causes=causes,
+        recommendation=recommendation,
+    )
+
+
+def _default_threshold(policy: Policy) -> float:
+    """Geometric middle of the caution and fail levels, rounded to a decade (1e-6 by default)."""
+    return 10.0 ** round(0.5 * (math.log10(policy.caution) + math.log10(policy.fail)))
+
+
+def _near_singular(spec: Spectrum, policy: Policy, causes) -> Finding:
+    severity = "error" if spec.smallest < policy.fail else "warning"
+    top = [a for a in causes.atoms[:5] if a["weight"] >= 0.05]
+    who = ", ".join(f"{a['element']}{a['atom']} ({a['weight']:.0%})" for a in top)
+    cond = spec.condition_number
+    lost = f"about {math.log10(cond):.1f} digits lost" if cond else "singular to rounding"
+    n_caution = spec.count_below(policy.caution)
+    count = f"{n_caution} eigenvalue(s) lie below {policy.caution:.0e}" if n_caution is not None else ""
+    return Finding(
+        "near_singular", severity, tuple(a["atom"] for a in top),
+        f"The smallest overlap eigenvalue is {spec.smallest:.2e} ({lost}); {count}"
+        + (f"; the near-null space sits mostly on {who}." if who else "."),
+        {"smallest": spec.smallest},
+    )
+
+
+def _input_info(prep: Prepared) -> InputInfo:
+    mol, t = prep.molecule, prep.table
+    atoms = tuple(
+        {"atom": i + 1, "element": s, "ghost": bool(g), "xyz": [round(float(x), 8) for x in xyz]}
+        for i, (s, g, xyz) in enumerate(zip(mol.symbols, mol.ghost, mol.coords))
+    )
+    return InputInfo(
+        path=mol.source,
+        frame=mol.frame + 1,
+        n_frames=mol.n_frames,
+        basis=prep.spec.describe(),
+        basis_spec=prep.spec.as_dict(),
+        n_atoms=mol.n_atoms,
+        n_functions=t.n_functions,
+        n_shells=t.n_shells,
+        ghost_atoms=tuple(i + 1 for i, g in enumerate(mol.ghost) if g),
+        charge=mol.charge,
+        multiplicity=mol.multiplicity,
+        atoms=atoms,
+    )
+
+
+def _spectrum_info(spec: Spectrum) -> SpectrumInfo:
+    cond = spec.condition_number
+    return SpectrumInfo(
+        smallest=spec.smallest,
+        largest=spec.largest,
+        condition_number=cond,
+        log10_condition=math.log10(cond) if cond else None,
+        counts_below=dict(spec.counts_below) if not spec.complete else
+        {k: v for k, v in spec.counts_below.items()},
+        gershgorin_bound=spec.gershgorin_bound,
+        method=spec.method,
+        eigenvalues=tuple(float(v) for v in spec.values),
+    )
+
+
+def load_molecules(path: str | Path, unit: str = "angstrom", ghost: str | list[int] | None = None) -> list[Molecule]:
+    """Every frame of a geometry file, with ghost atoms marked (1-based numbers or '4-6,9')."""
+    frames = read_geometry(path, unit=unit)
+    numbers = parse_atom_numbers(ghost) if isinstance(ghost, str) else list(ghost or [])
+    return [f.with_ghosts(numbers) if numbers else f for f in frames]
+
+
+def audit(
+    source,
+    basis: str | BasisSpec | None = None,
+    *,
+    basis_for=None,
+    cartesian: bool = False,
+    unit: str = "angstrom",
+    ghost: str | list[int] | None = None,
+    frame: int = 1,
+    policy: Policy | None = None,
+    spectrum_method: str = "full",
+) -> AuditResult:
+    """Audit one geometry in one basis and return the result object.
+
+    ``source`` is a path to an XYZ / extended XYZ file (``frame`` picks a frame,
+    1-based), an ASE Atoms, a pyscf Mole (its own basis is used when ``basis`` is
+    None), or a Molecule. ``basis`` is a name pyscf knows or a basis file;
+    ``basis_for`` overrides it per element ({'H': 'cc-pvtz'} or ['H=cc-pvtz']);
+    ``ghost`` marks atoms (1-based) as ghost atoms.
+    """
+    if hasattr(source, "intor") and hasattr(source, "nao_nr"):
+        mol, mole_spec = _from_mole(source)
+        if basis is None:
+            table = function_table(source, mol, mole_spec)
+            return audit_prepared(Prepared(mol, mole_spec, source, table, normalized_overlap(source)),
+                                  policy, spectrum_method)
+    elif isinstance(source, Molecule):
+        mol = source
+    elif hasattr(source, "get_positions") and hasattr(source, "get_chemical_symbols"):
+        mol = molecule_from_atoms(source)
+    else:
+        frames = read_geometry(source, unit=unit)
+        if not 1 <= frame <= len(frames):
+            raise UsageError(f"{source}: frame {frame} requested, file has {len(frames)} frame(s)")
+        mol = frames[frame - 1]
+    numbers = parse_atom_numbers(ghost) if isinstance(ghost, str) else list(ghost or [])
+    if numbers:
+        mol = mol.with_ghosts(numbers)
+    spec = make_spec(basis, basis_for, cartesian)
+    return audit_prepared(prepare(mol, spec), policy, spectrum_method)

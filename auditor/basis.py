@@ -1,0 +1,186 @@
+"""Basis names and files -> per-element shells, and shell metadata (exponent, diffuse)."""
+from __future__ import annotations
+
+import difflib
+import re
+from dataclasses import dataclass, field
+from functools import lru_cache
+from pathlib import Path
+
+from .errors import InputError
+
+#: A shell counts as diffuse (when the basis name does not tell us its parent, see
+#: ``parent_basis``) if its smallest exponent is below this fraction of the smallest
+#: exponent of the same angular momentum in the reference valence basis below.
+#: Heuristic of our own, calibrated on the cc-pVXZ / aug-cc-pVXZ pairs for H and C-O.
+FALLBACK_FRACTION = 0.35
+REFERENCE_BASES = ("cc-pvdz", "def2-svp")
+
+
+@dataclass(frozen=True)
+class BasisSpec:
+    """Which basis each element gets: a default plus per-element overrides.
+
+    Each value is a basis name that pyscf knows or a path to a basis file in a
+    format pyscf parses (NWChem format).
+    """
+
+    default: str
+    per_element: dict[str, str] = field(default_factory=dict)
+    cartesian: bool = False
+
+    def for_element(self, element: str) -> str:
+        return self.per_element.get(element, self.default)
+
+    def describe(self) -> str:
+        extra = ", ".join(f"{el}={name}" for el, name in sorted(self.per_element.items()))
+        kind = "cartesian" if self.cartesian else "spherical"
+        return f"{self.default}" + (f" ({extra})" if extra else "") + f" [{kind}]"
+
+    def as_dict(self) -> dict:
+        return {
+            "default": self.default,
+            "per_element": dict(sorted(self.per_element.items())),
+            "cartesian": self.cartesian,
+        }
+
+
+def parse_overrides(items: list[str] | None) -> dict[str, str]:
+    """Parse ['H=cc-pvtz', 'O=file.nw'] into {'H': 'cc-pvtz', 'O': 'file.nw'}."""
+    from .errors import UsageError
+    from .geometry import element_symbol
+
+    out: dict[str, str] = {}
+    for item in items or []:
+        if "=" not in item:
+            raise UsageError(f"--basis-for expects ELEMENT=BASIS, got {item!r}")
+        el, name = item.split("=", 1)
+        try:
+            sym = element_symbol(el, "--basis-for")
+        except InputError as exc:
+            raise UsageError(str(exc)) from None
+        if not name.strip():
+            raise UsageError(f"--basis-for {item!r}: empty basis name")
+        out[sym] = name.strip()
+    return out
+
+
+def _canon(name: str) -> str:
+    from pyscf.gto import basis as pbasis
+
+    return pbasis._format_basis_name(name)
+
+
+@lru_cache(maxsize=None)
+def _known_names() -> tuple[str, ...]:
+    from pyscf.gto import basis as pbasis
+
+    return tuple(sorted(pbasis.ALIAS))
+
+
+def _suggest(name: str) -> str:
+    close = difflib.get_close_matches(_canon(name), _known_names(), n=3, cutoff=0.6)
+    return f"; close names: {', '.join(close)}" if close else ""
+
+
+@lru_cache(maxsize=None)
+def load_shells(name: str, element: str) -> tuple:
+    """Shells of ``element`` in basis ``name`` (pyscf's internal list format).
+
+    Raises InputError naming what is missing, with close names for typos.
+    """
+    from pyscf.gto import basis as pbasis
+
+    path = Path(name).expanduser()
+    is_file = path.is_file()
+    try:
+        shells = pbasis.load(str(path) if is_file else name, element)
+    except Exception as exc:  # pyscf raises BasisNotFoundError, KeyError, RuntimeError, ...
+        if is_file:
+            raise InputError(f"basis file {name}: no usable basis for {element} ({exc.__class__.__name__})") from None
+        if _canon(name) not in pbasis.ALIAS and not pbasis._is_pople_basis(name):
+            raise InputError(f"unknown basis name {name!r}{_suggest(name)}") from None
+        raise InputError(f"basis {name!r} has no functions for element {element}") from None
+    if not shells:
+        where = f"basis file {name}" if is_file else f"basis {name!r}"
+        raise InputError(f"{where} has no functions for element {element}")
+    return tuple(_freeze(s) for s in shells)
+
+
+def _freeze(shell):
+    if isinstance(shell, list):
+        return tuple(_freeze(x) for x in shell)
+    return shell
+
+
+def thaw(shells) -> list:
+    """Frozen shells back to pyscf's mutable list format."""
+    if isinstance(shells, tuple):
+        return [thaw(x) for x in shells]
+    return shells
+
+
+_AUG_PATTERNS = (
+    (re.compile(r"^(?:[dtq]-)?aug-(.+)$"), r"\1"),
+    (re.compile(r"^ma-(.+)$"), r"\1"),
+    (re.compile(r"^(def2-(?:svp|tzvp|tzvpp|qzvp|qzvpp))d$"), r"\1"),
+)
+
+
+def parent_basis(name: str) -> str | None:
+    """The basis without its diffuse augmentation, when the name says so.
+
+    aug-cc-pvtz -> cc-pvtz, d-aug-X -> X, ma-def2-svp -> def2-svp,
+    def2-tzvppd -> def2-tzvpp, 6-311++g** -> 6-311g**. None otherwise.
+    """
+    low = name.strip().lower()
+    for pattern, repl in _AUG_PATTERNS:
+        if pattern.match(low):
+            return pattern.sub(repl, low)
+    if re.match(r"^\d-\d+\+{1,2}g", low):
+        return low.replace("+", "", 2) if "++" in low else low.replace("+", "", 1)
+    return None
+
+
+def _min_exponent_by_l(shells) -> dict[int, float]:
+    out: dict[int, float] = {}
+    for shell in shells:
+        l = shell[0]
+        prims = shell[1:] if not isinstance(shell[1], (int,)) else shell[2:]
+        exps = [p[0] for p in prims]
+        if exps:
+            out[l] = min(out.get(l, float("inf")), min(exps))
+    return out
+
+
+@lru_cache(maxsize=None)
+def diffuse_rule(name: str, element: str) -> tuple[str, dict[int, float], float]:
+    """How shells of ``element`` in basis ``name`` are judged diffuse.
+
+    Returns (how, cut-off exponent per l, cut-off for l not listed). A shell whose
+    smallest exponent lies below the cut-off for its l is diffuse. With a known
+    parent basis the cut-off is the parent's smallest exponent (the shells that the
+    augmentation added); otherwise FALLBACK_FRACTION of a reference valence basis.
+    """
+    parent = parent_basis(name) if not Path(name).expanduser().is_file() else None
+    if parent:
+        try:
+            ref = _min_exponent_by_l(load_shells(parent, element))
+            return (f"below the smallest exponent of {parent}", {l: a * 0.999 for l, a in ref.items()}, float("inf"))
+        except InputError:
+            pass
+    for ref_name in REFERENCE_BASES:
+        try:
+            ref = _min_exponent_by_l(load_shells(ref_name, element))
+        except InputError:
+            continue
+        cut = {l: FALLBACK_FRACTION * a for l, a in ref.items()}
+        top = cut[max(cut)]
+        return (f"below {FALLBACK_FRACTION} x the smallest exponent of {ref_name}", cut, top)
+    return ("no reference basis for this element", {}, 0.0)
+
+
+def is_diffuse(name: str, element: str, l: int, exponent: float) -> bool:
+    """Whether a shell with angular momentum ``l`` and smallest exponent counts as diffuse."""
+    _, cut, other = diffuse_rule(name, element)
+    return exponent < cut.get(l, other)

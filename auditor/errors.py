@@ -1,0 +1,40 @@
+"""Errors that end an audit with a one-line message and a documented exit code."""
+from __future__ import annotations
+
+#: Exit codes of the command line (documented in the README).
+EXIT_OK = 0          # every geometry passed or earned a caution
+EXIT_FAIL = 1        # at least one geometry failed the policy
+EXIT_USAGE = 2       # bad options or arguments
+EXIT_INPUT = 3       # a geometry or basis that cannot be read or understood
+EXIT_RESOURCE = 4    # the job does not fit on this machine (memory guard)
+
+
+class AuditorError(Exception):
+    """Base class: carries a one-line message and the exit code it maps to."""
+
+    exit_code = EXIT_INPUT
+
+    def __init__(self, message: str):
+        super().__init__(message)
+        self.message = message
+
+    def __str__(self) -> str:
+        return self.message
+
+
+class InputError(AuditorError):
+    """A geometry, basis or option value that cannot be read or understood."""
+
+    exit_code = EXIT_INPUT
+
+
+class UsageError(AuditorError):
+    """Options that contradict each other or are out of range."""
+
+    exit_code = EXIT_USAGE
+
+
+class ResourceError(AuditorError):
+    """The requested audit would not fit in this machine's memory."""
+
+    exit_code = EXIT_RESOURCE

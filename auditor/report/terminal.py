@@ -1,0 +1,43 @@
+"""Short terminal summary (rich)."""
+from __future__ import annotations
+
+from pathlib import Path
+
+from rich.console import Console
+from rich.table import Table
+
+STYLE = {"pass": "green", "caution": "yellow", "fail": "bold red", "unreadable": "magenta"}
+
+
+def summary_table(results, errors=()) -> Table:
+    """One row per audited frame, plus one per input that could not be read."""
+    t = Table(show_header=True, header_style="bold", box=None, pad_edge=False)
+    for col in ("geometry", "verdict", "functions", "smallest λ", "log10 κ", "τ advised", "removed", "main atom"):
+        t.add_column(col, justify="left" if col in ("geometry", "verdict", "main atom") else "right")
+    for r in results:
+        name = Path(r.input.path).name + (f" [{r.input.frame}]" if r.input.n_frames > 1 else "")
+        top = r.causes.atoms[0] if r.causes.atoms else None
+        lc = r.spectrum.log10_condition
+        rec = r.recommendation
+        t.add_row(
+            name,
+            f"[{STYLE[r.verdict]}]{r.verdict}[/]",
+            str(r.input.n_functions),
+            f"{r.spectrum.smallest:.2e}",
+            "inf" if lc is None else f"{lc:.1f}",
+            f"{rec.threshold:.1e}",
+            "?" if rec.n_removed is None else str(rec.n_removed),
+            f"{top['element']}{top['atom']} ({top['weight']:.0%})" if top else "",
+        )
+    for path, msg in errors:
+        t.add_row(Path(path).name, f"[{STYLE['unreadable']}]unreadable[/]", "", "", "", "", "", msg)
+    return t
+
+
+def print_summary(results, errors=(), console: Console | None = None) -> None:
+    console = console or Console(highlight=False)
+    console.print(summary_table(results, errors))
+    for r in results:
+        serious = [f for f in r.findings if f.severity == "error"]
+        for f in serious[:3]:
+            console.print(f"  [red]{Path(r.input.path).name}[/]: {f.message}", highlight=False)

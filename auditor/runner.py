@@ -1,0 +1,77 @@
+"""Audit a list of geometry files and write one report per frame.
+
+Shared by ``auditor check`` and ``auditor demo``: one bad file never stops the others.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from .api import audit_prepared, load_molecules, prepare
+from .basis import BasisSpec
+from .errors import EXIT_FAIL, EXIT_OK, AuditorError
+from .policy import Policy
+from .report import report_stem
+from .report.json import write_json
+from .report.markdown import write_markdown
+
+FORMATS = ("json", "md", "all")
+
+
+@dataclass
+class RunOutcome:
+    results: list = field(default_factory=list)
+    errors: list = field(default_factory=list)      # (path, message, exit code)
+    written: list = field(default_factory=list)
+
+    @property
+    def exit_code(self) -> int:
+        if self.errors:
+            return max(code for _, _, code in self.errors)
+        return EXIT_FAIL if any(r.verdict == "fail" for r in self.results) else EXIT_OK
+
+
+def write_reports(result, out: Path, formats: str, stem: str) -> list[Path]:
+    """Write the requested formats of ``result`` under ``out`` with file stem ``stem``."""
+    written = []
+    if formats in ("json", "all"):
+        written.append(write_json(result, out / f"{stem}.json"))
+    if formats in ("md", "all"):
+        written.append(write_markdown(result, out / f"{stem}.md"))
+    return written
+
+
+def audit_paths(
+    paths: list[Path],
+    spec: BasisSpec,
+    policy: Policy,
+    out: Path | None,
+    formats: str = "all",
+    unit: str = "angstrom",
+    ghost: str | None = None,
+    spectrum_method: str = "full",
+    on_result=None,
+) -> RunOutcome:
+    """Audit every frame of every file; collect errors per file instead of stopping."""
+    outcome = RunOutcome()
+    used: set[str] = set()
+    for path in paths:
+        try:
+            frames = load_molecules(path, unit=unit, ghost=ghost)
+            for mol in frames:
+                result = audit_prepared(prepare(mol, spec), policy, spectrum_method)
+                outcome.results.append(result)
+                if out is not None:
+                    stem = report_stem(str(path), mol.frame + 1, mol.n_frames)
+                    base, k = stem, 2
+                    while stem in used:
+                        stem, k = f"{base}-{k}", k + 1
+                    used.add(stem)
+                    outcome.written += write_reports(result, out, formats, stem)
+                if on_result:
+                    on_result(result)
+        except AuditorError as exc:
+            outcome.errors.append((str(path), exc.message, exc.exit_code))
+        except MemoryError:
+            outcome.errors.append((str(path), f"{path}: ran out of memory", 4))
+    return outcome
