@@ -8,7 +8,7 @@ from typing import List, Optional
 import typer
 from rich.console import Console
 
-from .errors import EXIT_USAGE, AuditorError
+from .errors import EXIT_INTERNAL, EXIT_USAGE, AuditorError
 
 app = typer.Typer(
     add_completion=False,
@@ -41,7 +41,8 @@ def check(
 ):
     """Audit each geometry in one basis; write DIR/<stem>.json and .md per frame.
 
-    Exit codes: 0 pass or caution, 1 fail, 2 usage error, 3 unreadable input, 4 too large.
+    Exit codes: 0 pass or caution, 1 fail, 2 usage error, 3 unreadable input, 4 too large,
+    5 internal error.
     """
     from .api import make_spec
     from .policy import Policy
@@ -90,11 +91,20 @@ def demo(
 
 
 def main() -> None:
+    """Console entry point: never a traceback unless AUDITOR_DEBUG is set."""
+    import os
+
     try:
         app()
     except KeyboardInterrupt:
         err.print("interrupted")
         sys.exit(130)
+    except Exception as exc:
+        if os.environ.get("AUDITOR_DEBUG"):
+            raise
+        err.print(f"[bold red]error:[/] internal error ({type(exc).__name__}: {exc}); "
+                  "set AUDITOR_DEBUG=1 to see the traceback".splitlines()[0])
+        sys.exit(EXIT_INTERNAL)
 
 
 if __name__ == "__main__":

@@ -9,7 +9,7 @@ from pathlib import Path
 
 from .api import audit_prepared, load_molecules, prepare
 from .basis import BasisSpec
-from .errors import EXIT_FAIL, EXIT_OK, AuditorError
+from .errors import EXIT_FAIL, EXIT_INTERNAL, EXIT_OK, AuditorError
 from .policy import Policy
 from .report import report_stem
 from .report.json import write_json
@@ -74,4 +74,7 @@ def audit_paths(
             outcome.errors.append((str(path), exc.message, exc.exit_code))
         except MemoryError:
             outcome.errors.append((str(path), f"{path}: ran out of memory", 4))
+        except Exception as exc:  # one broken item must not stop the others
+            outcome.errors.append((str(path), f"{path}: internal error ({type(exc).__name__}: {exc})".splitlines()[0],
+                                   EXIT_INTERNAL))
     return outcome
