@@ -88,7 +88,8 @@ def audit_prepared(prep: Prepared, policy: Policy | None = None, spectrum_method
     verdict, reason = decide(policy, spec.smallest, [f.kind for f in findings])
     recommendation = advise(spec, default_threshold=_default_threshold(policy), min_kept=policy.fail)
     if spec.smallest < policy.caution:
-        findings.append(_near_singular(spec, policy, causes))
+        findings.insert(0, _near_singular(spec, policy, causes))
+    findings.sort(key=lambda f: SEVERITY_ORDER[f.severity])  # stable: keeps order within a severity
     return AuditResult(
         version=__version__,
         input=_input_info(prep),
@@ -100,6 +101,9 @@ def audit_prepared(prep: Prepared, policy: Policy | None = None, spectrum_method
         causes=causes,
         recommendation=recommendation,
     )
+
+
+SEVERITY_ORDER = {"error": 0, "warning": 1, "info": 2}
 
 
 def _default_threshold(policy: Policy) -> float:

@@ -16,7 +16,7 @@ COINCIDENT_ANGSTROM = 0.01        # closer than this, two centres are one: S is 
 SHORT_CONTACT_RATIO = 0.6         # d < 0.6 (r_i + r_j): far shorter than any bond
 DUPLICATE_OVERLAP = 0.99          # |S_ij| at which two functions are near-copies
 CROWDING_OVERLAP = 0.92           # diffuse shells on two atoms that overlap this much
-MAX_CROWDING_FINDINGS = 20
+MAX_CROWDING_FINDINGS = 8
 NOBLE = {"He", "Ne", "Ar", "Kr", "Xe", "Rn", "Og"}
 
 
@@ -222,8 +222,8 @@ def crowding_findings(S: np.ndarray, mol: Molecule, table: FunctionTable, troubl
         out.append(Finding(
             "diffuse_crowding", severity, (a, b),
             f"Diffuse shells {table.shell_label(si)} (exponent {ea:.4g}) and {table.shell_label(sj)} "
-            f"(exponent {eb:.4g}) are {r * BOHR_IN_ANGSTROM:.2f} Å apart and overlap by {val:.3f}; "
-            f"two s Gaussians this wide at this distance overlap by {model:.3f}.",
+            f"(exponent {eb:.4g}), {r * BOHR_IN_ANGSTROM:.2f} Å apart, overlap by {val:.3f} "
+            f"(s Gaussians of these exponents: {model:.3f}): nearly the same function twice.",
             {"overlap": round(val, 6), "s_model_overlap": round(model, 6),
              "distance_angstrom": round(r * BOHR_IN_ANGSTROM, 6)},
         ))

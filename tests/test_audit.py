@@ -7,6 +7,7 @@ import pytest
 import auditor
 from auditor.api import prepare
 from auditor.basis import BasisSpec, parent_basis
+from auditor.diagnose import MAX_CROWDING_FINDINGS
 from auditor.geometry import BOHR_IN_ANGSTROM
 from auditor.orthogonalize import advise, find_gap
 from auditor.report.json import to_json
@@ -119,7 +120,7 @@ def test_diffuse_crowding_and_classification():
     r = auditor.audit(mol, "d-aug-cc-pvdz")
     crowd = [f for f in r.findings if f.kind == "diffuse_crowding"]
     assert crowd
-    for f in crowd[:-1] if len(crowd) > 20 else crowd:
+    for f in crowd[:MAX_CROWDING_FINDINGS]:
         assert len(f.atoms) == 2 and f.details["overlap"] >= 0.92
     # the shells that d-aug adds to cc-pvdz are the diffuse ones
     prep = prepare(mol, BasisSpec("d-aug-cc-pvdz"))
