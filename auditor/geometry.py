@@ -56,8 +56,12 @@ class Molecule:
 
 
 def element_symbol(token: str, where: str) -> str:
-    """Normalize an element symbol ('h', 'CL', 'C1' labels are not guessed)."""
-    sym = _SYMBOL.get(token.strip().lower())
+    """Normalize an element symbol ('h' -> 'H', 'CL' -> 'Cl', '8' -> 'O'); labels such as
+    'C1' are not guessed."""
+    token = token.strip()
+    if token.isdigit() and 1 <= int(token) <= len(ELEMENTS):
+        return ELEMENTS[int(token) - 1]
+    sym = _SYMBOL.get(token.lower())
     if sym is None:
         raise InputError(f"{where}: unknown element symbol {token!r}")
     return sym

@@ -102,6 +102,15 @@ def test_bad_geometry_gives_one_line_error(tmp_path, case):
     assert str(p.name) in res.output
 
 
+def test_atomic_numbers_and_lowercase_symbols(tmp_path):
+    p = tmp_path / "z.xyz"
+    p.write_text("3\nwater by atomic number\n8 0 0 0.1173\nh 0 0.7572 -0.4692\n1 0 -0.7572 -0.4692\n")
+    res = run("check", p, "-b", "sto-3g", "-o", tmp_path / "o", "-f", "json")
+    assert res.exit_code == 0, res.output
+    atoms = json.loads((tmp_path / "o" / "z.json").read_text())["input"]["atoms"]
+    assert [a["element"] for a in atoms] == ["O", "H", "H"]
+
+
 def test_line_number_in_error(tmp_path):
     p = tmp_path / "l.xyz"
     p.write_text("2\ncomment\nO 0 0 0\nH 0 0 x\n")
