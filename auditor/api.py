@@ -156,8 +156,7 @@ def _spectrum_info(spec: Spectrum) -> SpectrumInfo:
         largest=spec.largest,
         condition_number=cond,
         log10_condition=math.log10(cond) if cond else None,
-        counts_below=dict(spec.counts_below) if not spec.complete else
-        {k: v for k, v in spec.counts_below.items()},
+        counts_below=dict(spec.counts_below),
         gershgorin_bound=spec.gershgorin_bound,
         method=spec.method,
         eigenvalues=tuple(float(v) for v in spec.values),

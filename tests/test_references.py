@@ -3,7 +3,7 @@ import numpy as np
 import pytest
 from scipy.optimize import brentq
 
-from auditor.api import make_spec, prepare
+from auditor.api import prepare
 from auditor.basis import BasisSpec, load_shells
 from auditor.diagnose import gaussian_s_overlap
 from auditor.geometry import BOHR_IN_ANGSTROM
