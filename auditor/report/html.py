@@ -1,0 +1,465 @@
+"""Self-contained HTML report for one audit result: figures embedded as PNG data URIs,
+inline CSS, no scripts and no network access needed to view it.
+
+Every number shown comes from the result; each carries its full value and its place in
+the JSON report (``data-key``, ``data-value``) so that the two can be checked against
+each other.
+"""
+from __future__ import annotations
+
+import base64
+import json
+import math
+from html import escape
+from pathlib import Path
+
+from . import atomic_write
+
+SEVERITY_RANK = {"error": 0, "warning": 1, "info": 2}
+
+CSS = """
+:root { --ink:#1f2328; --muted:#59636e; --line:#d8dee4; --band:#f6f8fa;
+        --pass:#009E73; --caution:#E69F00; --fail:#D55E00; --error:#CC79A7; --accent:#0072B2; }
+* { box-sizing: border-box; }
+body { margin:0; color:var(--ink); background:#fff; font:15px/1.5 system-ui, -apple-system,
+       "Segoe UI", "DejaVu Sans", sans-serif; }
+main { max-width: 1080px; margin: 0 auto; padding: 20px 28px 40px; }
+h1 { font-size: 1.55em; margin: 0.2em 0 0.1em; }
+h2 { font-size: 1.2em; margin: 1.8em 0 0.5em; padding-bottom: 4px; border-bottom: 2px solid var(--line); }
+h3 { font-size: 1.0em; margin: 1.2em 0 0.4em; }
+.sub { color: var(--muted); margin: 0 0 14px; }
+nav { font-size: 0.9em; margin: 8px 0 4px; }
+nav a { margin-right: 14px; color: var(--accent); text-decoration: none; }
+.verdict { display:flex; gap:18px; align-items:flex-start; border:1px solid var(--line);
+           border-left: 8px solid var(--c); border-radius: 6px; padding: 14px 18px; background: var(--band); }
+.verdict .word { font-weight: 800; font-size: 1.5em; letter-spacing: 0.06em; color: #fff;
+                 background: var(--c); padding: 2px 14px; border-radius: 4px; white-space: nowrap; }
+.verdict p { margin: 0; }
+.num { white-space: nowrap; }
+.v-pass { --c: var(--pass); } .v-caution { --c: var(--caution); }
+.v-fail { --c: var(--fail); } .v-error { --c: var(--error); }
+.v-caution .word { color: #1f2328; }
+table { border-collapse: collapse; margin: 8px 0 12px; font-size: 0.92em; }
+th, td { border-bottom: 1px solid var(--line); padding: 4px 10px; text-align: left; vertical-align: top; }
+th { background: var(--band); font-weight: 600; }
+td.n, th.n { text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap; }
+tr.chosen td { background: #e7f1fa; font-weight: 600; }
+.sev { font-weight: 700; padding: 0 6px; border-radius: 3px; color: #fff; }
+.sev-error { background: var(--fail); } .sev-warning { background: var(--caution); color: #1f2328; }
+.sev-info { background: #8c8c8c; }
+.grid { display: flex; flex-wrap: wrap; gap: 0 28px; }
+figure { margin: 10px 0 16px; }
+figure img { max-width: 100%; height: auto; border: 1px solid var(--line); border-radius: 4px; }
+figcaption { color: var(--muted); font-size: 0.88em; max-width: 820px; }
+pre { background: var(--band); border: 1px solid var(--line); border-radius: 4px; padding: 10px 12px;
+      white-space: pre-wrap; word-break: break-word; font-size: 0.86em; }
+code { font-size: 0.92em; }
+ul.caveats li { margin-bottom: 4px; }
+details summary { cursor: pointer; color: var(--accent); margin: 4px 0; }
+footer { margin-top: 36px; color: var(--muted); font-size: 0.82em; }
+@media print { nav { display: none; } main { max-width: none; } h2 { break-after: avoid; } figure { break-inside: avoid; } }
+"""
+
+
+def _d(result) -> dict:
+    from .json import _clean
+
+    return _clean(result if isinstance(result, dict) else result.as_dict())
+
+
+def _value_attr(value) -> str:
+    if value is None or (isinstance(value, float) and not math.isfinite(value)):
+        return "null"
+    return json.dumps(value)
+
+
+def num(key: str, value, spec: str = ".3e", none: str = "not computed") -> str:
+    """A number as shown, tagged with its JSON path and full value."""
+    if value is None or (isinstance(value, float) and not math.isfinite(value)):
+        shown = none
+    else:
+        shown = format(value, spec)
+    return (f'<span class="num" data-key="{escape(key)}" data-value="{escape(_value_attr(value))}">'
+            f"{escape(shown)}</span>")
+
+
+def _img(png: bytes | None, alt: str, caption: str) -> str:
+    if not png:
+        return ""
+    data = base64.b64encode(png).decode("ascii")
+    return (f'<figure><img src="data:image/png;base64,{data}" alt="{escape(alt)}">'
+            f"<figcaption>{caption}</figcaption></figure>")
+
+
+def _atoms_text(atoms, limit: int = 12) -> str:
+    text = ", ".join(str(a) for a in atoms[:limit])
+    return text + (" …" if len(atoms) > limit else "")
+
+
+def explanation(d: dict) -> str:
+    """One paragraph (HTML) that says what the verdict means for this geometry."""
+    sp, c, rec, inp = d["spectrum"], d["causes"], d["recommendation"], d["input"]
+    parts = [escape(d["verdict_reason"][:1].upper() + d["verdict_reason"][1:]) + "."]
+    lc = sp["log10_condition"]
+    smallest = ("" if "smallest eigenvalue" in d["verdict_reason"] else
+                f" (smallest eigenvalue {num('spectrum.smallest', sp['smallest'])})")
+    if lc is None:
+        parts.append(f"The unit-diagonal overlap matrix is singular to rounding{smallest}: some basis "
+                     "functions are exact combinations of others.")
+    else:
+        parts.append(f"Log10 of the condition number of the unit-diagonal overlap matrix is "
+                     f"{num('spectrum.log10_condition', lc, '.1f')}{smallest}: roughly that many decimal "
+                     "digits are lost when the basis is orthogonalized.")
+    errors = [f for f in d["findings"] if f["severity"] == "error" and f["kind"] != "near_singular"]
+    if errors:
+        parts.append("The geometry itself needs attention first: " + escape(errors[0]["message"]))
+    top = [(i, a) for i, a in enumerate(c["atoms"][:3]) if a["weight"] >= 0.05]
+    if top:
+        who = ", ".join(f"{escape(a['element'])}{a['atom']} ({num(f'causes.atoms.{i}.weight', a['weight'], '.0%')})"
+                        for i, a in top)
+        parts.append(f"The near-null space sits mostly on {who}; diffuse shells carry "
+                     f"{num('causes.diffuse.diffuse', c['diffuse']['diffuse'], '.0%')} of it.")
+    if rec["n_removed"]:
+        parts.append(f"Canonical orthogonalization with threshold "
+                     f"{num('recommendation.threshold', rec['threshold'], '.1e')} removes "
+                     f"{num('recommendation.n_removed', rec['n_removed'], 'd')} of "
+                     f"{num('input.n_functions', inp['n_functions'], 'd')} functions.")
+    elif rec["n_removed"] == 0:
+        parts.append(f"At the advised threshold {num('recommendation.threshold', rec['threshold'], '.1e')} "
+                     "no function would be removed.")
+    return " ".join(parts)
+
+
+def _input_table(d: dict) -> str:
+    inp = d["input"]
+    frame = f"{inp['frame']} of {inp['n_frames']}" if inp["n_frames"] > 1 else "1"
+    rows = [
+        ("geometry file", f"<code>{escape(inp['path'])}</code>"),
+        ("frame", escape(frame)),
+        ("basis", escape(inp["basis"])),
+        ("atoms", num("input.n_atoms", inp["n_atoms"], "d")),
+        ("ghost atoms", escape(_atoms_text(inp["ghost_atoms"])) if inp["ghost_atoms"] else "none"),
+        ("basis functions", num("input.n_functions", inp["n_functions"], "d")),
+        ("shells", num("input.n_shells", inp["n_shells"], "d")),
+        ("charge", num("input.charge", inp["charge"], "d")),
+        ("multiplicity", num("input.multiplicity", inp["multiplicity"], "d", "not given")),
+    ]
+    return "<table>" + "".join(f"<tr><th>{k}</th><td>{v}</td></tr>" for k, v in rows) + "</table>"
+
+
+def _spectrum_tables(d: dict) -> str:
+    sp, pol = d["spectrum"], d["policy"]
+    rows = [
+        ("smallest eigenvalue", num("spectrum.smallest", sp["smallest"], ".4e")),
+        ("largest eigenvalue", num("spectrum.largest", sp["largest"], ".4f")),
+        ("condition number", num("spectrum.condition_number", sp["condition_number"], ".3e", "infinite (singular)")),
+        ("log10 condition number (digits lost)", num("spectrum.log10_condition", sp["log10_condition"], ".2f", "all")),
+        ("Gershgorin lower bound", num("spectrum.gershgorin_bound", sp["gershgorin_bound"], ".3f")),
+        ("caution level", num("policy.caution", pol["caution"], ".0e")),
+        ("fail level", num("policy.fail", pol["fail"], ".0e")),
+        ("method", escape(str(sp["method"]))),
+    ]
+    left = "<table>" + "".join(f'<tr><th>{k}</th><td class="n">{v}</td></tr>' for k, v in rows) + "</table>"
+    counts = "".join(
+        f'<tr><td class="n">{escape(k)}</td><td class="n">'
+        f"{num(f'spectrum.counts_below.{k}', v, 'd', 'not counted')}</td></tr>"
+        for k, v in sp["counts_below"].items())
+    right = ('<table><tr><th class="n">below</th><th class="n">eigenvalues</th></tr>' + counts + "</table>")
+    return f'<div class="grid"><div>{left}</div><div>{right}</div></div>'
+
+
+def _causes_tables(d: dict, limit: int = 12) -> str:
+    c = d["causes"]
+    arows = "".join(
+        f"<tr><td>{a['atom']}</td><td>{escape(a['element'])}</td><td>{'ghost' if a['ghost'] else ''}</td>"
+        f'<td class="n">{num(f"causes.atoms.{i}.weight", a["weight"], ".3f")}</td></tr>'
+        for i, a in enumerate(c["atoms"][:limit]))
+    srows = "".join(
+        f"<tr><td>{escape(s['shell'])}</td><td>{escape(str(s['l']))}</td>"
+        f'<td class="n">{num(f"causes.shells.{i}.exponent", s["exponent"], ".4g")}</td>'
+        f"<td>{'yes' if s['diffuse'] else ''}</td>"
+        f'<td class="n">{num(f"causes.shells.{i}.weight", s["weight"], ".3f")}</td></tr>'
+        for i, s in enumerate(c["shells"][:limit]))
+    lrows = "".join(
+        f"<tr><td>{escape(str(x['l']))}</td><td class=\"n\">{num(f'causes.angular.{i}.weight', x['weight'], '.3f')}</td></tr>"
+        for i, x in enumerate(c["angular"]))
+    return (
+        '<div class="grid">'
+        '<div><h3>Atoms</h3><table><tr><th>atom</th><th>element</th><th></th><th class="n">share</th></tr>'
+        f"{arows}</table></div>"
+        '<div><h3>Shells</h3><table><tr><th>shell</th><th>l</th><th class="n">smallest exponent</th>'
+        f'<th>diffuse</th><th class="n">share</th></tr>{srows}</table></div>'
+        f'<div><h3>Angular momentum</h3><table><tr><th>l</th><th class="n">share</th></tr>{lrows}</table></div>'
+        "</div>"
+    )
+
+
+def _findings(d: dict) -> str:
+    fs = sorted(enumerate(d["findings"]), key=lambda p: (SEVERITY_RANK.get(p[1]["severity"], 3), p[0]))
+    if not fs:
+        return "<p>No geometry defects, duplicate functions or crowded diffuse shells were found.</p>"
+    rows = "".join(
+        f'<tr><td><span class="sev sev-{escape(f["severity"])}">{escape(f["severity"])}</span></td>'
+        f"<td><code>{escape(f['kind'])}</code></td><td>{escape(_atoms_text(f['atoms']))}</td>"
+        f"<td>{escape(f['message'])}</td></tr>"
+        for _, f in fs)
+    return ("<table><tr><th>severity</th><th>kind</th><th>atoms</th><th>what it means</th></tr>"
+            f"{rows}</table>")
+
+
+def _advice(d: dict) -> str:
+    rec, n = d["recommendation"], d["input"]["n_functions"]
+    head = (f"<p>Advised threshold <strong>τ = {num('recommendation.threshold', rec['threshold'], '.1e')}</strong>: "
+            f"{escape(rec['reason'])}. Eigenvectors of S with eigenvalue below τ are dropped and the rest are "
+            f"scaled, X = U<sub>k</sub> Λ<sub>k</sub><sup>-1/2</sup>. This removes "
+            f"{num('recommendation.n_removed', rec['n_removed'], 'd')} of "
+            f"{num('input.n_functions', n, 'd')} functions; the smallest kept eigenvalue is "
+            f"{num('recommendation.smallest_kept', rec['smallest_kept'])} and the largest element of X is "
+            f"{num('recommendation.max_transform_element', rec['max_transform_element'], '.1f')}.</p>")
+    rows = []
+    for i, c in enumerate(rec["candidates"]):
+        chosen = ' class="chosen"' if c["threshold"] == rec["threshold"] else ""
+        k = f"recommendation.candidates.{i}"
+        rows.append(
+            f'<tr{chosen}><td class="n">{num(k + ".threshold", c["threshold"], ".0e")}</td>'
+            f'<td class="n">{num(k + ".n_removed", c["n_removed"], "d")}</td>'
+            f'<td class="n">{num(k + ".smallest_kept", c["smallest_kept"])}</td>'
+            f'<td class="n">{num(k + ".max_transform_element", c["max_transform_element"], ".1f")}</td></tr>')
+    table = ('<table><tr><th class="n">threshold τ</th><th class="n">functions removed</th>'
+             '<th class="n">smallest kept eigenvalue</th><th class="n">largest element of X</th></tr>'
+             + "".join(rows) + "</table>")
+    how = f"<h3>Applying it in pyscf</h3><pre><code>{escape(rec['how_to'])}</code></pre>"
+    return head + table + how
+
+
+def _label(key: str) -> str:
+    return escape(str(key).replace("_", " "))
+
+
+def _generic(value, key: str, depth: int = 0) -> str:
+    """Any JSON value as HTML: dicts as two-column tables, lists of records as tables."""
+    if isinstance(value, bool) or value is None:
+        return escape({True: "yes", False: "no", None: "—"}[value])
+    if isinstance(value, int):
+        return num(key, value, "d")
+    if isinstance(value, float):
+        spec = ".4g" if value == 0 or 1e-3 <= abs(value) < 1e5 else ".3e"
+        return num(key, value, spec)
+    if isinstance(value, str):
+        if "\n" in value:
+            return f"<pre><code>{escape(value)}</code></pre>"
+        return escape(value)
+    if isinstance(value, dict):
+        rows = "".join(f"<tr><th>{_label(k)}</th><td>{_generic(v, f'{key}.{k}', depth + 1)}</td></tr>"
+                       for k, v in value.items())
+        return f"<table>{rows}</table>"
+    if isinstance(value, (list, tuple)):
+        if not value:
+            return "none"
+        if all(isinstance(v, dict) for v in value):
+            cols: list[str] = []
+            for v in value:
+                cols += [k for k in v if k not in cols]
+            head = "".join(f"<th>{_label(k)}</th>" for k in cols)
+            body = "".join(
+                "<tr>" + "".join(f"<td>{_generic(v[k], f'{key}.{i}.{k}', depth + 1) if k in v else ''}</td>"
+                                 for k in cols) + "</tr>"
+                for i, v in enumerate(value))
+            return f"<table><tr>{head}</tr>{body}</table>"
+        return ", ".join(_generic(v, f"{key}.{i}", depth + 1) for i, v in enumerate(value))
+    return escape(str(value))
+
+
+MAX_REMEDY_ROWS = 40
+_KNOWN_REMEDY_KEYS = {"target", "needed", "alternatives", "problems", "cholesky_shells", "cholesky_functions",
+                      "diffuse_by_element", "trial_scf"}
+
+
+def _yes(flag) -> str:
+    return {True: "yes", False: "no"}.get(flag, "—")
+
+
+def _more(n_all: int, cols: int) -> str:
+    if n_all <= MAX_REMEDY_ROWS:
+        return ""
+    return f'<tr><td colspan="{cols}">… {n_all - MAX_REMEDY_ROWS} more in the JSON report</td></tr>'
+
+
+def _fold(n_rows: int, what: str, table: str) -> str:
+    """Long tables start folded, short ones open."""
+    state = " open" if n_rows <= 12 else ""
+    return f"<details{state}><summary>{n_rows} {escape(what)}</summary>{table}</details>"
+
+
+def _l(x) -> str:
+    return "spdfghik"[x] if isinstance(x, int) and 0 <= x < 8 else str(x)
+
+
+def _where(r: dict) -> str:
+    return f"{escape(str(r['element']))}{r['atom']}{' (ghost)' if r.get('ghost') else ''} {escape(str(r['shell']))}"
+
+
+def _remedies(d: dict) -> str:
+    rem = d.get("remedies")
+    if not rem:
+        return ""
+    if not isinstance(rem, dict):
+        return '<h2 id="remedies">Remedies</h2>' + _generic(rem, "remedies")
+    n = d["input"]["n_functions"]
+    out = ['<h2 id="remedies">Remedies</h2>']
+    alts = rem.get("alternatives") or []
+    target = num("remedies.target", rem.get("target"), ".1e")
+    if not rem.get("needed") and not alts:
+        out.append(f"<p>The smallest eigenvalue already reaches the target {target}; nothing needs removing.</p>")
+    else:
+        out.append(f"<p>Each remedy below is judged by whether the smallest eigenvalue of what it keeps reaches "
+                   f"the target {target}; those that do come first, then those that remove least.</p>")
+        rows = "".join(
+            f'<tr><td class="n">{num(f"remedies.alternatives.{i}.rank", a.get("rank"), "d", "")}</td>'
+            f"<td>{escape(str(a.get('title', a.get('kind', ''))))}</td>"
+            f'<td class="n">{num(f"remedies.alternatives.{i}.removed", a.get("removed"), "d", "?")} '
+            f"{escape(str(a.get('unit', '')))}</td>"
+            f'<td class="n">{num(f"remedies.alternatives.{i}.smallest_after", a.get("smallest_after"))}</td>'
+            f"<td>{_yes(a.get('reaches_target'))}</td><td>{escape(str(a.get('how', '')))}</td></tr>"
+            for i, a in enumerate(alts))
+        out.append('<table><tr><th class="n">rank</th><th>remedy</th>'
+                   f'<th class="n">removes (of {n})</th><th class="n">smallest eigenvalue after</th>'
+                   f"<th>reaches target</th><th>how</th></tr>{rows}</table>")
+    for prob in rem.get("problems") or []:
+        out.append(f"<p>Not available: {escape(str(prob))}.</p>")
+    sh = rem.get("cholesky_shells")
+    if sh:
+        out.append(f"<h3>Shell-pruned basis</h3><p>Pivoted Cholesky over whole shells (tolerance "
+                   f"{num('remedies.cholesky_shells.tolerance', sh.get('tolerance'), '.2e')}) keeps "
+                   f"{num('remedies.cholesky_shells.kept', sh.get('kept'), 'd')} of {n} functions; the smallest "
+                   f"eigenvalue of the kept set is "
+                   f"{num('remedies.cholesky_shells.smallest_kept', sh.get('smallest_kept'))}. Shells dropped:</p>")
+        dropped = sh.get("dropped_shells") or []
+        rows = "".join(
+            f"<tr><td>{_where(x)}</td><td>{escape(_l(x['l']))}</td>"
+            f'<td class="n">{num(f"remedies.cholesky_shells.dropped_shells.{i}.exponent", x["exponent"], ".4g")}</td>'
+            f"<td>{'yes' if x.get('diffuse') else ''}</td>"
+            f'<td class="n">{num(f"remedies.cholesky_shells.dropped_shells.{i}.functions", x["functions"], "d")}</td></tr>'
+            for i, x in enumerate(dropped[:MAX_REMEDY_ROWS]))
+        out.append(_fold(len(dropped), "shells dropped",
+                         '<table><tr><th>atom and shell</th><th>l</th><th class="n">smallest exponent</th>'
+                         f'<th>diffuse</th><th class="n">functions</th></tr>{rows}{_more(len(dropped), 5)}</table>'))
+    fn = rem.get("cholesky_functions")
+    if fn:
+        out.append(f"<h3>Pivoted-Cholesky subset of functions</h3><p>Tolerance "
+                   f"{num('remedies.cholesky_functions.tolerance', fn.get('tolerance'), '.2e')}, found in "
+                   f"{num('remedies.cholesky_functions.factorizations', fn.get('factorizations'), 'd')} "
+                   f"factorization(s); keeps {num('remedies.cholesky_functions.kept', fn.get('kept'), 'd')} of "
+                   f"{n} functions. Single functions are dropped, so the basis is no longer rotationally "
+                   "invariant. Functions dropped:</p>")
+        dropped = fn.get("dropped") or []
+        rows = "".join(
+            f'<tr><td class="n">{x["function"]}</td><td>{_where(x)}</td><td>{escape(str(x["component"]))}</td>'
+            f'<td class="n">{num(f"remedies.cholesky_functions.dropped.{i}.exponent", x["exponent"], ".4g")}</td></tr>'
+            for i, x in enumerate(dropped[:MAX_REMEDY_ROWS]))
+        out.append(_fold(len(dropped), "functions dropped",
+                         '<table><tr><th class="n">function</th><th>atom and shell</th><th>component</th>'
+                         f'<th class="n">smallest exponent</th></tr>{rows}{_more(len(dropped), 4)}</table>'))
+    if rem.get("diffuse_by_element"):
+        out.append("<h3>Diffuse shells by element</h3>" + _generic(rem["diffuse_by_element"], "remedies.diffuse_by_element"))
+    tri = rem.get("trial_scf")
+    if tri:
+        out.append('<h3 id="trial-scf">Trial SCF</h3>')
+        if tri.get("skipped"):
+            out.append(f"<p>{escape(str(tri['skipped']))}.</p>")
+        else:
+            out.append(f"<p>Method {escape(str(tri.get('method', '')))}; energies in hartree.</p>")
+            rows = "".join(
+                f"<tr><td>{escape(str(r.get('basis', '')))}</td>"
+                f'<td class="n">{num(f"remedies.trial_scf.runs.{i}.n_functions", r.get("n_functions"), "d")}</td>'
+                f'<td class="n">{num(f"remedies.trial_scf.runs.{i}.directions_removed", r.get("directions_removed"), "d")}</td>'
+                f"<td>{_yes(r.get('converged'))}</td>"
+                f'<td class="n">{num(f"remedies.trial_scf.runs.{i}.cycles", r.get("cycles"), "d", "")}</td>'
+                f'<td class="n">{num(f"remedies.trial_scf.runs.{i}.energy", r.get("energy"), ".8f", "none")}</td>'
+                f'<td class="n">{num(f"remedies.trial_scf.runs.{i}.seconds", r.get("seconds"), ".1f", "")}</td>'
+                f"<td>{escape(str(r.get('note') or ''))}</td></tr>"
+                for i, r in enumerate(tri.get("runs") or []))
+            out.append('<table><tr><th>basis</th><th class="n">functions</th><th class="n">directions removed</th>'
+                       '<th>converged</th><th class="n">cycles</th><th class="n">energy (hartree)</th>'
+                       f'<th class="n">time (s)</th><th>note</th></tr>{rows}</table>')
+            diff = tri.get("difference_microhartree")
+            if diff is not None:
+                out.append(f"<p>Pruned basis minus canonical orthogonalization: "
+                           f"{num('remedies.trial_scf.difference_microhartree', diff, '+.1f')} microhartree.</p>")
+            if tri.get("reminder"):
+                out.append(f"<p>{escape(str(tri['reminder']))}</p>")
+    for k, v in rem.items():
+        if k not in _KNOWN_REMEDY_KEYS and v not in (None, [], {}):
+            out.append(f"<h3>{_label(k).capitalize()}</h3>" + _generic(v, f"remedies.{k}"))
+    return "\n".join(out)
+
+
+def render_html(result, images: dict[str, bytes] | None = None) -> str:
+    """The HTML text of one result. ``images`` maps "spectrum", "causes" and "molecule" to
+    PNG bytes; when None they are drawn here."""
+    d = _d(result)
+    if images is None:
+        from .plots import report_plots
+
+        images = report_plots(d)
+    inp, verdict = d["input"], str(d["verdict"])
+    name = Path(inp["path"]).name
+    frame = f", frame {inp['frame']} of {inp['n_frames']}" if inp["n_frames"] > 1 else ""
+    title = f"Basis overlap audit: {name}{frame}"
+    ghosts = f", {len(inp['ghost_atoms'])} of them ghost atoms" if inp["ghost_atoms"] else ""
+    from .plots import vectors_note
+
+    vec_note = vectors_note(d)
+    sections = [
+        "<!DOCTYPE html>",
+        '<html lang="en"><head><meta charset="utf-8">',
+        '<meta name="viewport" content="width=device-width, initial-scale=1">',
+        f"<title>{escape(title)}</title>",
+        f"<style>{CSS}</style></head><body><main>",
+        f"<h1>{escape(title)}</h1>",
+        (f'<p class="sub">Basis {escape(inp["basis"])}; {inp["n_atoms"]} atoms{ghosts}; '
+         f'{inp["n_functions"]} basis functions in {inp["n_shells"]} shells.</p>'),
+        ('<nav><a href="#spectrum">Spectrum</a><a href="#causes">Causes</a><a href="#geometry">Geometry</a>'
+         '<a href="#findings">Findings</a><a href="#advice">Orthogonalization</a>'
+         + ('<a href="#remedies">Remedies</a>' if d.get("remedies") else "")
+         + ('<a href="#trial-scf">Trial SCF</a>' if (d.get("remedies") or {}).get("trial_scf") else "")
+         + '<a href="#caveats">Read before acting</a></nav>'),
+        (f'<section class="verdict v-{escape(verdict)}" id="verdict"><span class="word" data-key="verdict" '
+         f'data-value="{escape(json.dumps(verdict))}">{escape(verdict.upper())}</span>'
+         f"<p>{explanation(d)}</p></section>"),
+        '<h2 id="spectrum">Spectrum of the normalized overlap matrix</h2>',
+        _img(images.get("spectrum"), "Overlap eigenvalues on a log axis, smallest first, with the caution "
+             "and fail levels and the advised threshold",
+             "Eigenvalues of D<sup>-1/2</sup> S D<sup>-1/2</sup> (unit diagonal), smallest first, on a log axis. "
+             "Open circles are the directions the advised threshold removes."),
+        _spectrum_tables(d),
+        '<h2 id="causes">Where the near-null space sits</h2>',
+        _img(images.get("causes"), "Bar charts of the near-null-space share per atom, per angular momentum "
+             "and for diffuse shells",
+             f"Share of each atom, angular momentum and shell kind in {escape(vec_note)}; each chart adds up to 1."),
+        _causes_tables(d),
+        '<h2 id="geometry">Geometry</h2>',
+        _img(images.get("molecule"), "The molecule projected onto its principal plane, atoms shaded by their "
+             "near-null-space share",
+             "Atoms on the plane of the two largest principal axes of the coordinates, shaded by their share "
+             "of the near-null space. Grey lines are bonds (distance below 1.2 times the covalent-radius sum); "
+             "red dashed lines or rings mark coincident atoms and short contacts from the findings."),
+        _input_table(d),
+        '<h2 id="findings">Findings</h2>',
+        _findings(d),
+        '<h2 id="advice">Canonical orthogonalization</h2>',
+        _advice(d),
+        _remedies(d),
+        '<h2 id="caveats">Read before acting</h2>',
+        '<ul class="caveats">' + "".join(f"<li>{escape(x)}</li>" for x in d["caveats"]) + "</ul>",
+        (f"<footer>auditor {escape(str(d['version']))}, report schema {escape(str(d['schema']))}. "
+         "This page is self-contained: the figures are embedded and nothing is fetched from the network.</footer>"),
+        "</main></body></html>",
+        "",
+    ]
+    return "\n".join(s for s in sections if s)
+
+
+def write_html(result, path: Path, images: dict[str, bytes] | None = None) -> Path:
+    atomic_write(path, render_html(result, images))
+    return path
