@@ -107,7 +107,7 @@ def _unit_finding(mol, real, rxyz, rad, rtree) -> Finding | None:
     nn_d, nn = dist[:, 1], idx[:, 1]
     ratio = nn_d / (rad + rad[nn])
     ratio = ratio[keep & keep[nn]]
-    if ratio.size < 2:
+    if ratio.size < 3:  # one bond length alone cannot tell a unit mix-up from a bad geometry
         return None
     median = float(np.median(ratio))
     bonded = np.mean((ratio > 0.75) & (ratio < 1.3))

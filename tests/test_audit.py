@@ -104,6 +104,8 @@ def test_unit_not_flagged_for_sane_or_noble_gas_geometries():
         assert "suspect_units" not in kinds(auditor.audit(molecule(name), "sto-3g"))
     ar2 = make_molecule(["Ar", "Ar"], [[0, 0, 0], [0, 0, 3.76]])  # van der Waals dimer
     assert "suspect_units" not in kinds(auditor.audit(ar2, "sto-3g"))
+    h2 = make_molecule(["H", "H"], [[0, 0, 0], [0, 0, 0.4]])  # one bond is no evidence of units
+    assert "suspect_units" not in kinds(auditor.audit(h2, "sto-3g"))
 
 
 def test_short_contact():

@@ -6,9 +6,16 @@ import tempfile
 from pathlib import Path
 
 
+def _umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
+
+
 def atomic_write(path: Path, data: str | bytes) -> None:
     """Write ``data`` to ``path`` through a temporary file and a rename, so that an
-    interrupted run never leaves a half-written report."""
+    interrupted run never leaves a half-written report. The file gets the usual
+    permissions (0666 less the umask), not mkstemp's private 0600."""
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
     mode = "wb" if isinstance(data, bytes) else "w"
@@ -16,6 +23,7 @@ def atomic_write(path: Path, data: str | bytes) -> None:
     try:
         with os.fdopen(fd, mode, **({} if isinstance(data, bytes) else {"encoding": "utf-8"})) as fh:
             fh.write(data)
+        os.chmod(tmp, 0o666 & ~_umask())
         os.replace(tmp, path)
     except BaseException:
         if os.path.exists(tmp):

@@ -1,0 +1,591 @@
+"""Sets of geometries: collect the items, audit them in worker processes or on a Dask
+cluster, reuse cached results, and write one JSON report and one summary row per item.
+
+Workers and the cache only ever exchange JSON text; the audit itself is
+``api.prepare`` + ``api.audit_prepared``, run inside the worker.
+"""
+from __future__ import annotations
+
+import glob
+import json
+import multiprocessing as mp
+import os
+import signal
+import time
+from collections import deque
+from contextlib import contextmanager
+from dataclasses import dataclass, field
+from multiprocessing.connection import wait as wait_any
+from pathlib import Path
+
+from . import __version__
+from .basis import BasisSpec
+from .cache import ResultCache, content_key, file_digest
+from .errors import AuditorError, UsageError
+from .geometry import Molecule
+from .policy import Policy
+from .report import atomic_write, report_stem
+from .report.summary import error_row, result_row
+
+#: file names a directory argument contributes (recursively)
+GEOMETRY_PATTERNS = ("*.xyz", "*.extxyz")
+#: thread pools of BLAS/OpenMP libraries, pinned in worker processes
+THREAD_VARS = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS",
+               "VECLIB_MAXIMUM_THREADS", "NUMEXPR_NUM_THREADS")
+ITEMS_DIR = "items"
+
+
+@dataclass(frozen=True)
+class GateOptions:
+    """What every item of a run is audited with."""
+
+    spec: BasisSpec
+    policy: Policy
+    unit: str = "angstrom"
+    ghost: str | None = None
+    spectrum_method: str = "full"
+
+
+@dataclass
+class Item:
+    """One frame of one file. ``name`` is unique in the run: DIR/items/<name>.json."""
+
+    path: str
+    frame: int | None            # 1-based; None when the file could not be read
+    n_frames: int = 1
+    molecule: Molecule | None = None
+    error: str = ""
+    name: str = ""
+    key: str = ""
+
+
+# ---------------------------------------------------------------- collecting items
+
+def display_path(p: str | Path) -> str:
+    """The path relative to the working folder when it lies below it, else absolute (posix)."""
+    absolute = os.path.abspath(p)
+    rel = os.path.relpath(absolute)
+    return Path(rel if not rel.startswith("..") else absolute).as_posix()
+
+
+def _has_magic(s: str) -> bool:
+    return any(c in s for c in "*?[")
+
+
+def expand_inputs(args: list[str], patterns=GEOMETRY_PATTERNS, _depth: int = 0) -> tuple[list[Path], list[tuple[str, str]]]:
+    """Files named by ``args`` (files, folders searched recursively, glob patterns, and
+    ``@LIST`` text files with one such argument a line, relative to the list file),
+    plus (argument, message) for arguments that name nothing."""
+    files: list[Path] = []
+    missing: list[tuple[str, str]] = []
+    for arg in args:
+        arg = str(arg)
+        if arg.startswith("@") and not os.path.exists(arg):
+            listing = Path(arg[1:])
+            try:
+                lines = listing.read_text(encoding="utf-8").splitlines()
+            except (OSError, UnicodeDecodeError):
+                missing.append((arg[1:], f"{arg[1:]}: cannot read the list of paths"))
+                continue
+            if _depth > 8:
+                raise UsageError(f"{listing}: lists of paths nest too deeply")
+            entries = [ln.strip() for ln in lines if ln.strip() and not ln.lstrip().startswith("#")]
+            base = listing.parent
+            entries = [e if os.path.isabs(e) or e.startswith("@") else str(base / e) for e in entries]
+            f, m = expand_inputs(entries, patterns, _depth + 1)
+            files += f
+            missing += m
+            continue
+        p = Path(arg)
+        if p.is_dir():
+            found = {q for pat in patterns for q in p.rglob(pat)
+                     if q.is_file() and not any(part.startswith(".") for part in q.relative_to(p).parts)}
+            if not found:
+                missing.append((arg, f"{arg}: folder holds no geometry file ({', '.join(patterns)})"))
+            files += sorted(found)
+        elif p.exists():
+            files.append(p)
+        elif _has_magic(arg):
+            hits = sorted(glob.glob(arg, recursive=True))
+            if not hits:
+                missing.append((arg, f"{arg}: pattern matches no file"))
+            for h in hits:
+                f, m = expand_inputs([h], patterns, _depth + 1) if os.path.isdir(h) else ([Path(h)], [])
+                files += f
+                missing += m
+        else:
+            missing.append((arg, f"{arg}: no such file or folder"))
+    return files, missing
+
+
+def collect_items(args: list[str], options: GateOptions, patterns=GEOMETRY_PATTERNS) -> list[Item]:
+    """Every frame of every file as an item, sorted by (path, frame); unreadable files
+    and arguments that name nothing become error items."""
+    from .api import load_molecules
+
+    files, missing = expand_inputs(args, patterns)
+    items: list[Item] = [Item(display_path(a) if os.path.isabs(a) else a, None, error=m) for a, m in missing]
+    seen: set[str] = set()
+    for f in files:
+        real = os.path.realpath(f)
+        if real in seen:
+            continue
+        seen.add(real)
+        shown = display_path(f)
+        try:
+            frames = load_molecules(f, unit=options.unit, ghost=options.ghost)
+        except AuditorError as exc:
+            items.append(Item(shown, None, error=exc.message))
+            continue
+        for mol in frames:
+            items.append(Item(shown, mol.frame + 1, mol.n_frames, mol))
+    items.sort(key=lambda it: (it.path, it.frame or 0))
+    used: set[str] = set()
+    for it in items:
+        flat = it.path.lstrip("/").replace("../", "up__").replace("/", "__")
+        flat = "".join(c if c.isalnum() or c in "._-" else "_" for c in flat)
+        base = report_stem(flat, it.frame or 1, it.n_frames)
+        name, k = base, 2
+        while name in used:
+            name, k = f"{base}-{k}", k + 1
+        used.add(name)
+        it.name = name
+    return items
+
+
+# ---------------------------------------------------------------- content keys and payloads
+
+def _pyscf_version() -> str:
+    from importlib.metadata import PackageNotFoundError, version
+
+    try:
+        return version("pyscf")
+    except PackageNotFoundError:
+        return "unknown"
+
+
+def _geometry(mol: Molecule) -> dict:
+    return {
+        "symbols": list(mol.symbols),
+        "coords": [[float(x) for x in row] for row in mol.coords],
+        "ghost": [bool(g) for g in mol.ghost],
+        "charge": int(mol.charge),
+        "multiplicity": mol.multiplicity,
+    }
+
+
+def run_context(options: GateOptions) -> dict:
+    """Everything besides the geometry that a result depends on (part of every cache key)."""
+    names = [options.spec.default, *options.spec.per_element.values()]
+    files = {n: file_digest(Path(n).expanduser()) for n in names if Path(n).expanduser().is_file()}
+    return {
+        "basis": options.spec.as_dict(),
+        "basis_files": files,
+        "policy": options.policy.as_dict(),
+        "spectrum_method": options.spectrum_method,
+        "versions": {"auditor": __version__, "pyscf": _pyscf_version()},
+    }
+
+
+def item_key(item: Item, context: dict) -> str:
+    """Content hash of (geometry, basis, options, versions); the file name plays no part."""
+    return content_key({"geometry": _geometry(item.molecule), **context})
+
+
+def item_payload(item: Item, options: GateOptions) -> str:
+    """JSON text that a worker needs to audit ``item``."""
+    mol = item.molecule
+    return json.dumps({
+        "geometry": _geometry(mol),
+        "source": item.path, "frame": mol.frame, "n_frames": mol.n_frames,
+        "basis": options.spec.as_dict(), "policy": options.policy.as_dict(),
+        "spectrum_method": options.spectrum_method,
+    })
+
+
+def run_item(payload: str) -> str:
+    """Audit one item (worker side): JSON text in; JSON text out, {"report": <report JSON text>}
+    or {"error": "..."}."""
+    import numpy as np
+
+    from .api import audit_prepared, prepare
+    from .report.json import to_json
+
+    p = json.loads(payload)
+    t0 = time.perf_counter()
+    try:
+        g = p["geometry"]
+        mol = Molecule(tuple(g["symbols"]), np.asarray(g["coords"], dtype=float), tuple(g["ghost"]),
+                       charge=g["charge"], multiplicity=g["multiplicity"], source=p["source"],
+                       frame=p["frame"], n_frames=p["n_frames"])
+        spec = BasisSpec(p["basis"]["default"], dict(p["basis"]["per_element"]), bool(p["basis"]["cartesian"]))
+        result = audit_prepared(prepare(mol, spec), Policy(**p["policy"]), p["spectrum_method"])
+        return json.dumps({"seconds": round(time.perf_counter() - t0, 6), "report": to_json(result)})
+    except AuditorError as exc:
+        return json.dumps({"error": exc.message})
+    except MemoryError:
+        return json.dumps({"error": "ran out of memory"})
+    except Exception as exc:  # an item must never take the run down; report it as that item's error
+        text = str(exc).splitlines()[0] if str(exc) else ""
+        return json.dumps({"error": f"internal error {type(exc).__name__}: {text}"})
+
+
+# ---------------------------------------------------------------- local engine
+
+@contextmanager
+def _thread_env(threads: int):
+    """Environment for worker processes started inside: BLAS/OpenMP pools of ``threads``."""
+    old = {k: os.environ.get(k) for k in THREAD_VARS}
+    os.environ.update({k: str(threads) for k in THREAD_VARS})
+    try:
+        yield
+    finally:
+        for k, v in old.items():
+            if v is None:
+                os.environ.pop(k, None)
+            else:
+                os.environ[k] = v
+
+
+def _worker_main(conn, task) -> None:
+    """Worker process: import the integral library once, then audit items until told to stop."""
+    signal.signal(signal.SIGINT, signal.SIG_IGN)  # the parent handles Ctrl-C and ends its workers
+    try:
+        from . import api  # noqa: F401
+        import pyscf.gto  # noqa: F401
+
+        conn.send(("ready", ""))
+        while True:
+            payload = conn.recv()
+            if payload is None:
+                return
+            conn.send(("done", task(payload)))
+    except (EOFError, BrokenPipeError, ConnectionResetError):
+        return  # the parent is gone
+
+
+class _Worker:
+    def __init__(self, ctx, task):
+        self.conn, child = ctx.Pipe()
+        self.proc = ctx.Process(target=_worker_main, args=(child, task), daemon=True)
+        self.proc.start()
+        child.close()
+        self.ready = False
+        self.task: str | None = None
+        self.started = 0.0
+
+    def assign(self, name: str, payload: str) -> None:
+        self.task, self.started = name, time.monotonic()
+        self.conn.send(payload)
+
+    def kill(self) -> None:
+        if self.proc.is_alive():
+            self.proc.kill()
+        self.proc.join(5)
+        self.conn.close()
+
+
+class LocalEngine:
+    """Worker processes on this machine (spawned, never forked), one item at a time each.
+
+    A worker that dies, or that runs longer than ``timeout`` seconds on one item, is
+    replaced, and only that item is recorded as an error.
+    """
+
+    def __init__(self, jobs: int | None = None, timeout: float | None = None, task=run_item):
+        cores = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else (os.cpu_count() or 1)
+        self.jobs = max(1, jobs or cores)
+        # One BLAS/OpenMP thread per worker: on matrices of a few hundred functions more
+        # threads gain little on an idle machine and lose many-fold on a busy one.
+        self.threads = 1
+        self.timeout = timeout if timeout and timeout > 0 else None
+        self.task = task
+
+    def run(self, tasks: list[tuple[str, str]], on_done) -> None:
+        """Run (name, payload) tasks; call on_done(name, reply dict, seconds) as each ends."""
+        queue = deque(tasks)
+        if not queue:
+            return
+        ctx = mp.get_context("spawn")
+        workers: list[_Worker] = []
+        failed_starts = 0
+
+        def start() -> _Worker:
+            with _thread_env(self.threads):
+                return _Worker(ctx, self.task)
+
+        try:
+            workers = [start() for _ in range(min(self.jobs, len(queue)))]
+            while queue or any(w.task for w in workers):
+                for w in workers:
+                    if w.ready and w.task is None and queue:
+                        w.assign(*queue.popleft())
+                wait_any([w.conn for w in workers] + [w.proc.sentinel for w in workers],
+                         self._wait_time(workers))
+                for i, w in enumerate(workers):
+                    reply, died = None, False
+                    try:
+                        while w.conn.poll():
+                            kind, text = w.conn.recv()
+                            if kind == "ready":
+                                w.ready = True
+                            else:
+                                reply = json.loads(text)
+                    except (EOFError, OSError):
+                        died = True
+                    if reply is not None:
+                        name, w.task = w.task, None
+                        on_done(name, reply, time.monotonic() - w.started)
+                    died = died or not w.proc.is_alive()
+                    late = w.task is not None and self.timeout and time.monotonic() - w.started > self.timeout
+                    if not (died or late):
+                        continue
+                    w.kill()
+                    if w.task is not None:
+                        why = (f"took longer than the item timeout ({self.timeout:g} s); the worker was stopped"
+                               if late and not died else
+                               f"the worker process died (exit code {w.proc.exitcode}) while auditing this item")
+                        on_done(w.task, {"error": why}, time.monotonic() - w.started)
+                    elif not w.ready:
+                        failed_starts += 1
+                        if failed_starts > 2 * self.jobs:
+                            raise AuditorError(f"worker processes fail to start (exit code {w.proc.exitcode})")
+                    workers[i] = start() if queue else None
+                workers = [w for w in workers if w is not None]
+        finally:
+            for w in workers:
+                try:
+                    if w.proc.is_alive() and w.task is None:
+                        w.conn.send(None)
+                except OSError:
+                    pass
+            for w in workers:
+                w.proc.join(2 if w.task is None else 0)
+                w.kill()
+
+    def _wait_time(self, workers) -> float:
+        if not self.timeout:
+            return 5.0
+        now = time.monotonic()
+        left = [self.timeout - (now - w.started) for w in workers if w.task is not None]
+        return max(0.01, min(left, default=5.0))
+
+
+# ---------------------------------------------------------------- Dask engine
+
+def _check_reachable(address: str, seconds: float = 5.0) -> None:
+    """Fail fast on a tcp:// address that refuses connections (Dask itself retries until its timeout)."""
+    import socket
+    from urllib.parse import urlsplit
+
+    if not address.startswith("tcp://"):
+        return
+    try:
+        parts = urlsplit(address)
+        host, port = parts.hostname, parts.port
+    except ValueError:
+        raise UsageError(f"cannot read the scheduler address {address!r}") from None
+    if not host or not port:
+        raise UsageError(f"the scheduler address {address!r} needs a host and a port")
+    try:
+        socket.create_connection((host, port), timeout=seconds).close()
+    except OSError as exc:
+        raise UsageError(f"cannot reach the Dask scheduler at {address} ({exc.strerror or exc})") from None
+
+
+class DaskEngine:
+    """Items as tasks on a running Dask distributed scheduler (JSON text in and out).
+
+    The workers must have auditor installed. ``--item-timeout`` is not enforced here:
+    Dask cannot stop a running task.
+    """
+
+    def __init__(self, address: str, connect_timeout: float = 20.0):
+        self.address = address
+        self.connect_timeout = connect_timeout
+
+    def run(self, tasks: list[tuple[str, str]], on_done) -> None:
+        if not tasks:
+            return
+        try:
+            from dask.distributed import Client, as_completed
+        except ImportError:
+            raise UsageError("--engine dask needs dask[distributed]: pip install 'auditor[dask]'") from None
+        _check_reachable(self.address)
+        try:
+            client = Client(self.address, timeout=self.connect_timeout, set_as_default=False)
+        except (OSError, TimeoutError, ValueError) as exc:
+            raise UsageError(f"cannot reach the Dask scheduler at {self.address} ({exc})") from None
+        with client:
+            started = time.monotonic()
+            futures = {client.submit(run_item, payload, pure=False): name for name, payload in tasks}
+            for fut in as_completed(futures, loop=client.loop):
+                try:
+                    reply = json.loads(fut.result())
+                except Exception as exc:  # a lost worker or a task Dask gave up on
+                    reply = {"error": f"the Dask task failed ({type(exc).__name__}: {exc})"}
+                on_done(futures[fut], reply, time.monotonic() - started)
+
+
+# ---------------------------------------------------------------- the run
+
+class _Stored:
+    """A JSON result dict seen through the writer interface (``as_dict``)."""
+
+    def __init__(self, data: dict):
+        self._data = data
+
+    def as_dict(self) -> dict:
+        return self._data
+
+
+@dataclass
+class BatchRun:
+    rows: list[dict]
+    seconds: dict = field(default_factory=dict)   # item -> seconds spent on it in this run
+    computed: int = 0
+    cached: int = 0
+    errors: int = 0
+
+
+def check_basis_names(spec: BasisSpec, elements: set[str]) -> None:
+    """A basis name that neither pyscf nor the file system knows is a usage error, not one
+    error per item. (Imports pyscf: called only when something must be computed.)"""
+    from .basis import load_shells
+    from .errors import InputError
+
+    for name in {spec.for_element(el) for el in elements}:
+        users = sorted(el for el in elements if spec.for_element(el) == name)
+        try:
+            load_shells(name, users[0])
+        except InputError as exc:
+            if exc.message.startswith("unknown basis name"):
+                raise UsageError(exc.message) from None
+
+
+def _same_text(path: Path, text: str) -> bool:
+    try:
+        return path.read_text(encoding="utf-8") == text
+    except (OSError, UnicodeDecodeError):
+        return False
+
+
+def _with_path(message: str, path: str) -> str:
+    return message if path in message else f"{path}: {message}"
+
+
+def run_batch(args: list[str], options: GateOptions, out: Path, engine, cache: ResultCache | None = None,
+              patterns=GEOMETRY_PATTERNS, progress=None) -> BatchRun:
+    """Audit every item named by ``args``; write out/items/<item>.json as each finishes.
+
+    Cached results are used as they are; fresh ones are stored. ``progress(done, total)``
+    is called after every item. Rows come back in item order.
+    """
+    from .report.json import to_json
+
+    items_dir = Path(out) / ITEMS_DIR
+    try:
+        items_dir.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise UsageError(f"{out}: cannot create the output folder ({exc.strerror})") from None
+    items = collect_items(args, options, patterns)
+    by_name = {it.name: it for it in items}
+    rows: dict[str, dict] = {}
+    run = BatchRun(rows=[])
+    basis = options.spec.describe()
+    total = len(items)
+
+    def done(it: Item, row: dict, report: str) -> None:
+        target = items_dir / f"{it.name}.json"
+        if not _same_text(target, report):  # a rename costs more than a read on some file systems
+            atomic_write(target, report)
+        rows[it.name] = row
+        if progress:
+            progress(len(rows), total)
+
+    def fail(it: Item, message: str) -> None:
+        message = _with_path(message, it.path)
+        run.errors += 1
+        report = json.dumps({"schema": "auditor-item-error/1", "path": it.path, "frame": it.frame,
+                             "error": message}, indent=2) + "\n"
+        done(it, error_row(it.path, it.frame, it.name, basis, message), report)
+
+    def finish(it: Item, text: str, result: dict) -> None:
+        own = {"path": it.path, "frame": it.frame, "n_frames": it.n_frames}
+        if any(result["input"].get(k) != v for k, v in own.items()):  # a hit filled from another file
+            result["input"].update(own)
+            text = to_json(_Stored(result))
+        done(it, result_row(it.path, it.frame, it.name, result), text)
+
+    def on_done(name: str, reply: dict, seconds: float) -> None:
+        it = by_name[name]
+        run.seconds[name] = reply.get("seconds", seconds)
+        if "report" in reply:
+            run.computed += 1
+            if cache is not None:
+                cache.put(it.key, reply["report"])
+            finish(it, reply["report"], json.loads(reply["report"]))
+        else:
+            fail(it, reply.get("error", "no result"))
+
+    context = run_context(options) if any(it.molecule is not None for it in items) else {}
+    todo = []
+    for it in items:
+        if it.error:
+            fail(it, it.error)
+            continue
+        it.key = item_key(it, context)
+        hit = cache.get(it.key) if cache is not None else None
+        if hit is not None:
+            run.cached += 1
+            finish(it, hit["text"], hit["data"])
+        else:
+            todo.append(it)
+    if todo:
+        check_basis_names(options.spec, {s for it in todo for s in it.molecule.symbols})
+    engine.run([(it.name, item_payload(it, options)) for it in todo], on_done)
+    for stale in items_dir.iterdir():  # reports of items no longer in the set, temporary files of killed runs
+        if stale.is_file() and (stale.name.startswith(".") or (stale.suffix == ".json" and stale.stem not in by_name)):
+            stale.unlink(missing_ok=True)
+    run.rows = [rows[it.name] for it in items]
+    return run
+
+
+# ---------------------------------------------------------------- the gate
+
+@dataclass
+class GateOutcome:
+    run: BatchRun
+    improvements: list
+    exit_code: int
+    written: list
+
+
+def run_gate(args: list[str], options: GateOptions, out: Path, engine, cache: ResultCache | None,
+             gate_policy=None, baseline: dict | None = None, drop_decades: float | None = None,
+             patterns=GEOMETRY_PATTERNS, progress=None) -> GateOutcome:
+    """Audit the set, judge every item against the policy (and baseline), write
+    summary.csv, summary.parquet, junit.xml and run.json under ``out``."""
+    from .errors import EXIT_FAIL, EXIT_OK
+    from .gate_policy import BLOCKING, GatePolicy, improvements, judge
+    from .report.junit import write_junit
+    from .report.summary import write_summary
+
+    t0 = time.monotonic()
+    run = run_batch(args, options, out, engine, cache, patterns, progress)
+    judge(run.rows, gate_policy or GatePolicy(), baseline, drop_decades)
+    written = [*write_summary(run.rows, out), write_junit(run.rows, Path(out) / "junit.xml", run.seconds)]
+    code = EXIT_FAIL if any(r["outcome"] in BLOCKING for r in run.rows) else EXIT_OK
+    outcomes: dict[str, int] = {}
+    for r in run.rows:
+        outcomes[r["outcome"]] = outcomes.get(r["outcome"], 0) + 1
+    stats = {
+        "items": len(run.rows), "computed": run.computed, "cached": run.cached, "errors": run.errors,
+        "outcomes": outcomes, "exit_code": code, "seconds": round(time.monotonic() - t0, 3),
+        "basis": options.spec.describe(), "policy": options.policy.as_dict(),
+        "cache": str(cache.root) if cache is not None else None,
+        "cache_write_errors": cache.failed_writes if cache is not None else 0, "version": __version__,
+    }
+    written.append(Path(out) / "run.json")
+    atomic_write(written[-1], json.dumps(stats, indent=2) + "\n")
+    return GateOutcome(run, improvements(run.rows), code, written)

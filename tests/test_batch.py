@@ -1,0 +1,180 @@
+"""Batch gate internals: collecting items, the cache, the local engine's crash and timeout
+handling, the policy file and the baseline comparison."""
+import json
+import math
+import os
+import time
+
+import pytest
+from conftest import WATER, write_xyz
+
+from auditor.api import make_spec
+from auditor.batch import GateOptions, LocalEngine, collect_items, run_batch, run_item
+from auditor.cache import ResultCache, content_key, default_cache_dir
+from auditor.errors import UsageError
+from auditor.gate_policy import Allowance, GatePolicy, judge, load_gate_policy
+from auditor.policy import Policy
+
+OPTIONS = GateOptions(make_spec("sto-3g"), Policy())
+H2 = (["H", "H"], [[0, 0, 0], [0, 0, 0.74]])
+
+
+def flaky_task(payload: str) -> str:
+    """Worker task for the engine tests: dies or hangs on marked files, audits the rest."""
+    source = json.loads(payload)["source"]
+    if "crash" in source:
+        os._exit(3)
+    if "hang" in source:
+        time.sleep(120)
+    return run_item(payload)
+
+
+@pytest.fixture
+def tree(tmp_path, monkeypatch):
+    monkeypatch.chdir(tmp_path)
+    (tmp_path / "set" / "sub").mkdir(parents=True)
+    write_xyz(tmp_path / "set" / "water.xyz", *WATER)
+    write_xyz(tmp_path / "set" / "sub" / "water.xyz", *WATER)
+    scan = "".join(f"2\nframe {k}\nH 0 0 0\nH 0 0 {0.6 + 0.1 * k}\n" for k in range(3))
+    (tmp_path / "set" / "sub" / "scan.xyz").write_text(scan)
+    (tmp_path / "set" / "notes.md").write_text("not a geometry\n")
+    return tmp_path
+
+
+def test_collect_folders_globs_lists_and_frames(tree):
+    (tree / "list.txt").write_text("# the set\nset/water.xyz\n\nset/sub/*.xyz\n")
+    items = collect_items(["@list.txt", "set", "missing.xyz", "nothing*.xyz"], OPTIONS)
+    got = [(it.path, it.frame, it.name) for it in items]
+    assert ("set/water.xyz", 1, "set__water") in got
+    assert ("set/sub/water.xyz", 1, "set__sub__water") in got
+    assert [g for g in got if g[0] == "set/sub/scan.xyz"] == [
+        ("set/sub/scan.xyz", k, f"set__sub__scan_f{k:03d}") for k in (1, 2, 3)]
+    # the list, the folder and the glob name the same files: each is one item only
+    assert len([g for g in got if g[0] == "set/water.xyz"]) == 1
+    errors = {it.path: it.error for it in items if it.error}
+    assert set(errors) == {"missing.xyz", "nothing*.xyz"}
+    assert "no such file" in errors["missing.xyz"] and "matches no file" in errors["nothing*.xyz"]
+    assert len({it.name for it in items}) == len(items)
+
+
+def test_item_names_stay_unique(tree):
+    write_xyz(tree / "set" / "water.extxyz", *WATER)  # same stem as set/water.xyz
+    items = collect_items(["set/water.xyz", "set/water.extxyz"], OPTIONS)
+    assert sorted(it.name for it in items) == ["set__water", "set__water-2"]
+
+
+def test_cache_round_trip_and_corrupt_entries(tmp_path):
+    cache = ResultCache(tmp_path)
+    key = content_key({"a": [1.0, 2.5e-300], "b": "x"})
+    assert key == content_key({"b": "x", "a": [1.0, 2.5e-300]})
+    assert cache.get(key) is None
+    cache.put(key, '{\n  "verdict": "pass"\n}\n')
+    assert cache.get(key) == {"text": '{\n  "verdict": "pass"\n}\n', "data": {"verdict": "pass"}}
+    path = cache.path_for(key)
+    path.write_text('{"format": "auditor-cache/1", "key": "')  # truncated
+    assert cache.get(key) is None
+    path.write_text(json.dumps({"format": "auditor-cache/1", "key": "other", "report": "{}"}))
+    assert cache.get(key) is None
+    path.write_text(json.dumps({"format": "auditor-cache/1", "key": key, "report": "[1, 2"}))
+    assert cache.get(key) is None
+
+
+def test_unwritable_cache_counts_failures_instead_of_raising(tmp_path):
+    (tmp_path / "plain_file").write_text("")
+    cache = ResultCache(tmp_path / "plain_file" / "cache")
+    cache.put(content_key({"a": 1}), "{}")
+    assert cache.failed_writes == 1 and cache.get(content_key({"a": 1})) is None
+
+
+def test_default_cache_dir_follows_xdg(monkeypatch, tmp_path):
+    monkeypatch.setenv("XDG_CACHE_HOME", str(tmp_path))
+    assert default_cache_dir() == tmp_path / "auditor"
+    monkeypatch.setenv("XDG_CACHE_HOME", "relative/path")  # the convention ignores relative paths
+    assert str(default_cache_dir()) == os.path.expanduser("~/.cache/auditor")
+
+
+def test_key_ignores_file_name_but_not_geometry_or_options(tree):
+    cache = ResultCache(tree / "cache")
+    write_xyz(tree / "moved.xyz", [s for s in WATER[0]], [[x + 1e-6 for x in r] for r in WATER[1]])
+    run = run_batch(["set/water.xyz", "set/sub/water.xyz", "moved.xyz"], OPTIONS, tree / "out",
+                    LocalEngine(1), cache)
+    # two files with the same geometry share one entry; a moved atom is a new entry
+    assert run.computed + run.cached == 3
+    assert len(list((tree / "cache").rglob("*.json"))) == 2
+    strict = GateOptions(OPTIONS.spec, Policy(caution=1e-4, fail=1e-6))
+    again = run_batch(["set/water.xyz"], strict, tree / "out2", LocalEngine(1), cache)
+    assert again.cached == 0 and again.computed == 1
+    # a hit reports the path of the item it serves, not of the file that filled the cache
+    report = json.loads((tree / "out" / "items" / "set__sub__water.json").read_text())
+    assert report["input"]["path"] == "set/sub/water.xyz"
+
+
+def test_worker_crash_and_timeout_mark_only_their_item(tree):
+    write_xyz(tree / "set" / "crash.xyz", *H2)
+    write_xyz(tree / "set" / "hang.xyz", *H2)
+    engine = LocalEngine(jobs=2, timeout=3, task=flaky_task)
+    run = run_batch(["set"], OPTIONS, tree / "out", engine)
+    rows = {r["item"]: r for r in run.rows}
+    assert rows["set__crash"]["verdict"] == "error" and "died" in rows["set__crash"]["error"]
+    assert rows["set__hang"]["verdict"] == "error" and "timeout" in rows["set__hang"]["error"]
+    assert "set/crash.xyz" in rows["set__crash"]["error"]
+    good = [r for k, r in rows.items() if k not in ("set__crash", "set__hang")]
+    assert len(good) == 5 and all(r["verdict"] == "pass" for r in good)
+
+
+def test_policy_file_levels_overrides_and_allowances(tmp_path):
+    f = tmp_path / "policy.toml"
+    f.write_text('caution = 1e-4\nfail = 1e-6\n[basis."AUG-cc-pVDZ"]\nfail = 1e-9\ncaution = 1e-7\n'
+                 '[[allow]]\npath = "legacy/*.xyz"\nreason = "kept for history"\n'
+                 '[[allow]]\npath = "scan.xyz"\nframe = 2\nreason = "the short contact is the point"\n')
+    gp = load_gate_policy(f)
+    assert gp.levels_for("cc-pvdz") == Policy(1e-4, 1e-6)
+    assert gp.levels_for("aug-cc-pvdz") == Policy(1e-7, 1e-9)
+    assert gp.levels_for("aug-cc-pvdz", fail=1e-8) == Policy(1e-7, 1e-8)
+    assert gp.allowance("legacy/a.xyz", 1).reason == "kept for history"
+    assert gp.allowance("scan.xyz", 2) is not None and gp.allowance("scan.xyz", 1) is None
+
+
+@pytest.mark.parametrize("text, words", [
+    ("caution = \n", "not valid TOML"),
+    ("cuation = 1e-5\n", "unknown key"),
+    ("caution = 1e-8\nfail = 1e-5\n", "must not exceed"),
+    ("[[allow]]\npath = \"a.xyz\"\n", "needs a reason"),
+    ("[basis.x]\nfail = \"low\"\n", "must be a number"),
+])
+def test_bad_policy_files_are_usage_errors(tmp_path, text, words):
+    f = tmp_path / "p.toml"
+    f.write_text(text)
+    with pytest.raises(UsageError) as exc:
+        load_gate_policy(f)
+    assert words in exc.value.message and str(f) in exc.value.message
+
+
+def _row(path, verdict, lam, frame=1):
+    return {"path": path, "frame": frame, "verdict": verdict, "smallest_eigenvalue": lam}
+
+
+def test_judge_with_and_without_baseline():
+    gp = GatePolicy()
+    rows = [_row("a", "pass", 1e-3), _row("b", "fail", 1e-9), _row("c", "error", math.nan, None)]
+    judge(rows, gp)
+    assert [r["outcome"] for r in rows] == ["ok", "blocked", "blocked"]
+    baseline = {("a", 1): _row("a", "pass", 1e-1), ("b", 1): _row("b", "fail", 2e-9),
+                ("d", 1): _row("d", "fail", 1e-9), ("e", 1): _row("e", "pass", 1e-5)}
+    rows = [_row("a", "pass", 1e-3), _row("b", "fail", 1e-9), _row("d", "pass", 1e-4),
+            _row("e", "pass", 1e-3), _row("f", "caution", 1e-6), _row("g", "fail", 1e-8)]
+    judge(rows, gp, baseline, drop_decades=1.0)
+    got = {r["path"]: (r["outcome"], r["change"]) for r in rows}
+    assert got["a"] == ("regressed", "dropped 2.0 decades")
+    assert got["b"] == ("known", "")
+    assert got["d"] == ("ok", "fixed")
+    assert got["e"] == ("ok", "improved 2.0 decades")
+    assert got["f"] == ("ok", "new item")
+    assert got["g"] == ("regressed", "new failure")
+    rows = [_row("a", "pass", 1e-3)]
+    judge(rows, gp, baseline, drop_decades=2.5)
+    assert rows[0]["outcome"] == "ok"
+    allow = GatePolicy(allowed=(Allowance("g*", None, "legacy set"),))
+    rows = [_row("g", "fail", 1e-8), _row("b", "fail", 1e-9)]
+    judge(rows, allow)
+    assert [(r["outcome"], r["note"]) for r in rows] == [("allowed", "legacy set"), ("blocked", "")]
