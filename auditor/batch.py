@@ -563,9 +563,10 @@ class GateOutcome:
 
 def run_gate(args: list[str], options: GateOptions, out: Path, engine, cache: ResultCache | None,
              gate_policy=None, baseline: dict | None = None, drop_decades: float | None = None,
-             patterns=GEOMETRY_PATTERNS, progress=None) -> GateOutcome:
+             patterns=GEOMETRY_PATTERNS, progress=None, html: bool = False) -> GateOutcome:
     """Audit the set, judge every item against the policy (and baseline), write
-    summary.csv, summary.parquet, junit.xml and run.json under ``out``."""
+    summary.csv, summary.parquet, junit.xml and run.json under ``out``; with ``html``
+    also items/<item>.html and the set overview index.html."""
     from .errors import EXIT_FAIL, EXIT_OK
     from .gate_policy import BLOCKING, GatePolicy, improvements, judge
     from .report.junit import write_junit
@@ -575,6 +576,12 @@ def run_gate(args: list[str], options: GateOptions, out: Path, engine, cache: Re
     run = run_batch(args, options, out, engine, cache, patterns, progress)
     judge(run.rows, gate_policy or GatePolicy(), baseline, drop_decades)
     written = [*write_summary(run.rows, out), write_junit(run.rows, Path(out) / "junit.xml", run.seconds)]
+    if html:
+        from .report.set_index import link_reports, write_item_pages, write_set_index
+
+        written += write_item_pages(out, run.rows)
+        written.append(write_set_index(out, link_reports(out, run.rows),
+                                       title=f"Gate: {options.spec.describe()}", policy=options.policy.as_dict()))
     code = EXIT_FAIL if any(r["outcome"] in BLOCKING for r in run.rows) else EXIT_OK
     outcomes: dict[str, int] = {}
     for r in run.rows:

@@ -361,3 +361,32 @@ def test_set_index_table_sorts_in_chromium(tmp_path, broken, clean):
     values = [float(x) for x in column if x]
     assert values == sorted(values) and len(values) == 3
     assert column[-1] == ""          # the unreadable item goes last
+
+
+def test_gate_format_html_writes_index_and_item_pages(tmp_path):
+    from typer.testing import CliRunner
+
+    from auditor.cli import app
+    from conftest import write_xyz
+
+    sets = tmp_path / "set"
+    sets.mkdir()
+    symbols, coords = WATER
+    write_xyz(sets / "good.xyz", symbols, coords)
+    write_xyz(sets / "pasted.xyz", symbols + ["H"], coords + [coords[1]])
+    (sets / "broken.xyz").write_text("2\nc\nO 0 0 0\n")
+    out = tmp_path / "gate"
+    res = CliRunner().invoke(app, ["gate", str(sets), "-b", "sto-3g", "-o", str(out), "--format", "html",
+                                   "--no-cache", "--jobs", "1"])
+    assert res.exit_code == 1, res.output
+    index = parse((out / "index.html").read_text())
+    linked = sorted({h for h in index.links if h.startswith("items/")})
+    # audited items link to their pages, the unreadable one to its JSON error report
+    assert [h.rsplit("__", 1)[1] for h in linked] == ["broken.json", "good.html", "pasted.html"]
+    for h in linked[1:]:
+        page = parse((out / h).read_text())
+        assert page.images and all(decode_png(src).size for src in page.images)
+    # the JSON-only format writes no HTML
+    out2 = tmp_path / "gate2"
+    CliRunner().invoke(app, ["gate", str(sets), "-b", "sto-3g", "-o", str(out2), "--no-cache", "--jobs", "1"])
+    assert not list(out2.rglob("*.html"))
