@@ -44,9 +44,16 @@ def make_spec(basis: str | BasisSpec | None, basis_for=None, cartesian: bool = F
     return BasisSpec(default=basis, per_element=over, cartesian=cartesian)
 
 
-def prepare(mol: Molecule, spec: BasisSpec) -> Prepared:
-    """Build the pyscf Mole, the function table and S for one molecule."""
+def prepare(mol: Molecule, spec: BasisSpec, spectrum_method: str = "large") -> Prepared:
+    """Build the pyscf Mole, the function table and S for one molecule.
+
+    The memory guard runs before S is built: ResourceError when S plus the spectrum
+    step of ``spectrum_method`` cannot fit ("large" checks only what any audit needs).
+    """
+    from .large import check_memory
+
     pm = build_mole(mol, spec)
+    check_memory(pm.nao, spectrum_method)
     table = function_table(pm, mol, spec)
     return Prepared(mol, spec, pm, table, normalized_overlap(pm))
 
@@ -76,8 +83,12 @@ def _from_mole(pm) -> tuple[Molecule, BasisSpec]:
     return mol, spec
 
 
-def audit_prepared(prep: Prepared, policy: Policy | None = None, spectrum_method: str = "full") -> AuditResult:
-    """Run the whole audit on a prepared geometry + basis."""
+def audit_prepared(prep: Prepared, policy: Policy | None = None, spectrum_method: str = "full",
+                   remedies=True) -> AuditResult:
+    """Run the whole audit on a prepared geometry + basis.
+
+    ``remedies``: True (default options), a ``prune.RemedyOptions``, or False to skip them.
+    """
     policy = policy or Policy()
     mol, table, S = prep.molecule, prep.table, prep.S
     spec = compute_spectrum(S, vector_level=policy.caution, method=spectrum_method)
@@ -90,6 +101,12 @@ def audit_prepared(prep: Prepared, policy: Policy | None = None, spectrum_method
     if spec.smallest < policy.caution:
         findings.insert(0, _near_singular(spec, policy, causes))
     findings.sort(key=lambda f: SEVERITY_ORDER[f.severity])  # stable: keeps order within a severity
+    remedy_part = None
+    if remedies is not False:
+        from .prune import RemedyOptions, remedies_for
+
+        options = remedies if isinstance(remedies, RemedyOptions) else RemedyOptions()
+        remedy_part = remedies_for(prep, recommendation, spec.smallest, options, policy.caution)
     return AuditResult(
         version=__version__,
         input=_input_info(prep),
@@ -100,6 +117,7 @@ def audit_prepared(prep: Prepared, policy: Policy | None = None, spectrum_method
         findings=tuple(findings),
         causes=causes,
         recommendation=recommendation,
+        remedies=remedy_part,
     )
 
 
@@ -181,6 +199,7 @@ def audit(
     frame: int = 1,
     policy: Policy | None = None,
     spectrum_method: str = "full",
+    remedies=True,
 ) -> AuditResult:
     """Audit one geometry in one basis and return the result object.
 
@@ -188,14 +207,15 @@ def audit(
     1-based), an ASE Atoms, a pyscf Mole (its own basis is used when ``basis`` is
     None), or a Molecule. ``basis`` is a name pyscf knows or a basis file;
     ``basis_for`` overrides it per element ({'H': 'cc-pvtz'} or ['H=cc-pvtz']);
-    ``ghost`` marks atoms (1-based) as ghost atoms.
+    ``ghost`` marks atoms (1-based) as ghost atoms; ``remedies`` is True, False or a
+    ``auditor.prune.RemedyOptions`` (target, opt-in trial SCF).
     """
     if hasattr(source, "intor") and hasattr(source, "nao_nr"):
         mol, mole_spec = _from_mole(source)
         if basis is None:
             table = function_table(source, mol, mole_spec)
             return audit_prepared(Prepared(mol, mole_spec, source, table, normalized_overlap(source)),
-                                  policy, spectrum_method)
+                                  policy, spectrum_method, remedies)
     elif isinstance(source, Molecule):
         mol = source
     elif hasattr(source, "get_positions") and hasattr(source, "get_chemical_symbols"):
@@ -209,4 +229,4 @@ def audit(
     if numbers:
         mol = mol.with_ghosts(numbers)
     spec = make_spec(basis, basis_for, cartesian)
-    return audit_prepared(prepare(mol, spec), policy, spectrum_method)
+    return audit_prepared(prepare(mol, spec, spectrum_method), policy, spectrum_method, remedies)

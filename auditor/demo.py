@@ -38,8 +38,10 @@ def load_manifest(folder: Path) -> list[dict]:
 
 def run_demo(folder: Path, out: Path) -> tuple[RunOutcome, Path]:
     """Audit every example of the manifest; write reports and an index to ``out``."""
+    from .report.set_index import item_from_result, write_set_index
+
     total = RunOutcome()
-    rows = []
+    rows, items = [], []
     policy = Policy()
     for ex in load_manifest(folder):
         spec = make_spec(ex["basis"], ex.get("basis_for"), bool(ex.get("cartesian", False)))
@@ -53,17 +55,24 @@ def run_demo(folder: Path, out: Path) -> tuple[RunOutcome, Path]:
             kinds = sorted({f.kind for f in r.findings if f.severity != "info"})
             rows.append(f"| [{stem}]({stem}.md) | {r.input.basis} | {r.input.n_functions} | "
                         f"**{r.verdict}** | {r.spectrum.smallest:.2e} | {', '.join(kinds) or '-'} | {ex.get('note', '')} |")
+            items.append({**item_from_result(r, f"{stem}.html"), "path": Path(r.input.path).name})
         for p, msg, _ in o.errors:
             rows.append(f"| {Path(p).name} | {ex['basis']} | | unreadable | | {msg} | {ex.get('note', '')} |")
+            items.append({"path": Path(p).name, "frame": None, "verdict": "error", "smallest_eigenvalue": None,
+                          "n_functions": None, "basis": ex["basis"], "report": "", "error": msg})
     index = out / "index.md"
     atomic_write(index, "\n".join([
         "# Sample reports",
         "",
-        "Written by `auditor demo` from `example_geometries/` (a scenario of our own, not real data).",
+        "Written by `auditor demo` from `example_geometries/` (a scenario of our own, not real data). "
+        "The same reports as self-contained HTML pages: [index.html](index.html).",
         "",
         "| report | basis | functions | verdict | smallest eigenvalue | findings | scenario |",
         "|---|---|---|---|---|---|---|",
         *rows,
         "",
     ]))
+    total.written.append(write_set_index(
+        out, items, title="Sample reports", policy=policy.as_dict(),
+        note="Written by auditor demo from example_geometries/ (a scenario of our own, not real data)."))
     return total, index

@@ -15,7 +15,7 @@ from .report import report_stem
 from .report.json import write_json
 from .report.markdown import write_markdown
 
-FORMATS = ("json", "md", "all")
+FORMATS = ("json", "md", "html", "all")
 
 
 @dataclass
@@ -34,10 +34,23 @@ class RunOutcome:
 def write_reports(result, out: Path, formats: str, stem: str) -> list[Path]:
     """Write the requested formats of ``result`` under ``out`` with file stem ``stem``."""
     written = []
+    images = None
+    if formats in ("md", "html", "all"):
+        from .report.plots import report_plots
+
+        images = report_plots(result)
     if formats in ("json", "all"):
         written.append(write_json(result, out / f"{stem}.json"))
     if formats in ("md", "all"):
-        written.append(write_markdown(result, out / f"{stem}.md"))
+        from .report.plots import markdown_figures, write_figures
+
+        pngs = write_figures(images, out, stem)
+        written += pngs
+        written.append(write_markdown(result, out / f"{stem}.md", markdown_figures(pngs, stem)))
+    if formats in ("html", "all"):
+        from .report.html import write_html
+
+        written.append(write_html(result, out / f"{stem}.html", images))
     return written
 
 
@@ -51,6 +64,7 @@ def audit_paths(
     ghost: str | None = None,
     spectrum_method: str = "full",
     on_result=None,
+    remedies=True,
 ) -> RunOutcome:
     """Audit every frame of every file; collect errors per file instead of stopping."""
     outcome = RunOutcome()
@@ -59,7 +73,7 @@ def audit_paths(
         try:
             frames = load_molecules(path, unit=unit, ghost=ghost)
             for mol in frames:
-                result = audit_prepared(prepare(mol, spec), policy, spectrum_method)
+                result = audit_prepared(prepare(mol, spec), policy, spectrum_method, remedies)
                 outcome.results.append(result)
                 if out is not None:
                     stem = report_stem(str(path), mol.frame + 1, mol.n_frames)

@@ -41,3 +41,26 @@ def print_summary(results, errors=(), console: Console | None = None) -> None:
         serious = [f for f in r.findings if f.severity == "error"]
         for f in serious[:3]:
             console.print(f"  [red]{Path(r.input.path).name}[/]: {f.message}", highlight=False)
+
+
+def print_remedies(results, console: Console | None = None, always: bool = False, top: int = 4) -> None:
+    """The best few ranked remedies of each result that needs one (or of all, ``always``)."""
+    console = console or Console(highlight=False)
+    for r in results:
+        rem = r.remedies
+        if not rem or not rem["alternatives"] or not (rem["needed"] or always):
+            continue
+        console.print(f"  {Path(r.input.path).name}: remedies for a smallest eigenvalue of {rem['target']:.0e}",
+                      highlight=False, markup=False)
+        for a in rem["alternatives"][:top]:
+            removed = "?" if a["removed"] is None else f"{a['removed']} {a['unit']}"
+            after = "?" if a["smallest_after"] is None else f"{a['smallest_after']:.2e}"
+            mark = "" if a["reaches_target"] else " (misses the target)"
+            console.print(f"    {a['rank']}. {a['title']}: removes {removed}, smallest eigenvalue {after}{mark}",
+                          highlight=False, markup=False)
+        tri = rem.get("trial_scf")
+        if tri and tri.get("skipped"):
+            console.print(f"    {tri['skipped']}", highlight=False, markup=False)
+        elif tri and tri.get("difference_microhartree") is not None:
+            console.print(f"    trial SCF ({tri['method']}): pruned minus canonical orthogonalization "
+                          f"{tri['difference_microhartree']:+.1f} microhartree", highlight=False, markup=False)
