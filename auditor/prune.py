@@ -288,14 +288,20 @@ class RemedyPlan:
         return out
 
 
-def _best_shell_selection(S, table, target, functions, atoms, mode, problems) -> Selection | None:
+def _best_shell_selection(S, table, target, functions, atoms, mode, problems,
+                          shell_pivoting: bool = True) -> Selection | None:
     """The whole-shell kept set that drops fewer functions: shell pivoting, or the shells the
-    function-level subset leaves untouched (both followed by the add-back pass)."""
+    function-level subset leaves untouched (both followed by the add-back pass).
+
+    Without ``shell_pivoting`` only the cheap function-seeded set is tried (shell pivoting
+    then runs only when that fails): its per-shell Python loop costs several
+    eigendecompositions of S on a thousand functions."""
     found, why = [], None
-    try:
-        found.append(select_for_target(S, target, table.func_shell, atoms, verify=mode))
-    except UsageError as exc:
-        why = exc.message
+    if shell_pivoting or functions is None:
+        try:
+            found.append(select_for_target(S, target, table.func_shell, atoms, verify=mode))
+        except UsageError as exc:
+            why = exc.message
     if functions is not None:
         seeded = shells_from_functions(S, functions, table.func_shell, verify=mode)
         if seeded is not None:
@@ -304,6 +310,8 @@ def _best_shell_selection(S, table, target, functions, atoms, mode, problems) ->
                 found.append(seeded)
             except UsageError as exc:
                 why = why or exc.message
+    if not found and not shell_pivoting and functions is not None:
+        return _best_shell_selection(S, table, target, None, atoms, mode, problems)
     if not found:
         problems.append(f"shell-pruned basis: {why or 'no whole-shell set reaches the target'}")
         return None
@@ -316,7 +324,8 @@ def _alt(kind, title, removed, unit, smallest, target, how, **extra) -> dict:
             "how": how, **extra}
 
 
-def plan_remedies(prep, recommendation, smallest: float, target: float, force: bool = False) -> RemedyPlan:
+def plan_remedies(prep, recommendation, smallest: float, target: float, force: bool = False,
+                  shell_pivoting: bool = True) -> RemedyPlan:
     """Work out every remedy for a prepared geometry and rank them.
 
     ``smallest`` is the full basis's smallest eigenvalue; when it already meets the
@@ -354,7 +363,8 @@ def plan_remedies(prep, recommendation, smallest: float, target: float, force: b
             tolerance=f.tolerance))
     except UsageError as exc:
         plan.problems.append(f"pivoted-Cholesky subset: {exc.message}")
-    plan.shells = _best_shell_selection(S, table, target, plan.functions, atoms, mode, plan.problems)
+    plan.shells = _best_shell_selection(S, table, target, plan.functions, atoms, mode, plan.problems,
+                                        shell_pivoting)
     if plan.shells is not None:
         s = plan.shells
         try:
@@ -393,19 +403,22 @@ def plan_remedies(prep, recommendation, smallest: float, target: float, force: b
 class RemedyOptions:
     """How remedies are worked out: ``target`` smallest eigenvalue (None: the policy's
     caution level), an opt-in trial SCF (``trial_scf`` "hf" or a functional name) with
-    its size and time limits, and ``force`` to compute even when nothing needs removing."""
+    its size and time limits, ``force`` to compute even when nothing needs removing, and
+    ``shell_pivoting`` for the thorough (slower) whole-shell search that `prune` uses."""
 
     target: float | None = None
     trial_scf: str | None = None
     trial_max_functions: int = 400
     trial_time_limit: float = 120.0
     force: bool = False
+    shell_pivoting: bool = False
 
 
 def make_plan(prep, recommendation, smallest: float, options: RemedyOptions, caution: float) -> RemedyPlan:
     """`plan_remedies` plus the opt-in trial SCF."""
     target = caution if options.target is None else options.target
-    plan = plan_remedies(prep, recommendation, smallest, target, force=options.force)
+    plan = plan_remedies(prep, recommendation, smallest, target, force=options.force,
+                         shell_pivoting=options.shell_pivoting)
     if options.trial_scf:
         from .trial_scf import check_method, trial_scf
 
@@ -437,7 +450,7 @@ def prune_prepared(prep, policy=None, options: RemedyOptions | None = None):
     from .policy import Policy
 
     policy = policy or Policy()
-    options = replace(options or RemedyOptions(), force=True)
+    options = replace(options or RemedyOptions(), force=True, shell_pivoting=True)
     check_target(policy.caution if options.target is None else options.target)
     result = audit_prepared(prep, policy, remedies=False)
     plan = make_plan(prep, result.recommendation, result.spectrum.smallest, options, policy.caution)
