@@ -100,9 +100,15 @@ def compute_spectrum(
 ) -> Spectrum:
     """Spectrum of the unit-diagonal overlap matrix ``S``.
 
-    ``method`` is "full" (dense eigendecomposition). A large-system path plugs in
-    here; callers never choose the algorithm themselves.
+    ``method``: "full" (dense eigendecomposition), "large" (factorizations and
+    subspace iteration, ``auditor.large``; S is used as workspace and restored), or
+    "auto" (large from ``auditor.large.CROSSOVER_N`` functions on, or when the full
+    path would not fit in memory).
     """
-    if method == "full":
-        return full_spectrum(S, vector_level, min_vectors)
-    raise ValueError(f"unknown spectrum method {method!r}")
+    from .large import check_memory, large_spectrum, resolve_method
+
+    method = resolve_method(S.shape[0], method, s_built=True)
+    check_memory(S.shape[0], method, s_built=True)  # ResourceError instead of being killed
+    if method == "large":
+        return large_spectrum(S, vector_level, min_vectors)
+    return full_spectrum(S, vector_level, min_vectors)
