@@ -78,9 +78,33 @@ def _known_names() -> tuple[str, ...]:
     return tuple(sorted(pbasis.ALIAS))
 
 
+@lru_cache(maxsize=None)
+def _exchange_names() -> frozenset:
+    """Basis names of basis_set_exchange, which pyscf consults for names it does not hold."""
+    try:
+        import basis_set_exchange as bse
+    except ImportError:
+        return frozenset()
+    return frozenset(n.lower() for n in bse.get_all_basis_names())
+
+
+def _in_exchange(name: str) -> bool:
+    return name.strip().lower() in _exchange_names()
+
+
+@lru_cache(maxsize=None)
+def _display_names() -> dict[str, str]:
+    """pyscf's canonical name -> a name as people write it (basis_set_exchange's, if any)."""
+    shown = {k: k for k in _known_names()}
+    for n in sorted(_exchange_names()):
+        shown[_canon(n)] = n
+    return shown
+
+
 def _suggest(name: str) -> str:
-    close = difflib.get_close_matches(_canon(name), _known_names(), n=3, cutoff=0.6)
-    return f"; close names: {', '.join(close)}" if close else ""
+    shown = _display_names()
+    close = difflib.get_close_matches(_canon(name), list(shown), n=3, cutoff=0.6)
+    return f"; close names: {', '.join(shown[c] for c in close)}" if close else ""
 
 
 @lru_cache(maxsize=None)
@@ -98,7 +122,7 @@ def load_shells(name: str, element: str) -> tuple:
     except Exception as exc:  # pyscf raises BasisNotFoundError, KeyError, RuntimeError, ...
         if is_file:
             raise InputError(f"basis file {name}: no usable basis for {element} ({exc.__class__.__name__})") from None
-        if _canon(name) not in pbasis.ALIAS and not pbasis._is_pople_basis(name):
+        if _canon(name) not in pbasis.ALIAS and not pbasis._is_pople_basis(name) and not _in_exchange(name):
             raise InputError(f"unknown basis name {name!r}{_suggest(name)}") from None
         raise InputError(f"basis {name!r} has no functions for element {element}") from None
     if not shells:

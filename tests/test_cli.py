@@ -120,7 +120,7 @@ def test_line_number_in_error(tmp_path):
 
 def test_basis_errors(tmp_path, water_xyz):
     res = run("check", water_xyz, "-b", "aug-cc-pvtx", "-o", tmp_path / "o")
-    assert res.exit_code == 3 and "unknown basis name" in res.output and "augccpvtz" in res.output
+    assert res.exit_code == 3 and "unknown basis name" in res.output and "aug-cc-pvtz" in res.output
     u = write_xyz(tmp_path / "u.xyz", ["U", "O"], [[0, 0, 0], [0, 0, 1.8]])
     res = run("check", u, "-b", "cc-pvdz", "-o", tmp_path / "o")
     assert res.exit_code == 3 and "no functions for element U" in res.output
