@@ -83,7 +83,7 @@ def _from_mole(pm) -> tuple[Molecule, BasisSpec]:
     return mol, spec
 
 
-def audit_prepared(prep: Prepared, policy: Policy | None = None, spectrum_method: str = "full",
+def audit_prepared(prep: Prepared, policy: Policy | None = None, spectrum_method: str = "auto",
                    remedies=True) -> AuditResult:
     """Run the whole audit on a prepared geometry + basis.
 
@@ -198,7 +198,7 @@ def audit(
     ghost: str | list[int] | None = None,
     frame: int = 1,
     policy: Policy | None = None,
-    spectrum_method: str = "full",
+    spectrum_method: str = "auto",
     remedies=True,
 ) -> AuditResult:
     """Audit one geometry in one basis and return the result object.

@@ -43,7 +43,7 @@ class GateOptions:
     policy: Policy
     unit: str = "angstrom"
     ghost: str | None = None
-    spectrum_method: str = "full"
+    spectrum_method: str = "auto"
 
 
 @dataclass

@@ -37,6 +37,8 @@ def check(
     fmt: str = typer.Option("all", "--format", "-f", help="json, md (with PNG figures beside it), html (self-contained page) or all."),
     caution: float = typer.Option(1e-5, "--caution", help="Smallest eigenvalue below which the verdict is caution."),
     fail: float = typer.Option(1e-7, "--fail", help="Smallest eigenvalue below which the verdict is fail."),
+    spectrum: str = typer.Option("auto", "--spectrum", help="Eigen step: full (dense), large (factorizations and "
+                                                          "Lanczos, no second copy of S) or auto (large from about 3000 functions)."),
     target: Optional[float] = typer.Option(None, "--target", help="Smallest eigenvalue the remedies aim for (default: the caution level)."),
     trial_scf: Optional[str] = typer.Option(None, "--trial-scf", help="Opt-in trial SCF of the remedies: hf or a functional name pyscf knows."),
     trial_max_functions: int = typer.Option(400, "--trial-max-functions", help="Skip the trial SCF above this many basis functions."),
@@ -64,9 +66,11 @@ def check(
             from .geometry import parse_atom_numbers
             parse_atom_numbers(ghost)
         remedies = _remedy_options(target, trial_scf, trial_max_functions, trial_seconds)
+        _check_spectrum_method(spectrum)
     except AuditorError as exc:
         _fail(exc.message, exc.exit_code)
-    outcome = audit_paths(geometry, spec, policy, out_dir, fmt, unit=unit, ghost=ghost, remedies=remedies)
+    outcome = audit_paths(geometry, spec, policy, out_dir, fmt, unit=unit, ghost=ghost, remedies=remedies,
+                          spectrum_method=spectrum)
     for _, message, _ in outcome.errors:
         err.print(f"[bold red]error:[/] {message}")
     if not quiet:
@@ -77,6 +81,11 @@ def check(
         if outcome.written:
             out.print(f"wrote {len(outcome.written)} report file(s) to {out_dir}/")
     raise typer.Exit(outcome.exit_code)
+
+
+def _check_spectrum_method(method: str) -> None:
+    if method not in ("auto", "full", "large"):
+        raise UsageError(f"--spectrum must be auto, full or large, got {method!r}")
 
 
 def _remedy_options(target, trial_scf, trial_max_functions, trial_seconds):
@@ -193,6 +202,8 @@ def gate(
     cache_dir: Optional[Path] = typer.Option(None, "--cache-dir", help="Result cache folder (default $XDG_CACHE_HOME/auditor)."),
     no_cache: bool = typer.Option(False, "--no-cache", help="Neither read nor write the result cache."),
     worst: int = typer.Option(10, "--worst", help="Rows in the final table of the worst items."),
+    spectrum: str = typer.Option("auto", "--spectrum", help="Eigen step: full (dense), large (factorizations and "
+                                                          "Lanczos, no second copy of S) or auto (large from about 3000 functions)."),
     fmt: str = typer.Option("json", "--format", "-f", help="json (summaries + items/*.json) or html "
                                                          "(also items/*.html and an index.html overview)."),
     quiet: bool = typer.Option(False, "--quiet", "-q", help="Print nothing but errors."),
@@ -220,11 +231,13 @@ def gate(
             raise UsageError("--drop-decades must not be negative")
         if fmt not in ("json", "html"):
             raise UsageError(f"--format must be json or html, got {fmt!r}")
+        _check_spectrum_method(spectrum)
         if ghost:
             from .geometry import parse_atom_numbers
             parse_atom_numbers(ghost)
         gp = load_gate_policy(policy_file) if policy_file else GatePolicy()
-        options = GateOptions(make_spec(basis, basis_for, cartesian), gp.levels_for(basis, caution, fail), unit, ghost)
+        options = GateOptions(make_spec(basis, basis_for, cartesian), gp.levels_for(basis, caution, fail), unit, ghost,
+                              spectrum)
         old = load_baseline(baseline) if baseline else None
         if engine == "dask":
             if item_timeout:

@@ -137,9 +137,10 @@ def _row_blocks(n: int, block: int):
         yield start, min(n, start + block)
 
 
-def duplicate_findings(S: np.ndarray, table: FunctionTable, block: int = 1024) -> list[Finding]:
+def duplicate_findings(S: np.ndarray, table: FunctionTable, block: int | None = None) -> list[Finding]:
     """Pairs of distinct functions with |S_ij| >= DUPLICATE_OVERLAP, grouped by atom pair."""
     n = S.shape[0]
+    block = block or max(64, 2**25 // (8 * max(n, 1)))  # about 32 MB of rows at a time
     pairs_i, pairs_j, vals = [], [], []
     for lo, hi in _row_blocks(n, block):
         rows = np.abs(S[lo:hi, lo:])
@@ -184,6 +185,27 @@ def gaussian_s_overlap(a: float, b: float, r_bohr: float) -> float:
     return (2.0 * np.sqrt(a * b) / p) ** 1.5 * np.exp(-a * b * r_bohr**2 / p)
 
 
+def _diffuse_block_maxima(S: np.ndarray, table: FunctionTable, shells: np.ndarray,
+                          chunk_bytes: int = 2**25) -> np.ndarray:
+    """max |S_ij| over the functions of every pair of the given shells, read in row chunks
+    of whole shells so that no copy of the diffuse block of S is made."""
+    funcs = np.flatnonzero(np.isin(table.func_shell, shells))
+    order = np.searchsorted(shells, table.func_shell[funcs])
+    starts = np.flatnonzero(np.r_[True, order[1:] != order[:-1]])
+    rows_per_chunk = max(1, chunk_bytes // (8 * max(funcs.size, 1)))
+    out = np.empty((shells.size, shells.size))
+    k = 0
+    while k < starts.size:
+        k_end = min(starts.size, k + max(1, rows_per_chunk // 4))  # shells have up to ~9 functions
+        lo = starts[k]
+        hi = starts[k_end] if k_end < starts.size else funcs.size
+        block = np.abs(S[np.ix_(funcs[lo:hi], funcs)])
+        block = np.maximum.reduceat(block, starts[k:k_end] - lo, axis=0)
+        out[k:k_end] = np.maximum.reduceat(block, starts, axis=1)
+        k = k_end
+    return out
+
+
 def crowding_findings(S: np.ndarray, mol: Molecule, table: FunctionTable, troubled: bool) -> list[Finding]:
     """Diffuse shells on two different atoms that nearly duplicate each other.
 
@@ -193,14 +215,7 @@ def crowding_findings(S: np.ndarray, mol: Molecule, table: FunctionTable, troubl
     dif_shells = np.flatnonzero(table.shell_diffuse)
     if dif_shells.size < 2:
         return []
-    funcs = np.flatnonzero(table.shell_diffuse[table.func_shell])
-    sub = np.abs(S[np.ix_(funcs, funcs)])
-    fshell = table.func_shell[funcs]
-    # largest |S| per pair of diffuse shells: reduce rows then columns by shell
-    order = np.searchsorted(dif_shells, fshell)
-    starts = np.flatnonzero(np.r_[True, order[1:] != order[:-1]])
-    rowmax = np.maximum.reduceat(sub, starts, axis=0)
-    shellmax = np.maximum.reduceat(rowmax, starts, axis=1)
+    shellmax = _diffuse_block_maxima(S, table, dif_shells)
     satom = table.shell_atom[dif_shells]
     best: dict[tuple[int, int], tuple[float, int, int]] = {}
     ii, jj = np.nonzero(np.triu(shellmax >= CROWDING_OVERLAP, k=1))

@@ -62,7 +62,7 @@ def audit_paths(
     formats: str = "all",
     unit: str = "angstrom",
     ghost: str | None = None,
-    spectrum_method: str = "full",
+    spectrum_method: str = "auto",
     on_result=None,
     remedies=True,
 ) -> RunOutcome:

@@ -216,3 +216,18 @@ def test_api_accepts_mole_atoms_and_path(tmp_path, water):
     # the Mole's ghost atoms are recognized
     pm2 = gto.M(atom="O 0 0 0; H 0 0.76 0.59; ghost-H 0 -0.76 0.59", basis="cc-pvdz", spin=1, verbose=0)
     assert auditor.audit(pm2).input.ghost_atoms == (3,)
+
+
+def test_chunked_diffuse_maxima_equal_direct_blocks():
+    # the memory-light chunked scan must equal max |S| over each pair of shells, computed directly
+    from auditor.diagnose import _diffuse_block_maxima
+
+    symbols, coords = WATER
+    mol = make_molecule(symbols * 2, list(coords) + (np.array(coords) + [0.0, 0.0, 2.6]).tolist())
+    prep = prepare(mol, BasisSpec("aug-cc-pvdz"))
+    t, S = prep.table, prep.S
+    shells = np.flatnonzero(t.shell_diffuse)
+    direct = np.array([[np.abs(S[np.ix_(t.func_shell == i, t.func_shell == j)]).max() for j in shells]
+                       for i in shells])
+    for chunk in (2**25, 4000, 64):
+        assert np.array_equal(_diffuse_block_maxima(S, t, shells, chunk), direct)

@@ -274,3 +274,26 @@ def test_audit_refuses_before_building_S(tmp_path, monkeypatch):
     xyz = _write_trimer_with_ghost(tmp_path / "g.xyz", 0.5)
     with pytest.raises(ResourceError, match=r"needs about .* GB .* only 0\.1 GB is available"):
         auditor.audit(xyz, "aug-cc-pvdz", ghost="10", spectrum_method="large", remedies=False)
+
+
+def test_cli_spectrum_option_large_matches_full(tmp_path):
+    # the large path chosen from the command line gives the same smallest eigenvalue
+    # as the dense path (reference: numpy.linalg.eigh via --spectrum full)
+    import json
+
+    from typer.testing import CliRunner
+
+    from auditor.cli import app
+    from conftest import WATER, write_xyz
+
+    symbols, coords = WATER
+    f = write_xyz(tmp_path / "w.xyz", symbols + ["H"], coords + [[0.0, 0.7572, -0.4392]])
+    got = {}
+    for method in ("full", "large"):
+        res = CliRunner().invoke(app, ["check", str(f), "-b", "aug-cc-pvdz", "-o", str(tmp_path / method),
+                                       "-f", "json", "--spectrum", method])
+        assert res.exit_code in (0, 1), res.output
+        got[method] = json.loads((tmp_path / method / "w.json").read_text())["spectrum"]
+    assert got["large"]["method"] == "large" and got["full"]["method"] == "full"
+    assert got["large"]["smallest"] == pytest.approx(got["full"]["smallest"], rel=1e-8)
+    assert CliRunner().invoke(app, ["check", str(f), "-b", "sto-3g", "--spectrum", "fast"]).exit_code == 2
