@@ -44,6 +44,7 @@ class GateOptions:
     unit: str = "angstrom"
     ghost: str | None = None
     spectrum_method: str = "auto"
+    remedies: bool = False    # remedies cost several times the audit on small molecules; opt in
 
 
 @dataclass
@@ -183,6 +184,7 @@ def run_context(options: GateOptions) -> dict:
         "basis_files": files,
         "policy": options.policy.as_dict(),
         "spectrum_method": options.spectrum_method,
+        "remedies": options.remedies,
         "versions": {"auditor": __version__, "pyscf": _pyscf_version()},
     }
 
@@ -199,7 +201,7 @@ def item_payload(item: Item, options: GateOptions) -> str:
         "geometry": _geometry(mol),
         "source": item.path, "frame": mol.frame, "n_frames": mol.n_frames,
         "basis": options.spec.as_dict(), "policy": options.policy.as_dict(),
-        "spectrum_method": options.spectrum_method,
+        "spectrum_method": options.spectrum_method, "remedies": options.remedies,
     })
 
 
@@ -219,7 +221,8 @@ def run_item(payload: str) -> str:
                        charge=g["charge"], multiplicity=g["multiplicity"], source=p["source"],
                        frame=p["frame"], n_frames=p["n_frames"])
         spec = BasisSpec(p["basis"]["default"], dict(p["basis"]["per_element"]), bool(p["basis"]["cartesian"]))
-        result = audit_prepared(prepare(mol, spec), Policy(**p["policy"]), p["spectrum_method"])
+        result = audit_prepared(prepare(mol, spec), Policy(**p["policy"]), p["spectrum_method"],
+                                remedies=bool(p.get("remedies", False)))
         return json.dumps({"seconds": round(time.perf_counter() - t0, 6), "report": to_json(result)})
     except AuditorError as exc:
         return json.dumps({"error": exc.message})

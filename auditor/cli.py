@@ -204,6 +204,8 @@ def gate(
     worst: int = typer.Option(10, "--worst", help="Rows in the final table of the worst items."),
     spectrum: str = typer.Option("auto", "--spectrum", help="Eigen step: full (dense), large (factorizations and "
                                                           "Lanczos, no second copy of S) or auto (large from about 3000 functions)."),
+    with_remedies: bool = typer.Option(False, "--remedies", help="Also work out the remedies of every item "
+                                                                 "that needs them (slower; `check` and `prune` do it per file)."),
     fmt: str = typer.Option("json", "--format", "-f", help="json (summaries + items/*.json) or html "
                                                          "(also items/*.html and an index.html overview)."),
     quiet: bool = typer.Option(False, "--quiet", "-q", help="Print nothing but errors."),
@@ -237,7 +239,7 @@ def gate(
             parse_atom_numbers(ghost)
         gp = load_gate_policy(policy_file) if policy_file else GatePolicy()
         options = GateOptions(make_spec(basis, basis_for, cartesian), gp.levels_for(basis, caution, fail), unit, ghost,
-                              spectrum)
+                              spectrum, with_remedies)
         old = load_baseline(baseline) if baseline else None
         if engine == "dask":
             if item_timeout:
