@@ -14,7 +14,7 @@ from .diagnose import attribute_causes, crowding_findings, duplicate_findings, g
 from .errors import InputError, UsageError
 from .geometry import Molecule, element_symbol, molecule_from_atoms, parse_atom_numbers, read_geometry
 from .orthogonalize import advise
-from .overlap import FunctionTable, build_mole, function_table, normalized_overlap
+from .overlap import FunctionTable, build_mole, function_table, mole_function_table, normalized_overlap
 from .policy import Policy, decide
 from .result import AuditResult, InputInfo, SpectrumInfo
 from .spectrum import Spectrum, compute_spectrum
@@ -54,7 +54,7 @@ def prepare(mol: Molecule, spec: BasisSpec, spectrum_method: str = "large") -> P
 
     pm = build_mole(mol, spec)
     check_memory(pm.nao, spectrum_method)
-    table = function_table(pm, mol, spec)
+    table = function_table(mol, spec)
     return Prepared(mol, spec, pm, table, normalized_overlap(pm))
 
 
@@ -213,7 +213,7 @@ def audit(
     if hasattr(source, "intor") and hasattr(source, "nao_nr"):
         mol, mole_spec = _from_mole(source)
         if basis is None:
-            table = function_table(source, mol, mole_spec)
+            table = mole_function_table(source, mol, mole_spec)
             return audit_prepared(Prepared(mol, mole_spec, source, table, normalized_overlap(source)),
                                   policy, spectrum_method, remedies)
     elif isinstance(source, Molecule):

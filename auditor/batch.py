@@ -7,6 +7,7 @@ Workers and the cache only ever exchange JSON text; the audit itself is
 from __future__ import annotations
 
 import glob
+import hashlib
 import json
 import multiprocessing as mp
 import os
@@ -223,7 +224,7 @@ def run_item(payload: str) -> str:
         spec = BasisSpec(p["basis"]["default"], dict(p["basis"]["per_element"]), bool(p["basis"]["cartesian"]))
         result = audit_prepared(prepare(mol, spec), Policy(**p["policy"]), p["spectrum_method"],
                                 remedies=bool(p.get("remedies", False)))
-        return json.dumps({"seconds": round(time.perf_counter() - t0, 6), "report": to_json(result)})
+        return json.dumps({"seconds": round(time.perf_counter() - t0, 6), "report": to_json(result, compact=True)})
     except AuditorError as exc:
         return json.dumps({"error": exc.message})
     except MemoryError:
@@ -231,6 +232,33 @@ def run_item(payload: str) -> str:
     except Exception as exc:  # an item must never take the run down; report it as that item's error
         text = str(exc).splitlines()[0] if str(exc) else ""
         return json.dumps({"error": f"internal error {type(exc).__name__}: {text}"})
+
+
+def check_basis_names(spec: BasisSpec, elements) -> None:
+    """A basis name that neither pyscf nor the file system knows is a usage error, not one
+    error per item. (Imports pyscf: runs where the audits run.)"""
+    from .basis import load_shells
+    from .errors import InputError
+
+    elements = set(elements)
+    for name in sorted({spec.for_element(el) for el in elements}):
+        users = sorted(el for el in elements if spec.for_element(el) == name)
+        try:
+            load_shells(name, users[0])
+        except InputError as exc:
+            if exc.message.startswith("unknown basis name"):
+                raise UsageError(exc.message) from None
+
+
+def _preflight(check: tuple | None) -> str:
+    """Run ``check_basis_names(*check)``; the usage error's message, or "" when fine."""
+    if check is None:
+        return ""
+    try:
+        check_basis_names(*check)
+    except UsageError as exc:
+        return exc.message
+    return ""
 
 
 # ---------------------------------------------------------------- local engine
@@ -250,14 +278,16 @@ def _thread_env(threads: int):
                 os.environ[k] = v
 
 
-def _worker_main(conn, task) -> None:
-    """Worker process: import the integral library once, then audit items until told to stop."""
+def _worker_main(conn, task, check=None) -> None:
+    """Worker process: import the integral library once, check the basis names, then
+    audit items until told to stop."""
     signal.signal(signal.SIGINT, signal.SIG_IGN)  # the parent handles Ctrl-C and ends its workers
     try:
         from . import api  # noqa: F401
         import pyscf.gto  # noqa: F401
 
-        conn.send(("ready", ""))
+        problem = _preflight(check)
+        conn.send(("unusable", problem) if problem else ("ready", ""))
         while True:
             payload = conn.recv()
             if payload is None:
@@ -267,19 +297,48 @@ def _worker_main(conn, task) -> None:
         return  # the parent is gone
 
 
+def _worker_context():
+    """forkserver where the platform has it, else spawn; never a plain fork.
+
+    The fork server is a fresh interpreter started with one BLAS/OpenMP thread, so no
+    thread pool exists when it forks; it imports the integral library once and every
+    worker inherits it (spawn would import it again in each worker)."""
+    if "forkserver" in mp.get_all_start_methods():
+        ctx = mp.get_context("forkserver")
+        ctx.set_forkserver_preload(["auditor.api", "auditor.batch", "pyscf.gto", "scipy.linalg"])
+        return ctx
+    return mp.get_context("spawn")
+
+
+#: a second item is queued in a worker's pipe only when its payload is this small, so
+#: that the parent can never block on a send while the worker blocks on sending a result
+_PIPELINE_BYTES = 16 * 1024
+
+
 class _Worker:
-    def __init__(self, ctx, task):
+    def __init__(self, ctx, task, check=None):
         self.conn, child = ctx.Pipe()
-        self.proc = ctx.Process(target=_worker_main, args=(child, task), daemon=True)
+        self.proc = ctx.Process(target=_worker_main, args=(child, task, check), daemon=True)
         self.proc.start()
         child.close()
         self.ready = False
-        self.task: str | None = None
-        self.started = 0.0
+        self.tasks: deque[tuple[str, str]] = deque()   # sent and not answered; the first is running
+        self.started = 0.0                               # when the first of them started
+
+    def wants(self) -> bool:
+        """Room for another item: none in hand, or one whose successor can wait in the pipe."""
+        return self.ready and (not self.tasks or len(self.tasks) == 1)
 
     def assign(self, name: str, payload: str) -> None:
-        self.task, self.started = name, time.monotonic()
+        if not self.tasks:
+            self.started = time.monotonic()
+        self.tasks.append((name, payload))
         self.conn.send(payload)
+
+    def finished(self) -> str:
+        name, _ = self.tasks.popleft()
+        self.started = time.monotonic()
+        return name
 
     def kill(self) -> None:
         if self.proc.is_alive():
@@ -289,10 +348,13 @@ class _Worker:
 
 
 class LocalEngine:
-    """Worker processes on this machine (spawned, never forked), one item at a time each.
+    """Worker processes on this machine (from a fork server or spawned, never forked from
+    this process). Each runs one item at a time and has at most one more waiting, so it
+    never idles while this process writes results.
 
     A worker that dies, or that runs longer than ``timeout`` seconds on one item, is
-    replaced, and only that item is recorded as an error.
+    replaced; only that item is recorded as an error, and the one waiting behind it is
+    given to another worker.
     """
 
     def __init__(self, jobs: int | None = None, timeout: float | None = None, task=run_item):
@@ -304,51 +366,63 @@ class LocalEngine:
         self.timeout = timeout if timeout and timeout > 0 else None
         self.task = task
 
-    def run(self, tasks: list[tuple[str, str]], on_done) -> None:
-        """Run (name, payload) tasks; call on_done(name, reply dict, seconds) as each ends."""
+    def run(self, tasks: list[tuple[str, str]], on_done, check: tuple | None = None) -> None:
+        """Run (name, payload) tasks; call on_done(name, reply dict, seconds) as each ends.
+
+        ``check``: (BasisSpec, elements) that every worker checks before its first item
+        (``check_basis_names``); a failure is raised here as UsageError, before any item runs.
+        """
         queue = deque(tasks)
         if not queue:
             return
-        ctx = mp.get_context("spawn")
+        ctx = _worker_context()
         workers: list[_Worker] = []
         failed_starts = 0
 
         def start() -> _Worker:
             with _thread_env(self.threads):
-                return _Worker(ctx, self.task)
+                return _Worker(ctx, self.task, check)
+
+        def feed() -> None:
+            for w in workers:
+                while w is not None and queue and w.wants() and (not w.tasks or len(queue[0][1]) <= _PIPELINE_BYTES):
+                    w.assign(*queue.popleft())
 
         try:
             workers = [start() for _ in range(min(self.jobs, len(queue)))]
-            while queue or any(w.task for w in workers):
-                for w in workers:
-                    if w.ready and w.task is None and queue:
-                        w.assign(*queue.popleft())
+            while queue or any(w.tasks for w in workers):
+                feed()
                 wait_any([w.conn for w in workers] + [w.proc.sentinel for w in workers],
                          self._wait_time(workers))
                 for i, w in enumerate(workers):
-                    reply, died = None, False
+                    replies, died = [], False
                     try:
                         while w.conn.poll():
                             kind, text = w.conn.recv()
                             if kind == "ready":
                                 w.ready = True
+                            elif kind == "unusable":
+                                raise UsageError(text)
                             else:
-                                reply = json.loads(text)
+                                seconds = time.monotonic() - w.started
+                                replies.append((w.finished(), text, seconds))
                     except (EOFError, OSError):
                         died = True
-                    if reply is not None:
-                        name, w.task = w.task, None
-                        on_done(name, reply, time.monotonic() - w.started)
+                    if replies:
+                        feed()  # hand out the next items before writing these results
+                        for name, text, seconds in replies:
+                            on_done(name, json.loads(text), seconds)
                     died = died or not w.proc.is_alive()
-                    late = w.task is not None and self.timeout and time.monotonic() - w.started > self.timeout
+                    late = bool(w.tasks) and self.timeout and time.monotonic() - w.started > self.timeout
                     if not (died or late):
                         continue
                     w.kill()
-                    if w.task is not None:
+                    if w.tasks:
                         why = (f"took longer than the item timeout ({self.timeout:g} s); the worker was stopped"
                                if late and not died else
                                f"the worker process died (exit code {w.proc.exitcode}) while auditing this item")
-                        on_done(w.task, {"error": why}, time.monotonic() - w.started)
+                        on_done(w.tasks[0][0], {"error": why}, time.monotonic() - w.started)
+                        queue.extendleft(reversed(list(w.tasks)[1:]))  # waiting, never started: run elsewhere
                     elif not w.ready:
                         failed_starts += 1
                         if failed_starts > 2 * self.jobs:
@@ -358,19 +432,19 @@ class LocalEngine:
         finally:
             for w in workers:
                 try:
-                    if w.proc.is_alive() and w.task is None:
+                    if w.proc.is_alive() and not w.tasks:
                         w.conn.send(None)
                 except OSError:
                     pass
             for w in workers:
-                w.proc.join(2 if w.task is None else 0)
+                w.proc.join(2 if not w.tasks else 0)
                 w.kill()
 
     def _wait_time(self, workers) -> float:
         if not self.timeout:
             return 5.0
         now = time.monotonic()
-        left = [self.timeout - (now - w.started) for w in workers if w.task is not None]
+        left = [self.timeout - (now - w.started) for w in workers if w.tasks]
         return max(0.01, min(left, default=5.0))
 
 
@@ -407,9 +481,11 @@ class DaskEngine:
         self.address = address
         self.connect_timeout = connect_timeout
 
-    def run(self, tasks: list[tuple[str, str]], on_done) -> None:
+    def run(self, tasks: list[tuple[str, str]], on_done, check: tuple | None = None) -> None:
         if not tasks:
             return
+        if check is not None:
+            check_basis_names(*check)
         try:
             from dask.distributed import Client, as_completed
         except ImportError:
@@ -449,21 +525,6 @@ class BatchRun:
     computed: int = 0
     cached: int = 0
     errors: int = 0
-
-
-def check_basis_names(spec: BasisSpec, elements: set[str]) -> None:
-    """A basis name that neither pyscf nor the file system knows is a usage error, not one
-    error per item. (Imports pyscf: called only when something must be computed.)"""
-    from .basis import load_shells
-    from .errors import InputError
-
-    for name in {spec.for_element(el) for el in elements}:
-        users = sorted(el for el in elements if spec.for_element(el) == name)
-        try:
-            load_shells(name, users[0])
-        except InputError as exc:
-            if exc.message.startswith("unknown basis name"):
-                raise UsageError(exc.message) from None
 
 
 def _same_text(path: Path, text: str) -> bool:
@@ -517,7 +578,7 @@ def run_batch(args: list[str], options: GateOptions, out: Path, engine, cache: R
         own = {"path": it.path, "frame": it.frame, "n_frames": it.n_frames}
         if any(result["input"].get(k) != v for k, v in own.items()):  # a hit filled from another file
             result["input"].update(own)
-            text = to_json(_Stored(result))
+            text = to_json(_Stored(result), compact=True)
         done(it, result_row(it.path, it.frame, it.name, result), text)
 
     def on_done(name: str, reply: dict, seconds: float) -> None:
@@ -544,9 +605,12 @@ def run_batch(args: list[str], options: GateOptions, out: Path, engine, cache: R
             finish(it, hit["text"], hit["data"])
         else:
             todo.append(it)
+    check = (options.spec, tuple(sorted({s for it in todo for s in it.molecule.symbols})))
     if todo:
-        check_basis_names(options.spec, {s for it in todo for s in it.molecule.symbols})
-    engine.run([(it.name, item_payload(it, options)) for it in todo], on_done)
+        from .report.summary import prefetch_libraries
+
+        prefetch_libraries()  # the summary writer needs them; meanwhile this process mostly waits
+    engine.run([(it.name, item_payload(it, options)) for it in todo], on_done, check=check)
     for stale in items_dir.iterdir():  # reports of items no longer in the set, temporary files of killed runs
         if stale.is_file() and (stale.name.startswith(".") or (stale.suffix == ".json" and stale.stem not in by_name)):
             stale.unlink(missing_ok=True)
@@ -555,6 +619,31 @@ def run_batch(args: list[str], options: GateOptions, out: Path, engine, cache: R
 
 
 # ---------------------------------------------------------------- the gate
+
+def _rows_digest(rows: list[dict]) -> str:
+    text = json.dumps(rows, sort_keys=True, separators=(",", ":"), default=str)
+    return hashlib.sha256(text.encode("utf-8")).hexdigest()
+
+
+def _summary_stamps(rows: list[dict], files) -> dict:
+    """What run.json records to recognise the summary files on the next run."""
+    return {"rows": _rows_digest(rows), **{Path(f).name: file_digest(f) for f in files}}
+
+
+def _summaries_if_unchanged(out: Path, rows: list[dict]):
+    """(summary paths, stamps) when the summary files in ``out`` were written by an earlier
+    run from exactly these rows and are untouched since (their SHA-256 recorded in
+    run.json); else (None, None). Spares a rerun of an unchanged set from rewriting them
+    (and from importing pandas)."""
+    try:
+        stamps = json.loads((Path(out) / "run.json").read_text(encoding="utf-8")).get("summary_stamps") or {}
+        files = [Path(out) / "summary.csv", Path(out) / "summary.parquet"]
+        if stamps.get("rows") != _rows_digest(rows) or any(stamps.get(f.name) != file_digest(f) for f in files):
+            return None, None
+    except (OSError, ValueError, AttributeError):
+        return None, None
+    return files, stamps
+
 
 @dataclass
 class GateOutcome:
@@ -578,7 +667,11 @@ def run_gate(args: list[str], options: GateOptions, out: Path, engine, cache: Re
     t0 = time.monotonic()
     run = run_batch(args, options, out, engine, cache, patterns, progress)
     judge(run.rows, gate_policy or GatePolicy(), baseline, drop_decades)
-    written = [*write_summary(run.rows, out), write_junit(run.rows, Path(out) / "junit.xml", run.seconds)]
+    summaries, stamps = _summaries_if_unchanged(out, run.rows)
+    if summaries is None:
+        summaries = write_summary(run.rows, out)
+        stamps = _summary_stamps(run.rows, summaries)
+    written = [*summaries, write_junit(run.rows, Path(out) / "junit.xml", run.seconds)]
     if html:
         from .report.set_index import link_reports, write_item_pages, write_set_index
 
@@ -595,6 +688,7 @@ def run_gate(args: list[str], options: GateOptions, out: Path, engine, cache: Re
         "basis": options.spec.describe(), "policy": options.policy.as_dict(),
         "cache": str(cache.root) if cache is not None else None,
         "cache_write_errors": cache.failed_writes if cache is not None else 0, "version": __version__,
+        "summary_stamps": stamps,
     }
     written.append(Path(out) / "run.json")
     atomic_write(written[-1], json.dumps(stats, indent=2) + "\n")

@@ -1,9 +1,11 @@
-"""Result cache: a content hash -> one JSON file on disk.
+"""Result cache: a content hash -> the JSON text of one audit report, in one SQLite file.
 
-Entries are plain JSON (never pickle), so a cache copied from elsewhere cannot run
-code; a file that does not parse or does not carry its own key is a miss. Every
-entry is written through a temporary file and a rename, so a killed run leaves
-either the whole entry or none.
+Entries are JSON text in a table (never pickle), so a cache copied from elsewhere
+cannot run code; an entry of another format, or one that does not parse, is a miss.
+Every entry is its own transaction (write-ahead log), so a run killed at any point
+leaves each entry either whole or absent, and the next run resumes. One file instead
+of a file per entry: creating hundreds of small files costs more than the audits of
+small molecules on some file systems.
 """
 from __future__ import annotations
 
@@ -12,9 +14,8 @@ import json
 import os
 from pathlib import Path
 
-from .report import atomic_write
-
-FORMAT = "auditor-cache/1"
+FORMAT = "auditor-cache/3"
+FILE_NAME = "results.sqlite"
 
 
 def default_cache_dir() -> Path:
@@ -40,31 +41,83 @@ def file_digest(path: str | Path) -> str:
 
 
 class ResultCache:
-    """Audit reports (the JSON text of one AuditResult) stored by content key."""
+    """Audit reports (the JSON text of one AuditResult) stored by content key in
+    ROOT/results.sqlite. A cache that cannot be opened or written slows the next run;
+    it never fails this one (``failed_writes`` counts what could not be stored)."""
 
     def __init__(self, root: str | Path):
         self.root = Path(root)
-        self.failed_writes = 0   # a cache that cannot be written slows the next run, it does not fail this one
+        self.path = self.root / FILE_NAME
+        self.failed_writes = 0
+        self.problem = ""     # why the cache is unusable, when it is
+        self._db = None
 
-    def path_for(self, key: str) -> Path:
-        return self.root / key[:2] / f"{key}.json"
+    def _connect(self, create: bool):
+        if self._db is not None or self.problem:
+            return self._db
+        if not create and not self.path.exists():
+            return None
+        import sqlite3
+
+        try:
+            self.root.mkdir(parents=True, exist_ok=True)
+            db = sqlite3.connect(self.path, timeout=30.0, isolation_level=None)  # autocommit: one entry, one transaction
+            db.execute("PRAGMA trusted_schema = OFF")
+            db.execute("PRAGMA journal_mode = WAL")
+            db.execute("PRAGMA synchronous = NORMAL")   # survives a killed process; only a power cut may lose the newest entries
+            db.execute("CREATE TABLE IF NOT EXISTS entries (key TEXT PRIMARY KEY, format TEXT NOT NULL, report TEXT NOT NULL)")
+        except (OSError, sqlite3.Error) as exc:
+            self.problem = f"{self.path}: {exc}"
+            return None
+        self._db = db
+        return db
 
     def get(self, key: str) -> dict | None:
         """The stored result as {"text": report JSON text, "data": parsed dict}, or None
         when absent, unreadable or not ours."""
-        try:
-            entry = json.loads(self.path_for(key).read_text(encoding="utf-8"))
-            if not isinstance(entry, dict) or entry.get("format") != FORMAT or entry.get("key") != key:
-                return None
-            data = json.loads(entry["report"])
-        except (OSError, ValueError, KeyError, TypeError):
+        import sqlite3
+
+        db = self._connect(create=False)
+        if db is None:
             return None
-        return {"text": entry["report"], "data": data} if isinstance(data, dict) else None
+        try:
+            row = db.execute("SELECT format, report FROM entries WHERE key = ?", (key,)).fetchone()
+        except sqlite3.Error:
+            return None
+        if row is None or row[0] != FORMAT or not isinstance(row[1], str):
+            return None
+        try:
+            data = json.loads(row[1])
+        except ValueError:
+            return None
+        return {"text": row[1], "data": data} if isinstance(data, dict) else None
 
     def put(self, key: str, report: str) -> None:
-        """Store the report text (kept verbatim, so a hit needs no re-encoding)."""
-        text = json.dumps({"format": FORMAT, "key": key, "report": report}, ensure_ascii=False)
-        try:
-            atomic_write(self.path_for(key), text)
-        except OSError:
+        """Store the report text verbatim (a hit needs no re-encoding)."""
+        import sqlite3
+
+        db = self._connect(create=True)
+        if db is None:
             self.failed_writes += 1
+            return
+        try:
+            db.execute("INSERT OR REPLACE INTO entries (key, format, report) VALUES (?, ?, ?)", (key, FORMAT, report))
+        except sqlite3.Error:
+            self.failed_writes += 1
+
+    def keys(self) -> list[str]:
+        """Keys of the stored entries of this format (sorted)."""
+        import sqlite3
+
+        db = self._connect(create=False)
+        if db is None:
+            return []
+        try:
+            return [k for (k,) in db.execute("SELECT key FROM entries WHERE format = ? ORDER BY key", (FORMAT,))]
+        except sqlite3.Error:
+            return []
+
+    def close(self) -> None:
+        if self._db is not None:
+            self._db.close()
+            self._db = None

@@ -266,9 +266,14 @@ def gate(
                               html=fmt == "html")
         except AuditorError as exc:
             _fail(exc.message, exc.exit_code)
+        finally:
+            if cache is not None:
+                cache.close()
     rows = result.run.rows
     if cache is not None and cache.failed_writes:
-        err.print(f"note: {cache.failed_writes} result(s) could not be stored in the cache {cache.root}", markup=False)
+        why = f" ({cache.problem})" if cache.problem else ""
+        err.print(f"note: {cache.failed_writes} result(s) could not be stored in the cache {cache.root}{why}",
+                  markup=False)
     for r in rows:
         if r["verdict"] == "error":
             err.print(f"error: {r['error']}", highlight=False, markup=False)

@@ -47,6 +47,8 @@ METHODS = ("full", "large", "auto")
 _GIB = 1024.0 ** 3
 #: Headroom kept free for Python, pyscf and the rest of the audit.
 _HEADROOM_BYTES = 512 * 1024 ** 2
+#: audits estimated below this size skip the memory check (it reads /proc/meminfo)
+_SMALL_BYTES = 64 * 1024 ** 2
 #: Temporary share of S the findings step takes on top (measured 0.27 S: the copy of the
 #: diffuse-function block of S in the crowding scan).
 _FINDINGS_FRACTION = 0.3
@@ -118,6 +120,8 @@ def resolve_method(
         return method
     if n_functions >= CROSSOVER_N:
         return "large"
+    if available is None and estimate_bytes(n_functions, "full", DEFAULT_MAX_VECTORS) < _SMALL_BYTES:
+        return "full"
     if available is None:
         available = available_bytes()
     if _extra_bytes(n_functions, "full", DEFAULT_MAX_VECTORS, s_built) + _HEADROOM_BYTES > available:
@@ -138,6 +142,9 @@ def check_memory(
     the process being killed; with ``s_built`` the memory S already holds is not counted
     again (``available`` is then what is left beside S).
     """
+    if available is None and estimate_bytes(n_functions, method, max_vectors) < _SMALL_BYTES:
+        # a few tens of MB at most: not worth reading /proc/meminfo for every small molecule
+        return _extra_bytes(n_functions, resolve_method(n_functions, method, None, s_built), max_vectors, s_built)
     if available is None:
         available = available_bytes()
     resolved = resolve_method(n_functions, method, available, s_built)

@@ -5,7 +5,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .spectrum import Spectrum
+from .spectrum import Spectrum, max_transform_element
 
 CANDIDATES: tuple[float, ...] = tuple(10.0 ** -k for k in range(4, 10))  # 1e-4 ... 1e-9
 MIN_GAP_DECADES = 1.0   # a gap this wide in log10(lambda) is a natural cut
@@ -86,8 +86,7 @@ def candidate(spec: Spectrum, threshold: float, colmax: np.ndarray | None) -> Ca
     growth = None
     if n_removed is not None and n_removed < spec.values.size:
         smallest_kept = float(spec.values[n_removed])
-        if colmax is not None and colmax.size == spec.values.size:
-            growth = float(np.max(colmax[n_removed:] / np.sqrt(spec.values[n_removed:])))
+        growth = max_transform_element(spec.values, colmax, n_removed)
     return Candidate(threshold, n_removed, smallest_kept, growth)
 
 

@@ -2,6 +2,7 @@
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import lru_cache
 
 import numpy as np
 
@@ -59,32 +60,34 @@ def pyscf_labels(mol: Molecule) -> list[str]:
     return [("ghost-" + s) if g else s for s, g in zip(mol.symbols, mol.ghost)]
 
 
-def resolve_basis(mol: Molecule, spec: BasisSpec) -> dict[str, list]:
-    """pyscf basis dictionary for every label in ``mol`` (raises InputError on gaps)."""
-    out: dict[str, list] = {}
-    for el in sorted(set(mol.symbols)):
-        shells = thaw(load_shells(spec.for_element(el), el))
-        out[el] = shells
-        out["ghost-" + el] = shells
-    return out
-
-
 def build_mole(mol: Molecule, spec: BasisSpec):
     """pyscf Mole with the molecule's atoms (ångström) and the resolved basis.
 
     Charge and spin are set only so that pyscf accepts the electron count: the
-    overlap does not depend on them.
+    overlap does not depend on them. Molecules with the same atom labels and basis
+    reuse one built Mole (the basis set-up is most of the cost of a small molecule);
+    only the coordinates are replaced, which gives the same integrals bit for bit.
     """
+    labels = tuple(pyscf_labels(mol))
+    template = _mole_template(labels, tuple(spec.for_element(s) for s in mol.symbols), spec.cartesian)
+    coords = np.asarray(mol.coords, dtype=float)
+    return template.set_geom_(coords, unit="Angstrom", inplace=False)
+
+
+@lru_cache(maxsize=512)  # a Mole of a small molecule holds a few kB
+def _mole_template(labels: tuple[str, ...], names: tuple[str, ...], cartesian: bool):
     from pyscf import gto
 
-    basis = resolve_basis(mol, spec)
-    atoms = [(lab, tuple(map(float, xyz))) for lab, xyz in zip(pyscf_labels(mol), mol.coords)]
-    nelec = sum(ELEMENTS.index(s) + 1 for s, g in zip(mol.symbols, mol.ghost) if not g)
+    basis: dict[str, list] = {}
+    for lab, name in zip(labels, names):
+        el = lab.removeprefix("ghost-")
+        basis[lab] = thaw(load_shells(name, el))
+    nelec = sum(ELEMENTS.index(lab) + 1 for lab in labels if not lab.startswith("ghost-"))
     pm = gto.Mole()
-    pm.atom = atoms
+    pm.atom = [(lab, (0.0, 0.0, 0.1 * i)) for i, lab in enumerate(labels)]  # replaced by set_geom_
     pm.basis = basis
     pm.unit = "Angstrom"
-    pm.cart = spec.cartesian
+    pm.cart = cartesian
     pm.charge = 0
     pm.spin = nelec % 2
     pm.verbose = 0
@@ -92,7 +95,43 @@ def build_mole(mol: Molecule, spec: BasisSpec):
     return pm
 
 
-def function_table(pm, mol: Molecule, spec: BasisSpec) -> FunctionTable:
+def function_table(mol: Molecule, spec: BasisSpec) -> FunctionTable:
+    """Label every function of ``mol`` in ``spec``, in pyscf's AO order (atom by atom),
+    assembled from one labelled single-atom table per element."""
+    parts = [_element_table(el, spec.for_element(el), spec.cartesian) for el in mol.symbols]
+    n_sh = np.cumsum([0] + [p.n_shells for p in parts])
+    n_fn = np.cumsum([0] + [p.n_functions for p in parts])
+    cat = np.concatenate
+    return FunctionTable(
+        shell_atom=cat([np.full(p.n_shells, a + 1, dtype=np.int64) for a, p in enumerate(parts)]),
+        shell_l=cat([p.shell_l for p in parts]),
+        shell_exponent=cat([p.shell_exponent for p in parts]),
+        shell_diffuse=cat([p.shell_diffuse for p in parts]),
+        shell_name=tuple(x for p in parts for x in p.shell_name),
+        shell_first=cat([p.shell_first + n_fn[a] for a, p in enumerate(parts)]),
+        func_shell=cat([p.func_shell + n_sh[a] for a, p in enumerate(parts)]),
+        func_component=tuple(x for p in parts for x in p.func_component),
+        elements=tuple(mol.symbols),
+        ghost=tuple(mol.ghost),
+    )
+
+
+@lru_cache(maxsize=256)
+def _element_table(el: str, name: str, cartesian: bool) -> FunctionTable:
+    from pyscf import gto
+
+    atom = Molecule((el,), np.zeros((1, 3)), (False,))
+    pm = gto.Mole()
+    pm.atom = [(el, (0.0, 0.0, 0.0))]
+    pm.basis = {el: thaw(load_shells(name, el))}
+    pm.cart = cartesian
+    pm.spin = (ELEMENTS.index(el) + 1) % 2
+    pm.verbose = 0
+    pm.build(dump_input=False, parse_arg=False)
+    return mole_function_table(pm, atom, BasisSpec(name, {}, cartesian))
+
+
+def mole_function_table(pm, mol: Molecule, spec: BasisSpec) -> FunctionTable:
     """Label every function of pyscf Mole ``pm`` (built from ``mol`` with ``spec``)."""
     ao_labels = pm.ao_labels(fmt=False)
     shell_atom, shell_l, shell_exp, shell_dif, shell_name, shell_first = [], [], [], [], [], []

@@ -37,7 +37,8 @@ class Spectrum:
     gershgorin_bound: float
     method: str
     complete: bool
-    #: max_i |U_ij| per computed eigenvector column j (growth of the transformation X)
+    #: max_i |U_ij| for the eigenvector columns j that were formed (the smallest ones;
+    #: all of them on the dense path); see ``max_transform_element``
     column_max: np.ndarray | None = None
 
     @property
@@ -74,11 +75,94 @@ def select_null_vectors(values: np.ndarray, level: float, min_vectors: int) -> i
     return max(k, min(min_vectors, values.size))
 
 
+#: thresholds up to this one get an exact max |X| (the candidates and the advice use 1e-4 ... 1e-9)
+GROWTH_LEVEL = 1e-4
+#: below this size one dense eigendecomposition costs no more than the selective path
+_SELECTIVE_FROM = 160
+
+
+def max_transform_element(values: np.ndarray, column_max: np.ndarray | None, n_removed: int) -> float | None:
+    """max |X_ij| of X = U_kept diag(lambda_kept)^-1/2 when the ``n_removed`` smallest
+    directions go, or None when the computed columns cannot certify it.
+
+    ``column_max`` holds max_i |U_ij| for the m smallest eigenvectors. A column j >= m
+    contributes at most 1/sqrt(lambda_m) (unit eigenvectors), so the maximum over the
+    computed kept columns is exact once it reaches that bound.
+    """
+    if column_max is None or n_removed >= values.size:
+        return None
+    m = column_max.size
+    if n_removed >= m:
+        return None
+    kept = values[n_removed:m]
+    if kept[0] <= 0.0:
+        return None
+    g = float(np.max(column_max[n_removed:] / np.sqrt(kept)))
+    if m < values.size and g < 1.0 / np.sqrt(values[m]):
+        return None
+    return g
+
+
+def _dense(S: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    values, vectors = np.linalg.eigh(S)
+    return values, vectors
+
+
+def _selective(S: np.ndarray, vector_level: float, min_vectors: int):
+    """All eigenvalues and the smallest eigenvectors from one tridiagonal reduction
+    (LAPACK dsytrd; dsterf for the values; dstemr and the Householder back-transform
+    dormqr for the vectors), with as many vectors as the growth figures need.
+    None when that would be most of them (the dense path is then cheaper)."""
+    from scipy.linalg import eigh_tridiagonal, eigvalsh_tridiagonal, lapack
+
+    n = S.shape[0]
+    lwork = int(lapack.dsytrd_lwork(n, lower=1)[0])
+    a, d, e, tau, info = lapack.dsytrd(S, lower=1, lwork=lwork)  # works on a copy of S
+    if info != 0:
+        return None
+    values = eigvalsh_tridiagonal(d, e, lapack_driver="sterf")
+    # the most directions that any threshold up to GROWTH_LEVEL (or the vector level) removes;
+    # a growth figure certified there is certified for every smaller threshold too
+    r_max = int(np.searchsorted(values, max(GROWTH_LEVEL, vector_level), side="left"))
+    need = max(select_null_vectors(values, vector_level, min_vectors), r_max + 1)
+    reflectors = a[1:, : n - 1]
+    blocks: list[np.ndarray] = []
+    m, target = 0, min(n, need)
+    while True:
+        if target > n // 3:
+            return None
+        _, z = eigh_tridiagonal(d, e, select="i", select_range=(m, target - 1), lapack_driver="stemr")
+        lw = int(lapack.dormqr("L", "N", reflectors, tau, z[1:], lwork=-1)[1][0])
+        zq, _, info = lapack.dormqr("L", "N", reflectors, tau, z[1:], lwork=max(lw, 1), overwrite_c=1)
+        if info != 0:
+            return None
+        z[1:] = zq
+        blocks.append(z)
+        m = target
+        colmax = np.concatenate([np.abs(b).max(axis=0) for b in blocks])
+        if m == n or max_transform_element(values, colmax, r_max) is not None:
+            return values, np.concatenate(blocks, axis=1), colmax
+        # columns past m add at most 1/sqrt(lambda_j) each: those with lambda_j below 1/g^2
+        # could still beat the maximum g found so far, so form exactly those
+        g = float(np.max(colmax[r_max:] / np.sqrt(values[r_max:m])))
+        target = max(m + 1, min(n, int(np.searchsorted(values, 1.0 / g**2, side="left"))))
+
+
 def full_spectrum(S: np.ndarray, vector_level: float, min_vectors: int = 3) -> Spectrum:
-    """Dense symmetric eigendecomposition (LAPACK syevd through numpy)."""
+    """Every eigenvalue, and the eigenvectors that the causes and the growth figures need.
+
+    Small S: one dense eigendecomposition (LAPACK syevd through numpy). Otherwise one
+    tridiagonal reduction gives all eigenvalues, and only the smallest eigenvectors are
+    formed (about half the time of the dense path at a few hundred functions).
+    """
     n = S.shape[0]
     bound = gershgorin_lower_bound(S)
-    values, vectors = np.linalg.eigh(S)
+    picked = _selective(S, vector_level, min_vectors) if n >= _SELECTIVE_FROM else None
+    if picked is None:
+        values, vectors = _dense(S)
+        colmax = np.abs(vectors).max(axis=0)
+    else:
+        values, vectors, colmax = picked
     k = select_null_vectors(values, vector_level, min_vectors)
     counts = {level_key(t): int(np.searchsorted(values, t, side="left")) for t in COUNT_LEVELS}
     return Spectrum(
@@ -91,7 +175,7 @@ def full_spectrum(S: np.ndarray, vector_level: float, min_vectors: int = 3) -> S
         gershgorin_bound=bound,
         method="full",
         complete=True,
-        column_max=np.abs(vectors).max(axis=0),
+        column_max=colmax,
     )
 
 

@@ -46,6 +46,32 @@ def test_spectrum_matches_numpy_eigvalsh(water):
     assert r.spectrum.gershgorin_bound <= ref[0] + 1e-12
 
 
+@pytest.mark.parametrize("cartesian", [False, True])
+def test_reused_mole_and_assembled_table_match_a_fresh_build(cartesian):
+    # reference: a pyscf Mole built from scratch for each geometry (pyscf's own
+    # ao_labels and shell data), against the reused Mole and the per-element tables
+    from pyscf import gto
+
+    from auditor.overlap import build_mole, function_table, mole_function_table, normalized_overlap
+
+    symbols = ["O", "H", "H", "N", "H"]
+    base = np.array(WATER[1] + [[2.9, 0.1, 0.0], [3.4, 0.9, 0.2]])
+    spec = BasisSpec("aug-cc-pvdz", {"N": "cc-pvtz"}, cartesian)
+    rng = np.random.default_rng(3)
+    for step in range(3):  # the first call builds the template, the next ones reuse it
+        coords = base + rng.uniform(-0.1, 0.1, base.shape)
+        mol = make_molecule(symbols, coords, ghost=[False, False, False, True, True])
+        fresh = gto.M(atom=[("ghost-" + s if g else s, tuple(c)) for s, g, c in zip(symbols, mol.ghost, coords)],
+                      basis={"O": "aug-cc-pvdz", "H": "aug-cc-pvdz", "ghost-N": "cc-pvtz",
+                             "ghost-H": "aug-cc-pvdz"}, unit="Angstrom", cart=cartesian, spin=0, verbose=0)
+        pm = build_mole(mol, spec)
+        assert np.array_equal(normalized_overlap(pm), normalized_overlap(fresh))  # bit for bit
+        got, ref = function_table(mol, spec), mole_function_table(fresh, mol, spec)
+        for field in ("shell_atom", "shell_l", "shell_exponent", "shell_diffuse", "shell_first", "func_shell"):
+            assert np.array_equal(getattr(got, field), getattr(ref, field)), field
+        assert got.shell_name == ref.shell_name and got.func_component == ref.func_component
+
+
 def test_cartesian_changes_count_and_spectrum(water):
     # Cartesian d shells have 6 components instead of 5 (the extra one is s-like, x^2+y^2+z^2)
     sph = auditor.audit(water, "cc-pvtz")
@@ -160,6 +186,59 @@ def test_gap_recommendation_on_planted_spectrum():
     assert rec.max_transform_element == pytest.approx(np.abs(X).max(), rel=1e-6)
     by_t = {c.threshold: c.n_removed for c in rec.candidates}
     assert by_t[1e-4] == 3 and by_t[1e-9] == 1
+
+
+def _overlap(symbols, coords, basis):
+    from auditor.overlap import build_mole, normalized_overlap
+
+    return normalized_overlap(build_mole(make_molecule(symbols, coords), BasisSpec(basis)))
+
+
+_DIMER = (WATER[0] * 2, WATER[1] + [[x + 2.9, y, z] for x, y, z in WATER[1]])
+_PASTED = (_DIMER[0] + ["H"], _DIMER[1] + [[0.0, 0.7572, -0.4692]])   # a second H on top of H2
+
+
+@pytest.mark.parametrize("symbols, coords, basis", [
+    (*_DIMER, "aug-cc-pvtz"),        # clean, a few hundred functions
+    (*_PASTED, "aug-cc-pvtz"),       # exactly singular: a degenerate null space
+    (*_DIMER, "d-aug-cc-pvtz"),      # doubly augmented: many small eigenvalues
+])
+def test_selective_spectrum_matches_dense_eigh(symbols, coords, basis):
+    # reference: numpy.linalg.eigh (LAPACK syevd) of the same overlap matrix
+    from auditor.orthogonalize import CANDIDATES
+    from auditor.spectrum import _SELECTIVE_FROM, _selective, full_spectrum, max_transform_element
+
+    S = _overlap(symbols, coords, basis)
+    assert S.shape[0] >= _SELECTIVE_FROM and _selective(S, 1e-5, 3) is not None  # the path under test ran
+    spec = full_spectrum(S, vector_level=1e-5)
+    w, U = np.linalg.eigh(S)
+    assert np.allclose(spec.values, w, rtol=0, atol=1e-13)
+    k = spec.vectors.shape[1]
+    assert k >= 3 and np.allclose(spec.vectors.T @ spec.vectors, np.eye(k), atol=1e-10)
+    if w[k] - w[k - 1] > 1e-6 * w[k]:  # the near-null space is well defined: same span as eigh's
+        P, Q = spec.vectors @ spec.vectors.T, U[:, :k] @ U[:, :k].T
+        assert np.abs(P - Q).max() < 1e-8
+    # max |X| of canonical orthogonalization at every candidate, against X formed densely
+    for t in CANDIDATES:
+        keep = w >= t
+        X = U[:, keep] / np.sqrt(w[keep])
+        got = max_transform_element(spec.values, spec.column_max, int(np.sum(~keep)))
+        assert got == pytest.approx(np.abs(X).max(), rel=1e-6), t
+
+
+def test_growth_without_enough_columns_is_not_guessed():
+    # two computed columns, the third eigenvalue small enough that an uncomputed column could win
+    values = np.array([1e-4, 2e-4, 3e-4, 1.0])
+    assert max_transform_element_of(values, np.array([0.5, 0.5]), 0) is None
+    # ... and certified once the computed maximum reaches the bound 1/sqrt(lambda_m)
+    assert max_transform_element_of(values, np.array([1.0, 0.5]), 0) == pytest.approx(100.0)
+    assert max_transform_element_of(values, np.array([0.5, 0.5, 0.5, 0.5]), 1) == pytest.approx(0.5 / np.sqrt(2e-4))
+
+
+def max_transform_element_of(values, colmax, n_removed):
+    from auditor.spectrum import max_transform_element
+
+    return max_transform_element(values, colmax, n_removed)
 
 
 def test_no_gap_uses_default():

@@ -64,26 +64,39 @@ def test_item_names_stay_unique(tree):
 
 
 def test_cache_round_trip_and_corrupt_entries(tmp_path):
+    import sqlite3
+
+    from auditor.cache import FORMAT
+
     cache = ResultCache(tmp_path)
     key = content_key({"a": [1.0, 2.5e-300], "b": "x"})
     assert key == content_key({"b": "x", "a": [1.0, 2.5e-300]})
     assert cache.get(key) is None
     cache.put(key, '{\n  "verdict": "pass"\n}\n')
     assert cache.get(key) == {"text": '{\n  "verdict": "pass"\n}\n', "data": {"verdict": "pass"}}
-    path = cache.path_for(key)
-    path.write_text('{"format": "auditor-cache/1", "key": "')  # truncated
-    assert cache.get(key) is None
-    path.write_text(json.dumps({"format": "auditor-cache/1", "key": "other", "report": "{}"}))
-    assert cache.get(key) is None
-    path.write_text(json.dumps({"format": "auditor-cache/1", "key": key, "report": "[1, 2"}))
-    assert cache.get(key) is None
+    assert cache.keys() == [key]
+    cache.close()
+    with sqlite3.connect(cache.path) as db:  # entries written by someone else
+        db.execute("INSERT INTO entries VALUES (?, ?, ?)", ("k-old", "auditor-cache/1", "{}"))
+        db.execute("INSERT INTO entries VALUES (?, ?, ?)", ("k-cut", FORMAT, '{"verdict": "pa'))
+        db.execute("INSERT INTO entries VALUES (?, ?, ?)", ("k-list", FORMAT, "[1, 2]"))
+    again = ResultCache(tmp_path)
+    assert again.get(key) is not None
+    assert all(again.get(k) is None for k in ("k-old", "k-cut", "k-list", "k-absent"))
+    again.close()
 
 
-def test_unwritable_cache_counts_failures_instead_of_raising(tmp_path):
+def test_unusable_cache_counts_failures_instead_of_raising(tmp_path):
     (tmp_path / "plain_file").write_text("")
-    cache = ResultCache(tmp_path / "plain_file" / "cache")
+    cache = ResultCache(tmp_path / "plain_file" / "cache")   # cannot be created
     cache.put(content_key({"a": 1}), "{}")
     assert cache.failed_writes == 1 and cache.get(content_key({"a": 1})) is None
+    (tmp_path / "junk").mkdir()
+    (tmp_path / "junk" / "results.sqlite").write_bytes(b"not a database at all, " * 100)
+    junk = ResultCache(tmp_path / "junk")
+    assert junk.get(content_key({"a": 1})) is None
+    junk.put(content_key({"a": 1}), "{}")
+    assert junk.failed_writes == 1 and junk.problem
 
 
 def test_default_cache_dir_follows_xdg(monkeypatch, tmp_path):
@@ -100,7 +113,7 @@ def test_key_ignores_file_name_but_not_geometry_or_options(tree):
                     LocalEngine(1), cache)
     # two files with the same geometry share one entry; a moved atom is a new entry
     assert run.computed + run.cached == 3
-    assert len(list((tree / "cache").rglob("*.json"))) == 2
+    assert len(ResultCache(tree / "cache").keys()) == 2
     strict = GateOptions(OPTIONS.spec, Policy(caution=1e-4, fail=1e-6))
     again = run_batch(["set/water.xyz"], strict, tree / "out2", LocalEngine(1), cache)
     assert again.cached == 0 and again.computed == 1

@@ -270,6 +270,7 @@ def test_audit_refuses_before_building_S(tmp_path, monkeypatch):
         raise AssertionError("S was built although the memory guard should refuse")
 
     monkeypatch.setattr(auditor.large, "available_bytes", lambda: 64 * 1024 ** 2)
+    monkeypatch.setattr(auditor.large, "_SMALL_BYTES", 0)  # this molecule is small enough to skip the check
     monkeypatch.setattr(auditor.api, "normalized_overlap", must_not_build)
     xyz = _write_trimer_with_ghost(tmp_path / "g.xyz", 0.5)
     with pytest.raises(ResourceError, match=r"needs about .* GB .* only 0\.1 GB is available"):

@@ -1,33 +1,36 @@
 """Writers: each reads an AuditResult (never recomputes) and writes one format."""
 from __future__ import annotations
 
+import itertools
 import os
-import tempfile
 from pathlib import Path
 
 
-def _umask() -> int:
-    mask = os.umask(0)
-    os.umask(mask)
-    return mask
+_serial = itertools.count()
 
 
 def atomic_write(path: Path, data: str | bytes) -> None:
     """Write ``data`` to ``path`` through a temporary file and a rename, so that an
     interrupted run never leaves a half-written report. The file gets the usual
-    permissions (0666 less the umask), not mkstemp's private 0600."""
+    permissions (0666 less the umask); missing parent folders are created."""
     path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    mode = "wb" if isinstance(data, bytes) else "w"
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
+    raw = data if isinstance(data, bytes) else data.encode("utf-8")
+    tmp = path.parent / f".{path.name}.{os.getpid()}.{next(_serial)}.tmp"
+    flags = os.O_WRONLY | os.O_CREAT | os.O_EXCL | getattr(os, "O_CLOEXEC", 0)
     try:
-        with os.fdopen(fd, mode, **({} if isinstance(data, bytes) else {"encoding": "utf-8"})) as fh:
-            fh.write(data)
-        os.chmod(tmp, 0o666 & ~_umask())
+        fd = os.open(tmp, flags, 0o666)
+    except FileNotFoundError:
+        path.parent.mkdir(parents=True, exist_ok=True)
+        fd = os.open(tmp, flags, 0o666)
+    except FileExistsError:  # left by a killed process that had the same pid
+        tmp.unlink()
+        fd = os.open(tmp, flags, 0o666)
+    try:
+        with os.fdopen(fd, "wb") as fh:
+            fh.write(raw)
         os.replace(tmp, path)
     except BaseException:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
+        tmp.unlink(missing_ok=True)
         raise
 
 

@@ -9,8 +9,17 @@ from . import atomic_write
 
 
 def _clean(x):
+    t = type(x)
+    if t is float:
+        return x if x - x == 0.0 else None  # NaN and +-inf become null
+    if t is dict:
+        return {k: _clean(v) for k, v in x.items()}
+    if t is list or t is tuple:
+        return [_clean(v) for v in x]
+    if t is str or t is int or t is bool or x is None:
+        return x
     if isinstance(x, float):
-        return x if math.isfinite(x) else None
+        return _clean(float(x))
     if isinstance(x, dict):
         return {k: _clean(v) for k, v in x.items()}
     if isinstance(x, (list, tuple)):
@@ -20,9 +29,14 @@ def _clean(x):
     return x
 
 
-def to_json(result) -> str:
-    """Deterministic JSON text of a result (non-finite numbers become null)."""
-    return json.dumps(_clean(result.as_dict()), indent=2, ensure_ascii=False, allow_nan=False) + "\n"
+def to_json(result, compact: bool = False) -> str:
+    """Deterministic JSON text of a result (non-finite numbers become null).
+
+    ``compact``: one line without indentation (what ``gate`` stores per item; about
+    five times faster to write, the same content)."""
+    indent, separators = (None, (",", ":")) if compact else (2, None)
+    return json.dumps(_clean(result.as_dict()), indent=indent, separators=separators,
+                      ensure_ascii=False, allow_nan=False) + "\n"
 
 
 def write_json(result, path: Path) -> Path:

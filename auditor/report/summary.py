@@ -55,6 +55,22 @@ def error_row(path: str, frame: int | None, item: str, basis: str, message: str)
     }
 
 
+def prefetch_libraries() -> None:
+    """Import pandas and its Parquet engine in a background thread, so that the import
+    overlaps work that waits on other processes (Python's import lock makes a later
+    ``import pandas`` wait for this one instead of importing twice)."""
+    import threading
+
+    def load() -> None:
+        try:
+            import pandas  # noqa: F401
+            import pyarrow.parquet  # noqa: F401
+        except Exception:  # noqa: BLE001 - the writer imports again and reports the problem itself
+            pass
+
+    threading.Thread(target=load, name="auditor-prefetch", daemon=True).start()
+
+
 def summary_frame(rows: list[dict]):
     """pandas DataFrame with the summary columns and stable dtypes."""
     import pandas as pd
