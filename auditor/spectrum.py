@@ -117,7 +117,8 @@ def _selective(S: np.ndarray, vector_level: float, min_vectors: int):
 
     n = S.shape[0]
     lwork = int(lapack.dsytrd_lwork(n, lower=1)[0])
-    a, d, e, tau, info = lapack.dsytrd(S, lower=1, lwork=lwork)  # works on a copy of S
+    # S is symmetric: hand LAPACK its Fortran-ordered view, which it copies without transposing
+    a, d, e, tau, info = lapack.dsytrd(S.T if S.flags.c_contiguous else S, lower=1, lwork=lwork)
     if info != 0:
         return None
     values = eigvalsh_tridiagonal(d, e, lapack_driver="sterf")
@@ -125,15 +126,15 @@ def _selective(S: np.ndarray, vector_level: float, min_vectors: int):
     # a growth figure certified there is certified for every smaller threshold too
     r_max = int(np.searchsorted(values, max(GROWTH_LEVEL, vector_level), side="left"))
     need = max(select_null_vectors(values, vector_level, min_vectors), r_max + 1)
-    reflectors = a[1:, : n - 1]
+    reflectors = np.asfortranarray(a[1:, : n - 1])  # one copy, not one per dormqr call
     blocks: list[np.ndarray] = []
     m, target = 0, min(n, need)
     while True:
         if target > n // 3:
             return None
         _, z = eigh_tridiagonal(d, e, select="i", select_range=(m, target - 1), lapack_driver="stemr")
-        lw = int(lapack.dormqr("L", "N", reflectors, tau, z[1:], lwork=-1)[1][0])
-        zq, _, info = lapack.dormqr("L", "N", reflectors, tau, z[1:], lwork=max(lw, 1), overwrite_c=1)
+        lw = 64 * z.shape[1] + 65 * 64  # blocked dormqr's optimum (block 64); a query would copy the reflectors
+        zq, _, info = lapack.dormqr("L", "N", reflectors, tau, z[1:], lwork=lw, overwrite_c=1)
         if info != 0:
             return None
         z[1:] = zq

@@ -34,9 +34,12 @@ def to_json(result, compact: bool = False) -> str:
 
     ``compact``: one line without indentation (what ``gate`` stores per item; about
     five times faster to write, the same content)."""
-    indent, separators = (None, (",", ":")) if compact else (2, None)
-    return json.dumps(_clean(result.as_dict()), indent=indent, separators=separators,
-                      ensure_ascii=False, allow_nan=False) + "\n"
+    options = dict(indent=None, separators=(",", ":")) if compact else dict(indent=2)
+    data = result.as_dict()
+    try:  # usually nothing needs cleaning: let the encoder find out (it refuses NaN and numpy types)
+        return json.dumps(data, ensure_ascii=False, allow_nan=False, **options) + "\n"
+    except (ValueError, TypeError):
+        return json.dumps(_clean(data), ensure_ascii=False, allow_nan=False, **options) + "\n"
 
 
 def write_json(result, path: Path) -> Path:
