@@ -184,7 +184,9 @@ def _pstrf(S: np.ndarray, tol: float) -> tuple[np.ndarray, np.ndarray]:
     if info < 0:
         raise RuntimeError(f"dpstrf rejected argument {-info}")
     rank = int(rank) if info == 1 else n
-    factor = np.tril(c[:rank, :rank])
+    factor = c[:rank, :rank]
+    for j in range(1, rank):  # zero the strict upper triangle in place (np.tril would copy);
+        factor[:j, j] = 0.0   # columns are contiguous in LAPACK's Fortran order
     return (np.asarray(piv[:rank], dtype=np.intp) - 1), factor
 
 

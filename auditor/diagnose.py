@@ -11,6 +11,7 @@ import numpy as np
 
 from .geometry import BOHR_IN_ANGSTROM, ELEMENTS, Molecule
 from .overlap import L_LETTERS, FunctionTable
+from .spectrum import SCAN_BYTES
 
 COINCIDENT_ANGSTROM = 0.01        # closer than this, two centres are one: S is singular
 SHORT_CONTACT_RATIO = 0.6         # d < 0.6 (r_i + r_j): far shorter than any bond
@@ -140,7 +141,7 @@ def _row_blocks(n: int, block: int):
 def duplicate_findings(S: np.ndarray, table: FunctionTable, block: int | None = None) -> list[Finding]:
     """Pairs of distinct functions with |S_ij| >= DUPLICATE_OVERLAP, grouped by atom pair."""
     n = S.shape[0]
-    block = block or max(64, 2**25 // (8 * max(n, 1)))  # about 32 MB of rows at a time
+    block = block or max(64, SCAN_BYTES // (8 * max(n, 1)))  # rows of about SCAN_BYTES at a time
     pairs_i, pairs_j, vals = [], [], []
     for lo, hi in _row_blocks(n, block):
         rows = np.abs(S[lo:hi, lo:])
@@ -186,9 +187,10 @@ def gaussian_s_overlap(a: float, b: float, r_bohr: float) -> float:
 
 
 def _diffuse_block_maxima(S: np.ndarray, table: FunctionTable, shells: np.ndarray,
-                          chunk_bytes: int = 2**25) -> np.ndarray:
+                          chunk_bytes: int | None = None) -> np.ndarray:
     """max |S_ij| over the functions of every pair of the given shells, read in row chunks
     of whole shells so that no copy of the diffuse block of S is made."""
+    chunk_bytes = chunk_bytes or SCAN_BYTES
     funcs = np.flatnonzero(np.isin(table.func_shell, shells))
     order = np.searchsorted(shells, table.func_shell[funcs])
     starts = np.flatnonzero(np.r_[True, order[1:] != order[:-1]])

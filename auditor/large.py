@@ -25,6 +25,7 @@ from scipy.sparse.linalg import LinearOperator, eigsh
 from .errors import ResourceError, UsageError
 from .spectrum import (
     COUNT_LEVELS,
+    SCAN_BYTES,
     Spectrum,
     gershgorin_lower_bound,
     level_key,
@@ -180,7 +181,7 @@ def _fortran_view(S: np.ndarray) -> np.ndarray:
     raise ValueError("the large path needs a contiguous S (C or Fortran order)")
 
 
-def _restore_lower(A: np.ndarray, diag: np.ndarray, shift: float = 0.0, block: int = 256) -> None:
+def _restore_lower(A: np.ndarray, diag: np.ndarray, shift: float = 0.0, block: int = 64) -> None:
     """Overwrite the lower triangle of A with the mirror of its strict upper triangle.
 
     The diagonal becomes ``diag - shift``; no N x N temporary is made.
@@ -361,15 +362,12 @@ def _householder(X: np.ndarray) -> None:
         X[...] = q
 
 
-def _worst_residual(X: np.ndarray, Y: np.ndarray, U: np.ndarray, theta: np.ndarray) -> float:
-    """max_i ||Y u_i - theta_i X u_i|| / theta_i, in column chunks to bound memory."""
-    worst = 0.0
-    for c0 in range(0, U.shape[1], 64):
-        Uc = np.asfortranarray(U[:, c0:c0 + 64])
-        R = blas.dgemm(1.0, Y, Uc)
-        R -= blas.dgemm(1.0, X, Uc) * theta[c0:c0 + 64]
-        worst = max(worst, float((np.linalg.norm(R, axis=0) / theta[c0:c0 + 64]).max()))
-    return worst
+def _times_in_place(X: np.ndarray, U: np.ndarray, rows: int = 4096) -> None:
+    """X[:, :c] = X @ U for U with c columns, by row blocks (no N x c temporary)."""
+    c = U.shape[1]
+    Uf = np.asfortranarray(U)
+    for r0 in range(0, X.shape[0], rows):
+        X[r0:r0 + rows, :c] = X[r0:r0 + rows] @ Uf
 
 
 def _smallest_eigenpairs(
@@ -378,9 +376,14 @@ def _smallest_eigenpairs(
     """k smallest eigenpairs of S from the Cholesky factor L of S - shift*I (lower triangle).
 
     Restarted block Krylov iteration on A = (S - shift*I)^-1: from a block X of p > k
-    columns the basis [X, AX, A^2 X, ...] (``KRYLOV_DEPTH`` blocks, orthonormalized)
-    gives Rayleigh-Ritz pairs of A; the p leading Ritz vectors restart it. Each
-    application of A is one BLAS-3 solve with p right-hand sides.
+    columns the basis Q = [X, AX, A^2 X, ...] (``KRYLOV_DEPTH`` blocks, orthonormalized
+    against each other) gives Rayleigh-Ritz pairs of A; the p leading Ritz vectors
+    restart it. Each application of A is one BLAS-3 solve with p right-hand sides.
+
+    Only Q and the image W = A Q_last of its last block are stored: A Q_j for an earlier
+    block lies in span(Q) (the next block was made from it), so H = Q^T A Q is filled
+    block column by block column as the images appear, and the residual of a Ritz pair
+    (theta, u) is (W - Q Q^T W) u_last, with u_last its last-block components.
     """
     n = L.shape[0]
     p = _block_size(k, n)
@@ -388,7 +391,8 @@ def _smallest_eigenpairs(
     m = depth * p
     rng = np.random.default_rng(seed)
     Q = np.empty((n, m), order="F")   # orthonormal Krylov basis
-    AQ = np.empty((n, m), order="F")  # A applied to it
+    W = np.empty((n, p), order="F")   # A applied to the newest block
+    H = np.zeros((m, m))              # Q^T A Q, upper block triangle as computed
     Q[:, :p] = rng.standard_normal((n, p))
     _orthonormalize(Q[:, :p])
     worst = np.inf
@@ -396,31 +400,38 @@ def _smallest_eigenpairs(
     for it in range(1, maxiter + 1):
         for j in range(depth):
             blk = slice(j * p, (j + 1) * p)
-            if j > 0 or it == 1 or depth == 1:  # after a restart A X is known already
-                AQ[:, blk] = Q[:, blk]
-                _, status = lapack.dpotrs(L, AQ[:, blk], lower=1, overwrite_b=1)
-                if status != 0:
-                    raise RuntimeError(f"dpotrs failed ({status})")
-                solves += p
+            W[...] = Q[:, blk]
+            _, status = lapack.dpotrs(L, W, lower=1, overwrite_b=1)
+            if status != 0:
+                raise RuntimeError(f"dpotrs failed ({status})")
+            solves += p
+            done = Q[:, :(j + 1) * p]
+            H[:(j + 1) * p, blk] = blas.dgemm(1.0, done, W, trans_a=1)
             if j + 1 < depth:
-                nxt = slice((j + 1) * p, (j + 2) * p)
-                Q[:, nxt] = AQ[:, blk]
-                done = Q[:, :(j + 1) * p]
-                for _ in range(2):  # classical Gram-Schmidt, twice
-                    Q[:, nxt] -= done @ (done.T @ Q[:, nxt])
-                _orthonormalize(Q[:, nxt])
-        H = blas.dgemm(1.0, Q, AQ, trans_a=1)
-        theta, U = np.linalg.eigh(0.5 * (H + H.T))
+                nxt = Q[:, (j + 1) * p:(j + 2) * p]
+                nxt[...] = W
+                for _ in range(2):  # classical Gram-Schmidt, twice, in place
+                    out = blas.dgemm(-1.0, done, blas.dgemm(1.0, done, nxt, trans_a=1), beta=1.0, c=nxt,
+                                     overwrite_c=1)
+                    if not np.shares_memory(out, nxt):
+                        nxt[...] = out
+                _orthonormalize(nxt)
+        Hs = np.triu(H)
+        for j in range(depth):  # the lower block triangle is the transpose of the upper one
+            blk = slice(j * p, (j + 1) * p)
+            Hs[blk, blk] = H[blk, blk]
+            Hs[(j + 1) * p:, blk] = H[blk, (j + 1) * p:].T
+        theta, U = np.linalg.eigh(0.5 * (Hs + Hs.T))
         theta, U = theta[::-1], np.asfortranarray(U[:, ::-1])
-        worst = _worst_residual(Q, AQ, U[:, :k], theta[:k])
+        last = slice(m - p, m)
+        worst = _worst_residual(Q, W, H[:, last], U[last, :k], theta[:k])
         if worst <= tol or it == maxiter or m >= n:
             vectors = blas.dgemm(1.0, Q, U[:, :k])
             break
-        if depth > 1:  # restart from the leading Ritz vectors Y = Q U, with A Y = (AQ) U
-            Q[:, :p] = blas.dgemm(1.0, Q, U[:, :p])
-            AQ[:, :p] = blas.dgemm(1.0, AQ, U[:, :p])
-        else:  # small N: plain subspace iteration, restart from A X
-            Q[:, :p] = blas.dgemm(1.0, AQ, U[:, :p])
+        if depth > 1:  # restart from the leading Ritz vectors Q U
+            _times_in_place(Q, U[:, :p])
+        else:  # small N: plain subspace iteration, restart from A X = W
+            Q[:, :p] = blas.dgemm(1.0, W, U[:, :p])
             _orthonormalize(Q[:, :p])
     info["iterations"] = it
     info["block"] = p
@@ -428,7 +439,19 @@ def _smallest_eigenpairs(
     info["column_solves"] = solves
     info["residual"] = worst
     values = 1.0 / theta[:k] + shift
-    return values, np.ascontiguousarray(vectors)
+    return values, vectors
+
+
+def _worst_residual(Q: np.ndarray, W: np.ndarray, HW: np.ndarray, U_last: np.ndarray,
+                    theta: np.ndarray) -> float:
+    """max_i ||(W - Q HW) u_i|| / theta_i with HW = Q^T W, in column chunks (bounded memory)."""
+    worst = 0.0
+    for c0 in range(0, U_last.shape[1], 64):
+        Uc = np.asfortranarray(U_last[:, c0:c0 + 64])
+        R = blas.dgemm(1.0, W, Uc)
+        R = blas.dgemm(-1.0, Q, HW @ Uc, beta=1.0, c=R, overwrite_c=1)
+        worst = max(worst, float((np.linalg.norm(R, axis=0) / theta[c0:c0 + 64]).max()))
+    return worst
 
 
 # --------------------------------------------------------------------------- spectrum
@@ -462,7 +485,7 @@ def large_spectrum(
     A = _fortran_view(S)
     tau = float(vector_level)
     t0 = time.perf_counter()
-    bound = gershgorin_lower_bound(S, block=max(16, min(2048, (1 << 25) // max(1, 8 * n))))
+    bound = gershgorin_lower_bound(S, block=max(16, min(2048, SCAN_BYTES // max(1, 8 * n))))
     largest = _largest_eigenvalue(A)
     info["t_largest"] = time.perf_counter() - t0
 
@@ -496,7 +519,8 @@ def large_spectrum(
         )
         info["t_eigenpairs"] = time.perf_counter() - t1
         order = np.argsort(values, kind="stable")
-        values, vectors = values[order], vectors[:, order]
+        if np.any(order != np.arange(order.size)):  # usually sorted already: no copy then
+            values, vectors = values[order], vectors[:, order]
         info["ritz_below_vector_level"] = int(np.searchsorted(values, tau))
 
         # 4. Counts that are established; the rest stay None.
@@ -529,6 +553,8 @@ def large_spectrum(
         method="large",
         complete=False,
         column_max=np.abs(vectors).max(axis=0),
+        # exactly below_tau eigenvalues lie below tau, so the first one not computed is >= tau
+        beyond=tau if values.size >= below_tau else None,
     )
 
 

@@ -5,7 +5,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .spectrum import Spectrum, max_transform_element
+from .spectrum import Spectrum
 
 CANDIDATES: tuple[float, ...] = tuple(10.0 ** -k for k in range(4, 10))  # 1e-4 ... 1e-9
 MIN_GAP_DECADES = 1.0   # a gap this wide in log10(lambda) is a natural cut
@@ -79,14 +79,14 @@ def find_gap(values: np.ndarray, window=GAP_WINDOW, min_decades: float = MIN_GAP
     return best
 
 
-def candidate(spec: Spectrum, threshold: float, colmax: np.ndarray | None) -> Candidate:
+def candidate(spec: Spectrum, threshold: float) -> Candidate:
     """What canonical orthogonalization at ``threshold`` removes and keeps."""
     n_removed = spec.count_below(threshold)
     smallest_kept = None
     growth = None
     if n_removed is not None and n_removed < spec.values.size:
         smallest_kept = float(spec.values[n_removed])
-        growth = max_transform_element(spec.values, colmax, n_removed)
+        growth = spec.growth(n_removed)
     return Candidate(threshold, n_removed, smallest_kept, growth)
 
 
@@ -98,7 +98,6 @@ def advise(spec: Spectrum, default_threshold: float, min_kept: float = 0.0) -> R
     is the natural place; otherwise ``default_threshold``. Candidates
     1e-4 ... 1e-9 are tabulated so that the user can judge.
     """
-    colmax = spec.column_max if spec.complete else None
     gap = find_gap(spec.values, min_kept=min_kept)
     if gap is not None:
         tau = float(f"{gap[0]:.1e}")
@@ -108,7 +107,7 @@ def advise(spec: Spectrum, default_threshold: float, min_kept: float = 0.0) -> R
         tau = default_threshold
         reason = (f"no clear gap in the spectrum between {GAP_WINDOW[0]:.0e} and {GAP_WINDOW[1]:.0e}; "
                   f"the policy default {default_threshold:.0e} is used")
-    chosen = candidate(spec, tau, colmax)
+    chosen = candidate(spec, tau)
     if chosen.n_removed == 0:
         reason += "; nothing falls below it, so no function needs removing"
     how_to = (
@@ -123,6 +122,6 @@ def advise(spec: Spectrum, default_threshold: float, min_kept: float = 0.0) -> R
         n_removed=chosen.n_removed,
         smallest_kept=chosen.smallest_kept,
         max_transform_element=chosen.max_transform_element,
-        candidates=[candidate(spec, t, colmax) for t in CANDIDATES],
+        candidates=[candidate(spec, t) for t in CANDIDATES],
         how_to=how_to,
     )

@@ -9,6 +9,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
+#: size of the row blocks in which scans over S (bounds, findings) read it: a small,
+#: fixed extra beside S whatever its size
+SCAN_BYTES = 8 << 20
+
 #: Decades at which eigenvalues are counted ("1e-03" ... "1e-10").
 COUNT_LEVELS: tuple[float, ...] = tuple(10.0 ** -k for k in range(3, 11))
 
@@ -40,6 +44,13 @@ class Spectrum:
     #: max_i |U_ij| for the eigenvector columns j that were formed (the smallest ones;
     #: all of them on the dense path); see ``max_transform_element``
     column_max: np.ndarray | None = None
+    #: a lower bound on the first eigenvalue past ``values`` when they are not all known
+    beyond: float | None = None
+
+    def growth(self, n_removed: int) -> float | None:
+        """max |X| of canonical orthogonalization that removes ``n_removed`` directions,
+        when the computed eigenvectors certify it."""
+        return max_transform_element(self.values, self.column_max, n_removed, self.n, self.beyond)
 
     @property
     def condition_number(self) -> float | None:
@@ -81,15 +92,19 @@ GROWTH_LEVEL = 1e-4
 _SELECTIVE_FROM = 160
 
 
-def max_transform_element(values: np.ndarray, column_max: np.ndarray | None, n_removed: int) -> float | None:
+def max_transform_element(values: np.ndarray, column_max: np.ndarray | None, n_removed: int,
+                          n_total: int | None = None, beyond: float | None = None) -> float | None:
     """max |X_ij| of X = U_kept diag(lambda_kept)^-1/2 when the ``n_removed`` smallest
     directions go, or None when the computed columns cannot certify it.
 
-    ``column_max`` holds max_i |U_ij| for the m smallest eigenvectors. A column j >= m
-    contributes at most 1/sqrt(lambda_m) (unit eigenvectors), so the maximum over the
-    computed kept columns is exact once it reaches that bound.
+    ``column_max`` holds max_i |U_ij| for the m smallest eigenvectors; ``values`` the
+    smallest eigenvalues (at least those m), of ``n_total`` in all (default: all of them
+    are in ``values``). A column j >= m contributes at most 1/sqrt(lambda_m) (unit
+    eigenvectors), so the maximum over the computed kept columns is exact once it
+    reaches that bound. ``beyond`` is a lower bound on lambda_m when ``values`` stops at m.
     """
-    if column_max is None or n_removed >= values.size:
+    n_total = values.size if n_total is None else n_total
+    if column_max is None or n_removed >= n_total:
         return None
     m = column_max.size
     if n_removed >= m:
@@ -98,8 +113,10 @@ def max_transform_element(values: np.ndarray, column_max: np.ndarray | None, n_r
     if kept[0] <= 0.0:
         return None
     g = float(np.max(column_max[n_removed:] / np.sqrt(kept)))
-    if m < values.size and g < 1.0 / np.sqrt(values[m]):
-        return None
+    if m < n_total:
+        following = values[m] if m < values.size else beyond
+        if following is None or following <= 0.0 or g < 1.0 / np.sqrt(following):
+            return None
     return g
 
 

@@ -298,3 +298,28 @@ def test_cli_spectrum_option_large_matches_full(tmp_path):
     assert got["large"]["method"] == "large" and got["full"]["method"] == "full"
     assert got["large"]["smallest"] == pytest.approx(got["full"]["smallest"], rel=1e-8)
     assert CliRunner().invoke(app, ["check", str(f), "-b", "sto-3g", "--spectrum", "fast"]).exit_code == 2
+
+
+def test_large_path_gives_max_X_only_where_certified():
+    # reference: X = U_kept diag(lambda_kept)^-1/2 formed from numpy.linalg.eigh; the large
+    # path reports max |X| of a candidate threshold only when its eigenvectors certify it
+    from auditor.orthogonalize import CANDIDATES
+
+    S = trimer_with_ghost(0.05)
+    w, U = reference(S)
+    spec = large_spectrum(S, vector_level=1e-5)
+    assert spec.beyond == 1e-5   # every eigenvalue below the level was computed
+    certified = 0
+    for t in CANDIDATES:
+        removed = int(np.sum(w < t))
+        got = spec.growth(removed)
+        if got is None:
+            continue
+        certified += 1
+        X = U[:, removed:] / np.sqrt(w[removed:])
+        assert got == pytest.approx(np.abs(X).max(), rel=1e-4), t
+    assert certified >= 1
+    # without the guarantee that nothing below the level was skipped, nothing is claimed
+    capped = large_spectrum(trimer_with_ghost(0.05), vector_level=1e-3, max_vectors=3)
+    assert int(np.sum(w < 1e-3)) > capped.values.size == 3
+    assert capped.beyond is None and all(capped.growth(r) is None for r in range(3))
