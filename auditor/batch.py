@@ -26,7 +26,7 @@ from .errors import AuditorError, UsageError
 from .geometry import Molecule
 from .policy import Policy
 from .report import atomic_write, report_stem
-from .report.summary import error_row, result_row
+from .report.summary import brief, error_row, result_row
 
 #: file names a directory argument contributes (recursively)
 GEOMETRY_PATTERNS = ("*.xyz", "*.extxyz")
@@ -226,7 +226,8 @@ def run_item(payload: str) -> str:
         spec = BasisSpec(p["basis"]["default"], dict(p["basis"]["per_element"]), bool(p["basis"]["cartesian"]))
         result = audit_prepared(prepare(mol, spec), Policy(**p["policy"]), p["spectrum_method"],
                                 remedies=bool(p.get("remedies", False)))
-        return json.dumps({"seconds": round(time.perf_counter() - t0, 6), "report": to_json(result, compact=True)})
+        return json.dumps({"seconds": round(time.perf_counter() - t0, 6), "report": to_json(result, compact=True),
+                           "brief": brief(result.as_dict())})
     except AuditorError as exc:
         return json.dumps({"error": exc.message})
     except MemoryError:
@@ -596,21 +597,25 @@ def run_batch(args: list[str], options: GateOptions, out: Path, engine, cache: R
                              "error": message}, indent=2) + "\n"
         done(it, error_row(it.path, it.frame, it.name, basis, message), report)
 
-    def finish(it: Item, text: str, result: dict) -> None:
+    def finish(it: Item, text: str, short: dict) -> None:
+        """``short``: the result's ``brief``; the whole report is parsed only when it
+        has to be rewritten for this item (a hit filled from another file)."""
         own = {"path": it.path, "frame": it.frame, "n_frames": it.n_frames}
-        if any(result["input"].get(k) != v for k, v in own.items()):  # a hit filled from another file
+        if any(short["input"].get(k) != v for k, v in own.items()):
+            result = json.loads(text)
             result["input"].update(own)
             text = to_json(_Stored(result), compact=True)
-        done(it, result_row(it.path, it.frame, it.name, result), text)
+        done(it, result_row(it.path, it.frame, it.name, short), text)
 
     def on_done(name: str, reply: dict, seconds: float) -> None:
         it = by_name[name]
         run.seconds[name] = reply.get("seconds", seconds)
         if "report" in reply:
             run.computed += 1
+            short = reply.get("brief") or brief(json.loads(reply["report"]))
             if cache is not None:
-                cache.put(it.key, reply["report"])
-            finish(it, reply["report"], json.loads(reply["report"]))
+                cache.put(it.key, reply["report"], short)
+            finish(it, reply["report"], short)
         else:
             fail(it, reply.get("error", "no result"))
 

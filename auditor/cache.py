@@ -1,4 +1,4 @@
-"""Result cache: a content hash -> the JSON text of one audit report, in one SQLite file.
+"""Result cache: a content hash -> the JSON text of one audit report (and its brief), in one SQLite file.
 
 Entries are JSON text in a table (never pickle), so a cache copied from elsewhere
 cannot run code; an entry of another format, or one that does not parse, is a miss.
@@ -14,7 +14,7 @@ import json
 import os
 from pathlib import Path
 
-FORMAT = "auditor-cache/3"
+FORMAT = "auditor-cache/4"
 FILE_NAME = "results.sqlite"
 
 
@@ -65,7 +65,8 @@ class ResultCache:
             db.execute("PRAGMA trusted_schema = OFF")
             db.execute("PRAGMA journal_mode = WAL")
             db.execute("PRAGMA synchronous = NORMAL")   # survives a killed process; only a power cut may lose the newest entries
-            db.execute("CREATE TABLE IF NOT EXISTS entries (key TEXT PRIMARY KEY, format TEXT NOT NULL, report TEXT NOT NULL)")
+            db.execute("CREATE TABLE IF NOT EXISTS results (key TEXT PRIMARY KEY, format TEXT NOT NULL, "
+                       "brief TEXT NOT NULL, report TEXT NOT NULL)")
         except (OSError, sqlite3.Error) as exc:
             self.problem = f"{self.path}: {exc}"
             return None
@@ -73,27 +74,28 @@ class ResultCache:
         return db
 
     def get(self, key: str) -> dict | None:
-        """The stored result as {"text": report JSON text, "data": parsed dict}, or None
-        when absent, unreadable or not ours."""
+        """The stored result as {"text": report JSON text, "data": its brief (a dict)},
+        or None when absent, unreadable or not ours."""
         import sqlite3
 
         db = self._connect(create=False)
         if db is None:
             return None
         try:
-            row = db.execute("SELECT format, report FROM entries WHERE key = ?", (key,)).fetchone()
+            row = db.execute("SELECT format, brief, report FROM results WHERE key = ?", (key,)).fetchone()
         except sqlite3.Error:
             return None
-        if row is None or row[0] != FORMAT or not isinstance(row[1], str):
+        if row is None or row[0] != FORMAT or not isinstance(row[1], str) or not isinstance(row[2], str):
             return None
         try:
             data = json.loads(row[1])
         except ValueError:
             return None
-        return {"text": row[1], "data": data} if isinstance(data, dict) else None
+        return {"text": row[2], "data": data} if isinstance(data, dict) else None
 
-    def put(self, key: str, report: str) -> None:
-        """Store the report text verbatim (a hit needs no re-encoding)."""
+    def put(self, key: str, report: str, brief: dict) -> None:
+        """Store the report text verbatim (a hit needs no re-encoding) with its brief
+        (what the summary row needs, so that a hit does not parse the whole report)."""
         import sqlite3
 
         db = self._connect(create=True)
@@ -101,8 +103,9 @@ class ResultCache:
             self.failed_writes += 1
             return
         try:
-            db.execute("INSERT OR REPLACE INTO entries (key, format, report) VALUES (?, ?, ?)", (key, FORMAT, report))
-        except sqlite3.Error:
+            db.execute("INSERT OR REPLACE INTO results (key, format, brief, report) VALUES (?, ?, ?, ?)",
+                       (key, FORMAT, json.dumps(brief), report))
+        except (sqlite3.Error, TypeError, ValueError):
             self.failed_writes += 1
 
     def keys(self) -> list[str]:
@@ -113,7 +116,7 @@ class ResultCache:
         if db is None:
             return []
         try:
-            return [k for (k,) in db.execute("SELECT key FROM entries WHERE format = ? ORDER BY key", (FORMAT,))]
+            return [k for (k,) in db.execute("SELECT key FROM results WHERE format = ? ORDER BY key", (FORMAT,))]
         except sqlite3.Error:
             return []
 

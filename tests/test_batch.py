@@ -72,14 +72,14 @@ def test_cache_round_trip_and_corrupt_entries(tmp_path):
     key = content_key({"a": [1.0, 2.5e-300], "b": "x"})
     assert key == content_key({"b": "x", "a": [1.0, 2.5e-300]})
     assert cache.get(key) is None
-    cache.put(key, '{\n  "verdict": "pass"\n}\n')
+    cache.put(key, '{\n  "verdict": "pass"\n}\n', {"verdict": "pass"})
     assert cache.get(key) == {"text": '{\n  "verdict": "pass"\n}\n', "data": {"verdict": "pass"}}
     assert cache.keys() == [key]
     cache.close()
     with sqlite3.connect(cache.path) as db:  # entries written by someone else
-        db.execute("INSERT INTO entries VALUES (?, ?, ?)", ("k-old", "auditor-cache/1", "{}"))
-        db.execute("INSERT INTO entries VALUES (?, ?, ?)", ("k-cut", FORMAT, '{"verdict": "pa'))
-        db.execute("INSERT INTO entries VALUES (?, ?, ?)", ("k-list", FORMAT, "[1, 2]"))
+        db.execute("INSERT INTO results VALUES (?, ?, ?, ?)", ("k-old", "auditor-cache/1", "{}", "{}"))
+        db.execute("INSERT INTO results VALUES (?, ?, ?, ?)", ("k-cut", FORMAT, '{"verdict": "pa', "{}"))
+        db.execute("INSERT INTO results VALUES (?, ?, ?, ?)", ("k-list", FORMAT, "[1, 2]", "{}"))
     again = ResultCache(tmp_path)
     assert again.get(key) is not None
     assert all(again.get(k) is None for k in ("k-old", "k-cut", "k-list", "k-absent"))
@@ -89,13 +89,13 @@ def test_cache_round_trip_and_corrupt_entries(tmp_path):
 def test_unusable_cache_counts_failures_instead_of_raising(tmp_path):
     (tmp_path / "plain_file").write_text("")
     cache = ResultCache(tmp_path / "plain_file" / "cache")   # cannot be created
-    cache.put(content_key({"a": 1}), "{}")
+    cache.put(content_key({"a": 1}), "{}", {})
     assert cache.failed_writes == 1 and cache.get(content_key({"a": 1})) is None
     (tmp_path / "junk").mkdir()
     (tmp_path / "junk" / "results.sqlite").write_bytes(b"not a database at all, " * 100)
     junk = ResultCache(tmp_path / "junk")
     assert junk.get(content_key({"a": 1})) is None
-    junk.put(content_key({"a": 1}), "{}")
+    junk.put(content_key({"a": 1}), "{}", {})
     assert junk.failed_writes == 1 and junk.problem
 
 
@@ -191,3 +191,18 @@ def test_judge_with_and_without_baseline():
     rows = [_row("g", "fail", 1e-8), _row("b", "fail", 1e-9)]
     judge(rows, allow)
     assert [(r["outcome"], r["note"]) for r in rows] == [("allowed", "legacy set"), ("blocked", "")]
+
+
+def test_brief_gives_the_same_summary_row_as_the_whole_report():
+    # the cache and the workers hand over a brief; the row must not depend on which one is read
+    import auditor
+    from auditor.report.json import to_json
+    from auditor.report.summary import brief, result_row
+
+    from conftest import make_molecule
+
+    pasted = make_molecule(WATER[0] + ["H"], WATER[1] + [WATER[1][1]])   # coincident atoms: error finding
+    for mol in (make_molecule(*WATER), pasted):
+        full = json.loads(to_json(auditor.audit(mol, "aug-cc-pvdz", remedies=False)))
+        assert result_row("p.xyz", 1, "p", brief(full)) == result_row("p.xyz", 1, "p", full)
+        assert brief(json.loads(json.dumps(brief(full)))) == brief(full)

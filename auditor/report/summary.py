@@ -30,6 +30,21 @@ def main_reason(result: dict) -> str:
     return result.get("verdict_reason", "")
 
 
+def brief(result: dict) -> dict:
+    """The parts of a JSON result that ``result_row`` and the input check of a cached
+    result read, in the same layout (a few hundred bytes instead of the whole report)."""
+    inp, spec, rec = result["input"], result["spectrum"], result["recommendation"]
+    errors = [f for f in result.get("findings", []) if f.get("severity") == "error"][:1]
+    return {
+        "input": {k: inp.get(k) for k in ("path", "frame", "n_frames", "basis", "n_atoms", "n_functions")},
+        "spectrum": {k: spec.get(k) for k in ("smallest", "condition_number")},
+        "verdict": result["verdict"], "verdict_reason": result.get("verdict_reason", ""),
+        "findings": [{"severity": f["severity"], "message": f["message"]} for f in errors],
+        "causes": {"atoms": result["causes"]["atoms"][:1]},
+        "recommendation": {k: rec.get(k) for k in ("threshold", "n_removed")},
+    }
+
+
 def result_row(path: str, frame: int, item: str, result: dict) -> dict:
     """Summary row of one audited item, read from its JSON result."""
     spec, rec, atoms = result["spectrum"], result["recommendation"], result["causes"]["atoms"]
