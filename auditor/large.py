@@ -33,11 +33,11 @@ from .spectrum import (
 )
 
 #: method="auto" uses the large path from this many basis functions on. Measured on this
-#: 2-core machine (water clusters in aug-cc-pVTZ, spectrum step only, best of 3, load < 1):
-#:   N       552   1012  1564  2024  2576  3036
-#:   full s  0.04  0.14  0.39  0.67  1.47  3.67
-#:   large s 0.02  0.04  0.24  0.32  0.63  1.02
-#: The large path is faster throughout, but below ~3000 functions the full path costs
+#: 2-core machine (water clusters in aug-cc-pVTZ, spectrum step only, 2 December 2026):
+#:   N       1012  1564  2024  2576  3036
+#:   full s  0.12  0.63  0.84  1.95  2.93
+#:   large s 0.12  0.21  0.41  0.62  1.01
+#: The large path is faster from ~1500 on, but below ~3000 functions the full path costs
 #: seconds and gives the complete spectrum (every count, gap and growth for the advice).
 CROSSOVER_N = 3000
 
