@@ -385,7 +385,10 @@ class LocalEngine:
             from multiprocessing import forkserver
 
             with _thread_env(self.threads):
-                forkserver.ensure_running()
+                try:
+                    forkserver.ensure_running()
+                except OSError:
+                    pass  # run() falls back to spawned workers
 
     def run(self, tasks: list[tuple[str, str]], on_done, check: tuple | None = None) -> None:
         """Run (name, payload) tasks; call on_done(name, reply dict, seconds) as each ends.
@@ -401,8 +404,15 @@ class LocalEngine:
         failed_starts = 0
 
         def start() -> _Worker:
+            nonlocal ctx
             with _thread_env(self.threads):
-                return _Worker(ctx, self.task, check)
+                try:
+                    return _Worker(ctx, self.task, check)
+                except OSError:  # no fork server here (e.g. no room for its socket): spawn instead
+                    if ctx.get_start_method() != "forkserver":
+                        raise
+                    ctx = mp.get_context("spawn")
+                    return _Worker(ctx, self.task, check)
 
         def feed() -> None:
             for w in workers:

@@ -206,3 +206,17 @@ def test_brief_gives_the_same_summary_row_as_the_whole_report():
         full = json.loads(to_json(auditor.audit(mol, "aug-cc-pvdz", remedies=False)))
         assert result_row("p.xyz", 1, "p", brief(full)) == result_row("p.xyz", 1, "p", full)
         assert brief(json.loads(json.dumps(brief(full)))) == brief(full)
+
+
+def test_spawned_workers_give_the_same_reports(tree, monkeypatch):
+    # where no fork server is available the workers are spawned; the reports must not change
+    import multiprocessing as mp
+
+    import auditor.batch
+
+    forked = run_batch(["set/water.xyz"], OPTIONS, tree / "forked", LocalEngine(1), None)
+    monkeypatch.setattr(auditor.batch, "_worker_context", lambda: mp.get_context("spawn"))
+    spawned = run_batch(["set/water.xyz"], OPTIONS, tree / "spawned", LocalEngine(1), None)
+    assert forked.computed == spawned.computed == 1
+    assert (tree / "forked" / "items" / "set__water.json").read_text() == \
+        (tree / "spawned" / "items" / "set__water.json").read_text()
