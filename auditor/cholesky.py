@@ -15,6 +15,7 @@ Two facts drive the target search:
 """
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -377,12 +378,18 @@ def smallest_from_factor(factor: np.ndarray, rtol: float = 1e-10) -> float:
         return np.inf
     if k <= 200:
         return float(np.linalg.eigvalsh(factor @ factor.T)[0])
-    # U = factor.T in Fortran order: free when factor is a whole C-ordered array.
-    U = np.asfortranarray(factor.T)
+    # LAPACK wants a Fortran-ordered triangle: the factor itself (lower) when it is one,
+    # its transpose (upper) when it is C-ordered, else one copy (never one per solve).
+    if factor.flags.f_contiguous:
+        T, lower = factor, True
+    elif factor.flags.c_contiguous:
+        T, lower = factor.T, False
+    else:
+        T, lower = np.asfortranarray(factor), True
 
-    def apply(v):
-        y = scipy.linalg.solve_triangular(U, v, lower=False, trans="T", check_finite=False)
-        return scipy.linalg.solve_triangular(U, y, lower=False, check_finite=False)
+    def apply(v):  # (L L^T)^-1 v
+        y = scipy.linalg.solve_triangular(T, v, lower=lower, trans="N" if lower else "T", check_finite=False)
+        return scipy.linalg.solve_triangular(T, y, lower=lower, trans="T" if lower else "N", check_finite=False)
 
     op = scipy.sparse.linalg.LinearOperator((k, k), matvec=apply, dtype=np.float64)
     top = scipy.sparse.linalg.eigsh(
@@ -460,7 +467,8 @@ def select_for_target(
         if search == "shifted":
             shifted = S[np.ix_(p, p)]
             shifted[np.diag_indices_from(shifted)] -= goal
-            _, info = lapack.dpotrf(shifted.T, lower=1, overwrite_a=1, clean=0)
+            info = lapack.dpotrf(shifted.T, lower=1, overwrite_a=1, clean=0)[1]
+            del shifted  # an N x N array: free it before the add-back pass builds its own
             facts += 1
             good = p.size if info == 0 else int(info) - 1
             k = int(ends[np.searchsorted(ends, good, side="right") - 1])
@@ -481,15 +489,20 @@ def select_for_target(
     order = res.pivots[:k].copy()
     blocks: list[int] = []
     factor = None
+    pivoted = res.factor
     if refine and 0 < k < n:
+        # The add-back pass factors S[order, order] - goal*I itself, and a prefix of that
+        # factor serves every check below: release the N x N pivoted factor first.
+        res = dataclasses.replace(res, factor=None)
+        pivoted = None
         order, blocks, factor = _add_back(S, order, _leftover_groups(res, k, shells, n), goal)
         facts += 1
     if mode != "none" and not (checked and not blocks):
         while order.size:
-            if mode == "lanczos" and blocks:
+            if mode == "lanczos" and factor is not None:  # order is a prefix of the factor's order
                 smallest = goal + smallest_from_factor(factor[: order.size, : order.size])
-            elif mode == "lanczos":
-                smallest = smallest_from_factor(res.factor[:k, :k])
+            elif mode == "lanczos" and pivoted is not None:
+                smallest = smallest_from_factor(pivoted[:k, :k])
             else:
                 smallest = _smallest(S, order)
             eigs += 1
@@ -609,8 +622,8 @@ def _add_back(S: np.ndarray, order: np.ndarray, groups: list[np.ndarray], goal: 
         return order, [], None
     A = S[np.ix_(order, order)]
     A[np.diag_indices_from(A)] -= goal
-    try:
-        L = scipy.linalg.cholesky(A, lower=True, overwrite_a=True, check_finite=False)
+    try:  # A is symmetric: its transpose is the Fortran-ordered array LAPACK factors in place
+        L = scipy.linalg.cholesky(A.T, lower=True, overwrite_a=True, check_finite=False)
     except np.linalg.LinAlgError:
         return order, [], None
     cand = np.concatenate(groups)
@@ -633,9 +646,12 @@ def _add_back(S: np.ndarray, order: np.ndarray, groups: list[np.ndarray], goal: 
         sizes.append(g.size)
         tails.append((Wg, Cc))
     order = np.concatenate(kept)
+    if not tails:
+        return order, sizes, L
     factor = np.zeros((order.size, order.size))
     k = L.shape[0]
     factor[:k, :k] = L
+    del L, A  # the same memory (L is A's transpose, factored in place)
     for Wg, Cc in tails:
         d = Cc.shape[0]
         factor[k : k + d, : Wg.shape[0]] = Wg.T

@@ -30,10 +30,10 @@ from .errors import InputError, UsageError
 from .geometry import ELEMENTS
 
 PRUNED_FORMAT = "auditor-pruned-basis/1"
-#: Peak number of N x N arrays the remedies hold beside S (measured: 4.9 at N = 11960,
-#: benchmarks/bench_large.py --remedies; the pivoted factor, the shifted copy, the
-#: add-back factor and the eigenvalue checks of the kept sets).
-REMEDY_COPIES = 5
+#: Peak number of N x N arrays the remedies hold beside S, rounded up (measured: 2.07 at
+#: N = 11960, audit with remedies on the large path: the pivoted factor, then the shifted
+#: copy or the add-back factor, each released before the next is made).
+REMEDY_COPIES = 3
 #: Above this many functions, kept sets are checked by Lanczos on their Cholesky factor
 #: instead of a dense eigvalsh (same number to ~1e-10 relative, several times faster).
 EIGVALSH_LIMIT = 1000
@@ -97,9 +97,10 @@ def smallest_eigenvalue(S: np.ndarray, idx: np.ndarray) -> float:
     sub = S[np.ix_(idx, idx)]
     if idx.size <= EIGVALSH_LIMIT:
         return float(np.linalg.eigvalsh(sub)[0])
-    try:
-        factor = scipy.linalg.cholesky(sub, lower=True, overwrite_a=True, check_finite=False)
+    try:  # sub is symmetric: factor its Fortran-ordered transpose in place
+        factor = scipy.linalg.cholesky(sub.T, lower=True, overwrite_a=True, check_finite=False)
     except np.linalg.LinAlgError:
+        del sub  # overwritten by the failed factorization
         return float(np.linalg.eigvalsh(S[np.ix_(idx, idx)])[0])
     return smallest_from_factor(factor)
 
