@@ -120,11 +120,6 @@ def max_transform_element(values: np.ndarray, column_max: np.ndarray | None, n_r
     return g
 
 
-def _dense(S: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    values, vectors = np.linalg.eigh(S)
-    return values, vectors
-
-
 def _selective(S: np.ndarray, vector_level: float, min_vectors: int):
     """All eigenvalues and the smallest eigenvectors from one tridiagonal reduction
     (LAPACK dsytrd; dsterf for the values; dstemr and the Householder back-transform
@@ -177,7 +172,7 @@ def full_spectrum(S: np.ndarray, vector_level: float, min_vectors: int = 3) -> S
     bound = gershgorin_lower_bound(S)
     picked = _selective(S, vector_level, min_vectors) if n >= _SELECTIVE_FROM else None
     if picked is None:
-        values, vectors = _dense(S)
+        values, vectors = np.linalg.eigh(S)
         colmax = np.abs(vectors).max(axis=0)
     else:
         values, vectors, colmax = picked
