@@ -8,15 +8,23 @@ Public API::
 """
 __version__ = "0.1.0"
 
-from .api import audit, audit_prepared, load_molecules, make_spec, prepare  # noqa: E402
-from .basis import BasisSpec  # noqa: E402
-from .errors import AuditorError, InputError, ResourceError, UsageError  # noqa: E402
-from .geometry import Molecule, read_geometry  # noqa: E402
-from .policy import Policy  # noqa: E402
-from .result import AuditResult  # noqa: E402
+_EXPORTS = {
+    "audit": "api", "audit_prepared": "api", "load_molecules": "api", "make_spec": "api", "prepare": "api",
+    "BasisSpec": "basis", "AuditorError": "errors", "InputError": "errors", "ResourceError": "errors",
+    "UsageError": "errors", "Molecule": "geometry", "read_geometry": "geometry", "Policy": "policy",
+    "AuditResult": "result",
+}
 
-__all__ = [
-    "audit", "audit_prepared", "prepare", "make_spec", "load_molecules", "read_geometry",
-    "AuditResult", "BasisSpec", "Molecule", "Policy",
-    "AuditorError", "InputError", "UsageError", "ResourceError",
-]
+__all__ = list(_EXPORTS)
+
+
+def __getattr__(name: str):
+    # Imported on first use, so that the command line can start worker processes before
+    # numpy and pyscf load in this one.
+    if name in _EXPORTS:
+        from importlib import import_module
+
+        value = getattr(import_module(f".{_EXPORTS[name]}", __name__), name)
+        globals()[name] = value
+        return value
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")

@@ -14,7 +14,6 @@ import os
 import signal
 import time
 from collections import deque
-from contextlib import contextmanager
 from dataclasses import dataclass, field
 from multiprocessing.connection import wait as wait_any
 from pathlib import Path
@@ -27,14 +26,10 @@ from .geometry import Molecule
 from .policy import Policy
 from .report import atomic_write, report_stem
 from .report.summary import brief, error_row, result_row
+from .workers import start_server, worker_context, worker_env
 
 #: file names a directory argument contributes (recursively)
 GEOMETRY_PATTERNS = ("*.xyz", "*.extxyz")
-#: thread pools of BLAS/OpenMP libraries, pinned in worker processes
-THREAD_VARS = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS",
-               "VECLIB_MAXIMUM_THREADS", "NUMEXPR_NUM_THREADS")
-#: glibc malloc tunables for worker processes (see _thread_env)
-MALLOC_VARS = {"MALLOC_MMAP_THRESHOLD_": str(64 << 20), "MALLOC_TRIM_THRESHOLD_": str(256 << 20)}
 ITEMS_DIR = "items"
 
 
@@ -266,29 +261,6 @@ def _preflight(check: tuple | None) -> str:
 
 # ---------------------------------------------------------------- local engine
 
-@contextmanager
-def _thread_env(threads: int):
-    """Environment for worker processes started inside: BLAS/OpenMP pools of ``threads``,
-    and glibc's malloc told to keep freed memory up to 64 MB instead of returning it.
-
-    A worker allocates arrays of the same few sizes for every item; returned to the
-    kernel, each would come back as fresh pages to fault in and zero, which on small
-    molecules costs about as much as the numerical work. (A user's own MALLOC_* settings win.)
-    """
-    wanted = {k: str(threads) for k in THREAD_VARS}
-    wanted.update({k: v for k, v in MALLOC_VARS.items() if k not in os.environ})
-    old = {k: os.environ.get(k) for k in wanted}
-    os.environ.update(wanted)
-    try:
-        yield
-    finally:
-        for k, v in old.items():
-            if v is None:
-                os.environ.pop(k, None)
-            else:
-                os.environ[k] = v
-
-
 def _worker_main(conn, task, check=None) -> None:
     """Worker process: import the integral library once, check the basis names, then
     audit items until told to stop."""
@@ -306,19 +278,6 @@ def _worker_main(conn, task, check=None) -> None:
             conn.send(("done", task(payload)))
     except (EOFError, BrokenPipeError, ConnectionResetError):
         return  # the parent is gone
-
-
-def _worker_context():
-    """forkserver where the platform has it, else spawn; never a plain fork.
-
-    The fork server is a fresh interpreter started with one BLAS/OpenMP thread, so no
-    thread pool exists when it forks; it imports the integral library once and every
-    worker inherits it (spawn would import it again in each worker)."""
-    if "forkserver" in mp.get_all_start_methods():
-        ctx = mp.get_context("forkserver")
-        ctx.set_forkserver_preload(["auditor.api", "auditor.batch", "pyscf.gto", "scipy.linalg"])
-        return ctx
-    return mp.get_context("spawn")
 
 
 #: a second item is queued in a worker's pipe only when its payload is this small, so
@@ -380,15 +339,7 @@ class LocalEngine:
     def warm_up(self) -> None:
         """Start the fork server now (it imports pyscf in the background) when something
         will surely be computed, so that the import overlaps reading the inputs."""
-        ctx = _worker_context()
-        if ctx.get_start_method() == "forkserver":
-            from multiprocessing import forkserver
-
-            with _thread_env(self.threads):
-                try:
-                    forkserver.ensure_running()
-                except OSError:
-                    pass  # run() falls back to spawned workers
+        start_server(self.threads)
 
     def run(self, tasks: list[tuple[str, str]], on_done, check: tuple | None = None) -> None:
         """Run (name, payload) tasks; call on_done(name, reply dict, seconds) as each ends.
@@ -399,13 +350,13 @@ class LocalEngine:
         queue = deque(tasks)
         if not queue:
             return
-        ctx = _worker_context()
+        ctx = worker_context()
         workers: list[_Worker] = []
         failed_starts = 0
 
         def start() -> _Worker:
             nonlocal ctx
-            with _thread_env(self.threads):
+            with worker_env(self.threads):
                 try:
                     return _Worker(ctx, self.task, check)
                 except OSError:  # no fork server here (e.g. no room for its socket): spawn instead

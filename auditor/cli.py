@@ -295,6 +295,10 @@ def main() -> None:
     import os
 
     try:
+        if sys.argv[1:2] == ["gate"]:
+            from .workers import start_early
+
+            start_early(sys.argv[1:])
         app()
     except KeyboardInterrupt:
         err.print("interrupted")

@@ -215,7 +215,7 @@ def test_spawned_workers_give_the_same_reports(tree, monkeypatch):
     import auditor.batch
 
     forked = run_batch(["set/water.xyz"], OPTIONS, tree / "forked", LocalEngine(1), None)
-    monkeypatch.setattr(auditor.batch, "_worker_context", lambda: mp.get_context("spawn"))
+    monkeypatch.setattr(auditor.batch, "worker_context", lambda: mp.get_context("spawn"))
     spawned = run_batch(["set/water.xyz"], OPTIONS, tree / "spawned", LocalEngine(1), None)
     assert forked.computed == spawned.computed == 1
     assert (tree / "forked" / "items" / "set__water.json").read_text() == \
