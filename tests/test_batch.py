@@ -220,3 +220,30 @@ def test_spawned_workers_give_the_same_reports(tree, monkeypatch):
     assert forked.computed == spawned.computed == 1
     assert (tree / "forked" / "items" / "set__water.json").read_text() == \
         (tree / "spawned" / "items" / "set__water.json").read_text()
+
+
+def test_command_line_starts_workers_early_only_when_nothing_is_cached(tmp_path, monkeypatch):
+    # common practice: start slow imports early only when they will surely be needed
+    import auditor.workers as workers
+    from auditor.cache import FILE_NAME
+
+    calls = []
+    monkeypatch.setattr(workers, "start_server", lambda *a: calls.append(a))
+    monkeypatch.setenv("XDG_CACHE_HOME", str(tmp_path / "xdg"))
+    cached = tmp_path / "warm"
+    cached.mkdir()
+    (cached / FILE_NAME).write_bytes(b"")
+    expected = {
+        ("gate", "set", "-b", "sto-3g"): 1,                                   # default cache absent
+        ("gate", "set", "--no-cache"): 1,
+        ("gate", "set", "--cache-dir", str(tmp_path / "empty")): 1,
+        ("gate", "set", "--cache-dir", str(cached)): 0,                       # results may be cached
+        ("gate", "set", f"--cache-dir={cached}"): 0,
+        ("gate", "set", "--engine", "dask", "--no-cache"): 0,                 # remote workers
+        ("gate", "--help"): 0,
+        ("check", "a.xyz", "--no-cache"): 0,
+    }
+    for argv, n in expected.items():
+        calls.clear()
+        workers.start_early(list(argv))
+        assert len(calls) == n, argv
