@@ -19,8 +19,9 @@ MANIFEST = "examples.toml"
 
 
 def find_examples() -> Path:
-    """example_geometries/ in the working folder, else beside the installed package."""
-    for base in (Path.cwd(), Path(__file__).resolve().parents[1]):
+    """example_geometries/ in the working folder (as a relative path, so that the reports
+    do not depend on where the checkout lives), else beside the installed package."""
+    for base in (Path("."), Path(__file__).resolve().parents[1]):
         folder = base / "example_geometries"
         if (folder / MANIFEST).is_file():
             return folder
