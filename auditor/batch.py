@@ -163,6 +163,11 @@ def _pyscf_version() -> str:
         return "unknown"
 
 
+def _versions() -> dict:
+    """The versions a result depends on, where it is computed."""
+    return {"auditor": __version__, "pyscf": _pyscf_version()}
+
+
 def _geometry(mol: Molecule) -> dict:
     return {
         "symbols": list(mol.symbols),
@@ -183,33 +188,32 @@ def run_context(options: GateOptions) -> dict:
         "policy": options.policy.as_dict(),
         "spectrum_method": options.spectrum_method,
         "remedies": options.remedies,
-        "versions": {"auditor": __version__, "pyscf": _pyscf_version()},
+        "versions": _versions(),
     }
 
 
-def item_key(item: Item, context: dict) -> str:
+def item_key(geometry: dict, context: dict) -> str:
     """Content hash of (geometry, basis, options, versions); the file name plays no part."""
-    return content_key({"geometry": _geometry(item.molecule), **context})
+    return content_key({"geometry": geometry, **context})
 
 
-def item_payload(item: Item, options: GateOptions) -> str:
-    """JSON text that a worker needs to audit ``item``."""
+def item_payload(item: Item, geometry: dict, context: dict) -> str:
+    """JSON text that a worker needs to audit ``item`` (``context``: ``run_context``)."""
     mol = item.molecule
     return json.dumps({
-        "geometry": _geometry(mol),
-        "source": item.path, "frame": mol.frame, "n_frames": mol.n_frames,
-        "basis": options.spec.as_dict(), "policy": options.policy.as_dict(),
-        "spectrum_method": options.spectrum_method, "remedies": options.remedies,
+        "geometry": geometry, "source": item.path, "frame": mol.frame, "n_frames": mol.n_frames,
+        "basis": context["basis"], "policy": context["policy"], "spectrum_method": context["spectrum_method"],
+        "remedies": context["remedies"], "versions": context["versions"],
     })
 
 
 def run_item(payload: str) -> str:
-    """Audit one item (worker side): JSON text in; JSON text out, {"report": <report JSON text>}
-    or {"error": "..."}."""
+    """Audit one item (worker side): JSON text in; JSON text out, {"report": <report JSON
+    text>, "brief": ..., "versions": ...} or {"error": "..."}."""
     import numpy as np
 
     from .api import audit_prepared, prepare
-    from .report.json import to_json
+    from .report.json import dumps_result
 
     p = json.loads(payload)
     t0 = time.perf_counter()
@@ -219,10 +223,10 @@ def run_item(payload: str) -> str:
                        charge=g["charge"], multiplicity=g["multiplicity"], source=p["source"],
                        frame=p["frame"], n_frames=p["n_frames"])
         spec = BasisSpec(p["basis"]["default"], dict(p["basis"]["per_element"]), bool(p["basis"]["cartesian"]))
-        result = audit_prepared(prepare(mol, spec), Policy(**p["policy"]), p["spectrum_method"],
-                                remedies=bool(p.get("remedies", False)))
-        return json.dumps({"seconds": round(time.perf_counter() - t0, 6), "report": to_json(result, compact=True),
-                           "brief": brief(result.as_dict())})
+        result = audit_prepared(prepare(mol, spec, p["spectrum_method"]), Policy(**p["policy"]),
+                                p["spectrum_method"], remedies=bool(p.get("remedies", False))).as_dict()
+        return json.dumps({"seconds": round(time.perf_counter() - t0, 6), "report": dumps_result(result, compact=True),
+                           "brief": brief(result), "versions": _versions()})
     except AuditorError as exc:
         return json.dumps({"error": exc.message})
     except MemoryError:
@@ -297,7 +301,7 @@ class _Worker:
 
     def wants(self) -> bool:
         """Room for another item: none in hand, or one whose successor can wait in the pipe."""
-        return self.ready and (not self.tasks or len(self.tasks) == 1)
+        return self.ready and len(self.tasks) < 2
 
     def assign(self, name: str, payload: str) -> None:
         if not self.tasks:
@@ -371,7 +375,8 @@ class LocalEngine:
                     w.assign(*queue.popleft())
 
         try:
-            workers = [start() for _ in range(min(self.jobs, len(queue)))]
+            for _ in range(min(self.jobs, len(queue))):
+                workers.append(start())  # one at a time, so that a failed start leaves none unstopped
             while queue or any(w.tasks for w in workers):
                 feed()
                 wait_any([w.conn for w in workers] + [w.proc.sentinel for w in workers],
@@ -490,16 +495,6 @@ class DaskEngine:
 
 # ---------------------------------------------------------------- the run
 
-class _Stored:
-    """A JSON result dict seen through the writer interface (``as_dict``)."""
-
-    def __init__(self, data: dict):
-        self._data = data
-
-    def as_dict(self) -> dict:
-        return self._data
-
-
 @dataclass
 class BatchRun:
     rows: list[dict]
@@ -527,7 +522,7 @@ def run_batch(args: list[str], options: GateOptions, out: Path, engine, cache: R
     Cached results are used as they are; fresh ones are stored. ``progress(done, total)``
     is called after every item. Rows come back in item order.
     """
-    from .report.json import to_json
+    from .report.json import dumps_result
 
     items_dir = Path(out) / ITEMS_DIR
     try:
@@ -565,40 +560,49 @@ def run_batch(args: list[str], options: GateOptions, out: Path, engine, cache: R
         if any(short["input"].get(k) != v for k, v in own.items()):
             result = json.loads(text)
             result["input"].update(own)
-            text = to_json(_Stored(result), compact=True)
+            text = dumps_result(result, compact=True)
         done(it, result_row(it.path, it.frame, it.name, short), text)
+
+    twins: dict[str, list[Item]] = {}   # items with the geometry of one being audited
 
     def on_done(name: str, reply: dict, seconds: float) -> None:
         it = by_name[name]
         run.seconds[name] = reply.get("seconds", seconds)
         if "report" in reply:
             run.computed += 1
-            short = reply.get("brief") or brief(json.loads(reply["report"]))
-            if cache is not None:
-                cache.put(it.key, reply["report"], short)
-            finish(it, reply["report"], short)
+            # a Dask worker may run other versions than the key says: do not store its result
+            if cache is not None and reply.get("versions") == context["versions"]:
+                cache.put(it.key, reply["report"], reply["brief"])
+            for each in [it, *twins.get(it.key, [])]:
+                finish(each, reply["report"], reply["brief"])
         else:
-            fail(it, reply.get("error", "no result"))
+            for each in [it, *twins.get(it.key, [])]:
+                fail(each, reply.get("error", "no result"))
+        run.cached += len(twins.get(it.key, []))  # served by the same computation
 
     context = run_context(options) if any(it.molecule is not None for it in items) else {}
-    todo = []
+    todo: list[tuple[Item, dict]] = []
     for it in items:
         if it.error:
             fail(it, it.error)
             continue
-        it.key = item_key(it, context)
+        geometry = _geometry(it.molecule)
+        it.key = item_key(geometry, context)
         hit = cache.get(it.key) if cache is not None else None
         if hit is not None:
             run.cached += 1
             finish(it, hit["text"], hit["data"])
+        elif it.key in twins:
+            twins[it.key].append(it)
         else:
-            todo.append(it)
-    check = (options.spec, tuple(sorted({s for it in todo for s in it.molecule.symbols})))
+            twins[it.key] = []
+            todo.append((it, geometry))
+    check = (options.spec, tuple(sorted({s for it, _ in todo for s in it.molecule.symbols})))
     if todo:
         from .report.summary import prefetch_libraries
 
         prefetch_libraries()  # the summary writer needs them; meanwhile this process mostly waits
-    engine.run([(it.name, item_payload(it, options)) for it in todo], on_done, check=check)
+    engine.run([(it.name, item_payload(it, g, context)) for it, g in todo], on_done, check=check)
     for stale in items_dir.iterdir():  # reports of items no longer in the set, temporary files of killed runs
         if stale.is_file() and (stale.name.startswith(".") or (stale.suffix == ".json" and stale.stem not in by_name)):
             stale.unlink(missing_ok=True)
@@ -613,12 +617,12 @@ def _rows_digest(rows: list[dict]) -> str:
     return hashlib.sha256(text.encode("utf-8")).hexdigest()
 
 
-def _summary_stamps(rows: list[dict], files) -> dict:
+def _summary_stamps(rows_digest: str, files) -> dict:
     """What run.json records to recognise the summary files on the next run."""
-    return {"rows": _rows_digest(rows), **{Path(f).name: file_digest(f) for f in files}}
+    return {"rows": rows_digest, **{Path(f).name: file_digest(f) for f in files}}
 
 
-def _summaries_if_unchanged(out: Path, rows: list[dict]):
+def _summaries_if_unchanged(out: Path, rows_digest: str):
     """(summary paths, stamps) when the summary files in ``out`` were written by an earlier
     run from exactly these rows and are untouched since (their SHA-256 recorded in
     run.json); else (None, None). Spares a rerun of an unchanged set from rewriting them
@@ -626,7 +630,7 @@ def _summaries_if_unchanged(out: Path, rows: list[dict]):
     try:
         stamps = json.loads((Path(out) / "run.json").read_text(encoding="utf-8")).get("summary_stamps") or {}
         files = [Path(out) / "summary.csv", Path(out) / "summary.parquet"]
-        if stamps.get("rows") != _rows_digest(rows) or any(stamps.get(f.name) != file_digest(f) for f in files):
+        if stamps.get("rows") != rows_digest or any(stamps.get(f.name) != file_digest(f) for f in files):
             return None, None
     except (OSError, ValueError, AttributeError):
         return None, None
@@ -655,10 +659,11 @@ def run_gate(args: list[str], options: GateOptions, out: Path, engine, cache: Re
     t0 = time.monotonic()
     run = run_batch(args, options, out, engine, cache, patterns, progress)
     judge(run.rows, gate_policy or GatePolicy(), baseline, drop_decades)
-    summaries, stamps = _summaries_if_unchanged(out, run.rows)
+    digest = _rows_digest(run.rows)
+    summaries, stamps = _summaries_if_unchanged(out, digest)
     if summaries is None:
         summaries = write_summary(run.rows, out)
-        stamps = _summary_stamps(run.rows, summaries)
+        stamps = _summary_stamps(digest, summaries)
     written = [*summaries, write_junit(run.rows, Path(out) / "junit.xml", run.seconds)]
     if html:
         from .report.set_index import link_reports, write_item_pages, write_set_index

@@ -468,10 +468,19 @@ def select_for_target(
             shifted = S[np.ix_(p, p)]
             shifted[np.diag_indices_from(shifted)] -= goal
             info = lapack.dpotrf(shifted.T, lower=1, overwrite_a=1, clean=0)[1]
-            del shifted  # an N x N array: free it before the add-back pass builds its own
             facts += 1
             good = p.size if info == 0 else int(info) - 1
             k = int(ends[np.searchsorted(ends, good, side="right") - 1])
+            if refine and 0 < k < n:
+                # the leading k x k block of this factor is the factor of S[p[:k], p[:k]] - goal*I
+                # that the add-back pass extends: keep it (one N x N array at a time)
+                res = dataclasses.replace(res, factor=None)
+                prefix_factor = np.asfortranarray(shifted.T[:k, :k])
+                del shifted
+                for j in range(1, k):  # LAPACK left the upper triangle as it was
+                    prefix_factor[:j, j] = 0.0
+            else:
+                del shifted
         else:
             lo, hi = 0, ends.size - 1  # ends[lo] passes (empty set); find the last passing index
             while lo < hi:
@@ -489,17 +498,20 @@ def select_for_target(
     order = res.pivots[:k].copy()
     blocks: list[int] = []
     factor = None
-    pivoted = res.factor
     if refine and 0 < k < n:
-        # The add-back pass factors S[order, order] - goal*I itself, and a prefix of that
-        # factor serves every check below: release the N x N pivoted factor first.
+        # The add-back pass works on the factor of S[order, order] - goal*I, and a prefix of
+        # its result serves every check below: release the N x N pivoted factor first.
         res = dataclasses.replace(res, factor=None)
-        pivoted = None
-        order, blocks, factor = _add_back(S, order, _leftover_groups(res, k, shells, n), goal)
+        order, blocks, factor = _add_back(S, order, _leftover_groups(res, k, shells, n), goal,
+                                          prefix_factor if search == "shifted" else None)
         facts += 1
+    pivoted = res.factor
     if mode != "none" and not (checked and not blocks):
         while order.size:
-            if mode == "lanczos" and factor is not None:  # order is a prefix of the factor's order
+            if mode == "lanczos" and factor is not None:
+                # order is a prefix of the factor's order. The factor of S[order, order] - goal*I
+                # exists, so this value is at least goal: here it is reported, not checked
+                # (only the dense eigvalsh check can shorten the set).
                 smallest = goal + smallest_from_factor(factor[: order.size, : order.size])
             elif mode == "lanczos" and pivoted is not None:
                 smallest = smallest_from_factor(pivoted[:k, :k])
@@ -612,20 +624,23 @@ def _leftover_groups(res: CholeskyResult, k: int, shells, n: int) -> list[np.nda
     return [groups[s] for s in later + never]
 
 
-def _add_back(S: np.ndarray, order: np.ndarray, groups: list[np.ndarray], goal: float):
+def _add_back(S: np.ndarray, order: np.ndarray, groups: list[np.ndarray], goal: float,
+              L: np.ndarray | None = None):
     """Greedily append each group (in turn) while ``S[kept, kept] - goal*I`` stays positive
-    definite, by extending its Cholesky factor. A group that fails once can never fit
-    later (adding functions only lowers the smallest eigenvalue), so one pass leaves no
-    dropped group that could be added. Returns (order, sizes of the added groups, factor
-    of ``S[order, order] - goal*I``)."""
+    definite, by extending its Cholesky factor (``L``, lower, when the caller has it). A
+    group that fails once can never fit later (adding functions only lowers the smallest
+    eigenvalue), so one pass leaves no dropped group that could be added. Returns (order,
+    sizes of the added groups, factor of ``S[order, order] - goal*I``)."""
     if not groups:
-        return order, [], None
-    A = S[np.ix_(order, order)]
-    A[np.diag_indices_from(A)] -= goal
-    try:  # A is symmetric: its transpose is the Fortran-ordered array LAPACK factors in place
-        L = scipy.linalg.cholesky(A.T, lower=True, overwrite_a=True, check_finite=False)
-    except np.linalg.LinAlgError:
-        return order, [], None
+        return order, [], L
+    A = None
+    if L is None:
+        A = S[np.ix_(order, order)]
+        A[np.diag_indices_from(A)] -= goal
+        try:  # A is symmetric: its transpose is the Fortran-ordered array LAPACK factors in place
+            L = scipy.linalg.cholesky(A.T, lower=True, overwrite_a=True, check_finite=False)
+        except np.linalg.LinAlgError:
+            return order, [], None
     cand = np.concatenate(groups)
     starts = np.cumsum([0] + [g.size for g in groups])
     # Rows of the growing factor for every candidate column, block by block.

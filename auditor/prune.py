@@ -484,8 +484,8 @@ def explain_markdown(result, plan: RemedyPlan, files: dict[str, str]) -> str:
          f"{len(doc['dropped_shells'])} whole shell(s); its smallest eigenvalue is "
          f"{_fmt_num(doc['smallest_eigenvalue'])}. Every component of a shell is kept or dropped together, "
          "so the basis stays rotationally invariant. Shells were chosen by pivoted Cholesky over whole "
-         "shells (Lehtola, J. Chem. Phys. 151, 241102 (2019)), with the tolerance searched until the kept "
-         "set's spectrum meets the target."),
+         "shells (Lehtola, J. Chem. Phys. 151, 241102 (2019)) at the target: the longest prefix of the pivot "
+         "order whose overlap meets the target is kept, then the other shells are offered back one by one."),
         "",
         "## Files",
         "",

@@ -73,7 +73,7 @@ def audit_paths(
         try:
             frames = load_molecules(path, unit=unit, ghost=ghost)
             for mol in frames:
-                result = audit_prepared(prepare(mol, spec), policy, spectrum_method, remedies)
+                result = audit_prepared(prepare(mol, spec, spectrum_method), policy, spectrum_method, remedies)
                 outcome.results.append(result)
                 if out is not None:
                     stem = report_stem(str(path), mol.frame + 1, mol.n_frames)

@@ -66,9 +66,11 @@ class Spectrum:
         return self.counts_below.get(level_key(level))
 
 
-def gershgorin_lower_bound(S: np.ndarray, block: int = 2048) -> float:
-    """Gershgorin bound lambda_min >= 1 - max_i sum_{j!=i} |S_ij| for unit-diagonal S."""
+def gershgorin_lower_bound(S: np.ndarray) -> float:
+    """Gershgorin bound lambda_min >= 1 - max_i sum_{j!=i} |S_ij| for unit-diagonal S
+    (read in row blocks of about SCAN_BYTES)."""
     n = S.shape[0]
+    block = max(16, SCAN_BYTES // max(1, 8 * n))
     worst = 0.0
     for start in range(0, n, block):
         rows = np.abs(S[start:start + block])

@@ -111,8 +111,8 @@ def test_key_ignores_file_name_but_not_geometry_or_options(tree):
     write_xyz(tree / "moved.xyz", [s for s in WATER[0]], [[x + 1e-6 for x in r] for r in WATER[1]])
     run = run_batch(["set/water.xyz", "set/sub/water.xyz", "moved.xyz"], OPTIONS, tree / "out",
                     LocalEngine(1), cache)
-    # two files with the same geometry share one entry; a moved atom is a new entry
-    assert run.computed + run.cached == 3
+    # two files with the same geometry share one entry (and one audit); a moved atom is a new entry
+    assert run.computed + run.cached == 3 and run.computed == 2
     assert len(ResultCache(tree / "cache").keys()) == 2
     strict = GateOptions(OPTIONS.spec, Policy(caution=1e-4, fail=1e-6))
     again = run_batch(["set/water.xyz"], strict, tree / "out2", LocalEngine(1), cache)
@@ -124,7 +124,7 @@ def test_key_ignores_file_name_but_not_geometry_or_options(tree):
 
 def test_worker_crash_and_timeout_mark_only_their_item(tree):
     write_xyz(tree / "set" / "crash.xyz", *H2)
-    write_xyz(tree / "set" / "hang.xyz", *H2)
+    write_xyz(tree / "set" / "hang.xyz", H2[0], [[0, 0, 0], [0, 0, 0.75]])  # not the same geometry: not one item
     engine = LocalEngine(jobs=2, timeout=3, task=flaky_task)
     run = run_batch(["set"], OPTIONS, tree / "out", engine)
     rows = {r["item"]: r for r in run.rows}
@@ -247,3 +247,19 @@ def test_command_line_starts_workers_early_only_when_nothing_is_cached(tmp_path,
         calls.clear()
         workers.start_early(list(argv))
         assert len(calls) == n, argv
+
+
+def test_worst_items_come_in_one_order_everywhere():
+    # the terminal table and the set overview share one ranking: blocking outcomes, then
+    # fail before unreadable, caution, pass; then the smallest eigenvalue (common practice)
+    from auditor.report.summary import error_row, worst_rows
+
+    rows = [
+        {"path": "p.xyz", "frame": 1, "verdict": "pass", "smallest_eigenvalue": 1e-3, "outcome": "ok"},
+        {"path": "c.xyz", "frame": 1, "verdict": "caution", "smallest_eigenvalue": 1e-6, "outcome": "ok"},
+        {**error_row("e.xyz", None, "e", "sto-3g", "unreadable"), "outcome": "blocked"},
+        {"path": "f.xyz", "frame": 1, "verdict": "fail", "smallest_eigenvalue": 1e-9, "outcome": "blocked"},
+        {"path": "g.xyz", "frame": 1, "verdict": "fail", "smallest_eigenvalue": 1e-8, "outcome": "allowed"},
+    ]
+    order = [r["path"] for r in worst_rows(rows, 5)]
+    assert order == ["f.xyz", "e.xyz", "g.xyz", "c.xyz", "p.xyz"]

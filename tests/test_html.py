@@ -204,6 +204,10 @@ def test_remedies_and_trial_scf_are_shown():
 def test_figures_are_deterministic(broken):
     d = json.loads(to_json(broken))
     assert report_plots(d) == report_plots(copy.deepcopy(d))
+    # PNG specification: a tIME chunk or a Software text chunk would differ between runs
+    # or versions; none is written
+    for png in report_plots(d).values():
+        assert png.startswith(b"\x89PNG") and b"tIME" not in png and b"Software" not in png
 
 
 def test_spectrum_plot_survives_singular_and_negative_eigenvalues(clean):
@@ -388,5 +392,6 @@ def test_gate_format_html_writes_index_and_item_pages(tmp_path):
         assert page.images and all(decode_png(src).size for src in page.images)
     # the JSON-only format writes no HTML
     out2 = tmp_path / "gate2"
-    CliRunner().invoke(app, ["gate", str(sets), "-b", "sto-3g", "-o", str(out2), "--no-cache", "--jobs", "1"])
+    res2 = CliRunner().invoke(app, ["gate", str(sets), "-b", "sto-3g", "-o", str(out2), "--no-cache", "--jobs", "1"])
+    assert res2.exit_code == 1 and (out2 / "summary.csv").is_file(), res2.output
     assert not list(out2.rglob("*.html"))

@@ -17,17 +17,25 @@ from . import atomic_write
 
 SEVERITY_RANK = {"error": 0, "warning": 1, "info": 2}
 
-CSS = """
+#: the page frame both HTML writers share (palette, type, numbers, figures, footer)
+PAGE_CSS = """
 :root { --ink:#1f2328; --muted:#59636e; --line:#d8dee4; --band:#f6f8fa;
         --pass:#009E73; --caution:#E69F00; --fail:#D55E00; --error:#CC79A7; --accent:#0072B2; }
 * { box-sizing: border-box; }
 body { margin:0; color:var(--ink); background:#fff; font:15px/1.5 system-ui, -apple-system,
        "Segoe UI", "DejaVu Sans", sans-serif; }
-main { max-width: 1080px; margin: 0 auto; padding: 20px 28px 40px; }
 h1 { font-size: 1.55em; margin: 0.2em 0 0.1em; }
+.sub { color: var(--muted); margin: 0 0 14px; }
+td.n, th.n { text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap; }
+figure { margin: 10px 0 16px; }
+figure img { max-width: 100%; height: auto; border: 1px solid var(--line); border-radius: 4px; }
+footer { margin-top: 36px; color: var(--muted); font-size: 0.82em; }
+"""
+
+CSS = PAGE_CSS + """
+main { max-width: 1080px; margin: 0 auto; padding: 20px 28px 40px; }
 h2 { font-size: 1.2em; margin: 1.8em 0 0.5em; padding-bottom: 4px; border-bottom: 2px solid var(--line); }
 h3 { font-size: 1.0em; margin: 1.2em 0 0.4em; }
-.sub { color: var(--muted); margin: 0 0 14px; }
 nav { font-size: 0.9em; margin: 8px 0 4px; }
 nav a { margin-right: 14px; color: var(--accent); text-decoration: none; }
 .verdict { display:flex; gap:18px; align-items:flex-start; border:1px solid var(--line);
@@ -42,21 +50,17 @@ nav a { margin-right: 14px; color: var(--accent); text-decoration: none; }
 table { border-collapse: collapse; margin: 8px 0 12px; font-size: 0.92em; }
 th, td { border-bottom: 1px solid var(--line); padding: 4px 10px; text-align: left; vertical-align: top; }
 th { background: var(--band); font-weight: 600; }
-td.n, th.n { text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap; }
 tr.chosen td { background: #e7f1fa; font-weight: 600; }
 .sev { font-weight: 700; padding: 0 6px; border-radius: 3px; color: #fff; }
 .sev-error { background: var(--fail); } .sev-warning { background: var(--caution); color: #1f2328; }
 .sev-info { background: #8c8c8c; }
 .grid { display: flex; flex-wrap: wrap; gap: 0 28px; }
-figure { margin: 10px 0 16px; }
-figure img { max-width: 100%; height: auto; border: 1px solid var(--line); border-radius: 4px; }
 figcaption { color: var(--muted); font-size: 0.88em; max-width: 820px; }
 pre { background: var(--band); border: 1px solid var(--line); border-radius: 4px; padding: 10px 12px;
       white-space: pre-wrap; word-break: break-word; font-size: 0.86em; }
 code { font-size: 0.92em; }
 ul.caveats li { margin-bottom: 4px; }
 details summary { cursor: pointer; color: var(--accent); margin: 4px 0; }
-footer { margin-top: 36px; color: var(--muted); font-size: 0.82em; }
 @media print { nav { display: none; } main { max-width: none; } h2 { break-after: avoid; } figure { break-inside: avoid; } }
 """
 
@@ -329,7 +333,9 @@ def _remedies(d: dict) -> str:
         out.append(f"<p>Not available: {escape(str(prob))}.</p>")
     sh = rem.get("cholesky_shells")
     if sh:
-        out.append(f"<h3>Shell-pruned basis</h3><p>Pivoted Cholesky over whole shells (tolerance "
+        how = ("Pivoted Cholesky over whole shells" if sh.get("chosen_by") == "shell pivoting"
+               else "Keeping the shells that the pivoted-Cholesky subset of functions leaves whole")
+        out.append(f"<h3>Shell-pruned basis</h3><p>{how} (tolerance "
                    f"{num('remedies.cholesky_shells.tolerance', sh.get('tolerance'), '.2e')}) keeps "
                    f"{num('remedies.cholesky_shells.kept', sh.get('kept'), 'd')} of {n} functions; the smallest "
                    f"eigenvalue of the kept set is "

@@ -33,8 +33,12 @@ def to_json(result, compact: bool = False) -> str:
 
     ``compact``: one line without indentation (what ``gate`` stores per item; about
     five times faster to write, the same content)."""
+    return dumps_result(result.as_dict(), compact)
+
+
+def dumps_result(data: dict, compact: bool = False) -> str:
+    """``to_json`` for a result already turned into a dict (``as_dict``, or parsed JSON)."""
     options = dict(indent=None, separators=(",", ":")) if compact else dict(indent=2)
-    data = result.as_dict()
     try:  # usually nothing needs cleaning: let the encoder find out (it refuses NaN and numpy types)
         return json.dumps(data, ensure_ascii=False, allow_nan=False, **options) + "\n"
     except (ValueError, TypeError):

@@ -5,6 +5,7 @@ import math
 import xml.etree.ElementTree as ET
 from pathlib import Path
 
+from ..gate_policy import BLOCKING
 from . import atomic_write
 from .summary import item_label
 
@@ -37,7 +38,7 @@ def junit_xml(rows: list[dict], suite: str = "auditor gate", seconds: dict | Non
         case = ET.Element("testcase", classname=r["path"], name=item_label(r),
                           time=f"{seconds.get(r['item'], 0.0):.3f}")
         outcome = r.get("outcome", "ok")
-        if outcome in ("blocked", "regressed"):
+        if outcome in BLOCKING:
             if r["verdict"] == "error":
                 tag, counts["errors"] = "error", counts["errors"] + 1
                 message = r["error"]

@@ -11,26 +11,20 @@ from __future__ import annotations
 import base64
 import json
 import math
+import sys
 from html import escape
 from pathlib import Path
 from urllib.parse import quote
 
 from . import atomic_write
+from .html import PAGE_CSS
+from .summary import OUTCOME_RANK, VERDICT_RANK
 
-VERDICT_RANK = {"fail": 0, "error": 1, "caution": 2, "pass": 3}
-OUTCOME_RANK = {"regressed": 0, "blocked": 1, "allowed": 2, "known": 3, "ok": 4}
 WORST_SHOWN = 10
 
-CSS = """
-:root { --ink:#1f2328; --muted:#59636e; --line:#d8dee4; --band:#f6f8fa;
-        --pass:#009E73; --caution:#E69F00; --fail:#D55E00; --error:#CC79A7; --accent:#0072B2; }
-* { box-sizing: border-box; }
-body { margin:0; color:var(--ink); background:#fff; font:15px/1.5 system-ui, -apple-system,
-       "Segoe UI", "DejaVu Sans", sans-serif; }
+CSS = PAGE_CSS + """
 main { max-width: 1400px; margin: 0 auto; padding: 20px 28px 40px; }
-h1 { font-size: 1.55em; margin: 0.2em 0 0.1em; }
 h2 { font-size: 1.2em; margin: 1.6em 0 0.5em; padding-bottom: 4px; border-bottom: 2px solid var(--line); }
-.sub { color: var(--muted); margin: 0 0 14px; }
 .tiles { display: flex; gap: 12px; flex-wrap: wrap; margin: 12px 0; }
 .tile { border: 1px solid var(--line); border-top: 6px solid var(--c); border-radius: 6px;
         padding: 8px 16px; min-width: 110px; background: var(--band); }
@@ -47,15 +41,11 @@ th button { all: unset; cursor: pointer; }
 th button:focus-visible { outline: 2px solid var(--accent); }
 th[aria-sort="ascending"] button::after { content: " \\25B2"; font-size: 0.75em; }
 th[aria-sort="descending"] button::after { content: " \\25BC"; font-size: 0.75em; }
-td.n, th.n { text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap; }
 td.why { color: var(--muted); font-size: 0.95em; min-width: 18em; }
 td.item { overflow-wrap: anywhere; min-width: 12em; }
 .scroll { overflow-x: auto; }
 a { color: var(--accent); }
-figure { margin: 10px 0 16px; }
-figure img { max-width: 100%; height: auto; border: 1px solid var(--line); border-radius: 4px; }
 figcaption { color: var(--muted); font-size: 0.88em; }
-footer { margin-top: 36px; color: var(--muted); font-size: 0.82em; }
 """
 
 # Sorts the rows of every table.sortable by the data-sort value of the clicked column:
@@ -105,13 +95,13 @@ def _text(v) -> str:
     """Text of a cell; None, NaN and pandas' missing values are empty."""
     if v is None or (isinstance(v, float) and math.isnan(v)):
         return ""
-    import pandas as pd
-
-    try:
-        if pd.isna(v) is True:
-            return ""
-    except (TypeError, ValueError):
-        pass
+    pd = sys.modules.get("pandas")  # its missing values can only come from pandas itself
+    if pd is not None:
+        try:
+            if pd.isna(v) is True:
+                return ""
+        except (TypeError, ValueError):
+            pass
     return str(v).strip()
 
 

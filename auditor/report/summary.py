@@ -16,8 +16,9 @@ COLUMNS = (
 _INTS = ("frame", "n_atoms", "n_functions", "n_removed")
 _FLOATS = ("smallest_eigenvalue", "condition_number", "threshold")
 
-_OUTCOME_RANK = {"regressed": 0, "blocked": 1, "allowed": 2, "known": 3, "ok": 4}
-_VERDICT_RANK = {"error": 0, "fail": 1, "caution": 2, "pass": 3}
+#: worst first, for every list of items (terminal table, set overview)
+OUTCOME_RANK = {"regressed": 0, "blocked": 1, "allowed": 2, "known": 3, "ok": 4}
+VERDICT_RANK = {"fail": 0, "error": 1, "caution": 2, "pass": 3}
 _STYLE = {"pass": "green", "caution": "yellow", "fail": "bold red", "error": "magenta",
           "regressed": "bold red", "blocked": "bold red", "allowed": "cyan", "known": "yellow", "ok": "green"}
 
@@ -112,18 +113,14 @@ def write_summary(rows: list[dict], out: Path) -> tuple[Path, Path]:
     return csv_path, pq_path
 
 
-def _sort_key(r: dict):
-    lam = r.get("smallest_eigenvalue")
-    lam = math.inf if lam is None or (isinstance(lam, float) and math.isnan(lam)) else lam
-    return (_OUTCOME_RANK.get(r.get("outcome"), 9), _VERDICT_RANK.get(r["verdict"], 9), lam, r["path"])
-
-
 def item_label(r: dict) -> str:
     return r["path"] + (f" [{r['frame']}]" if r.get("frame") is not None else "")
 
 
 def worst_rows(rows: list[dict], n: int) -> list[dict]:
-    return sorted(rows, key=_sort_key)[:n]
+    from .set_index import rank_key
+
+    return sorted(rows, key=rank_key)[:n]
 
 
 def worst_table(rows: list[dict], n: int = 10):
