@@ -285,8 +285,8 @@ def gate(
                            for k in ("ok", "blocked", "regressed", "allowed", "known")
                            if any(r["outcome"] == k for r in rows))
         out.print(f"{len(rows)} item(s): {counts}; {result.run.computed} audited, {result.run.cached} from the cache")
-        out.print(f"wrote {out_dir}/summary.csv, summary.parquet, junit.xml and {len(rows)} report(s) in {out_dir}/items/",
-                  markup=False)
+        top = ", ".join(Path(w).name for w in result.written if Path(w).parent == Path(out_dir))
+        out.print(f"wrote {top} in {out_dir}/ and {len(rows)} report(s) in {out_dir}/items/", markup=False)
     raise typer.Exit(result.exit_code)
 
 

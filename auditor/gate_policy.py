@@ -142,7 +142,7 @@ def load_gate_policy(path: str | Path) -> GatePolicy:
     return policy
 
 
-def item_key(path: str, frame) -> tuple[str, int | None]:
+def row_key(path: str, frame) -> tuple[str, int | None]:
     """(path, frame) with a missing frame (an unreadable file) as None."""
     if frame is None or (isinstance(frame, float) and math.isnan(frame)):
         return str(path), None
@@ -169,7 +169,7 @@ def load_baseline(path: str | Path) -> dict:
         raise UsageError(f"{path}: not a gate summary (missing column(s) {', '.join(sorted(missing))})")
     out = {}
     for rec in df.to_dict("records"):
-        out[item_key(rec["path"], rec["frame"])] = rec
+        out[row_key(rec["path"], rec["frame"])] = rec
     return out
 
 
@@ -196,7 +196,7 @@ def judge(rows: list[dict], policy: GatePolicy, baseline: dict | None = None,
         failing = row["verdict"] in FAILING
         change, regressed = "", False
         if baseline is not None:
-            old = baseline.get(item_key(row["path"], row["frame"]))
+            old = baseline.get(row_key(row["path"], row["frame"]))
             if old is None:
                 change, regressed = ("new failure", True) if failing else ("new item", False)
             else:

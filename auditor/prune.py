@@ -77,14 +77,6 @@ def shell_record(table, s: int) -> dict:
 # ------------------------------------------------------------------------- numerics
 
 
-def _available_bytes() -> int | None:
-    try:
-        from .large import available_bytes
-    except ImportError:
-        return None
-    return available_bytes()
-
-
 def verify_mode(n: int) -> str:
     return "eigvalsh" if n <= EIGVALSH_LIMIT else "lanczos"
 
@@ -108,10 +100,9 @@ def smallest_eigenvalue(S: np.ndarray, idx: np.ndarray) -> float:
 def canonical_transform(prep, threshold: float) -> np.ndarray:
     """X with X^T S X = 1 in pyscf's AO basis, from the unit-diagonal S's eigenvectors
     with eigenvalue >= ``threshold`` (canonical orthogonalization)."""
-    w, U = np.linalg.eigh(prep.S)
-    keep = w >= threshold
-    raw_diag = np.asarray(prep.mole.intor("int1e_ovlp").diagonal()).copy()
-    return (U[:, keep] / np.sqrt(w[keep])) / np.sqrt(raw_diag)[:, None]
+    from .trial_scf import orthogonalizer
+
+    return orthogonalizer(prep.mole.intor_symmetric("int1e_ovlp"), threshold)
 
 
 # --------------------------------------------------------------------- pruned basis
@@ -342,8 +333,10 @@ def plan_remedies(prep, recommendation, smallest: float, target: float, force: b
         return plan
     n = table.n_functions
     need = REMEDY_COPIES * 8 * n * n
-    free = _available_bytes()
-    if free is not None and need > free:
+    from .large import available_bytes
+
+    free = available_bytes()
+    if need > free:
         plan.problems.append(f"remedies skipped: about {need / 1024 ** 3:.1f} GiB would be needed beside S, "
                              f"{free / 1024 ** 3:.1f} GiB is available")
         return plan

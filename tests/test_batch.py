@@ -1,6 +1,7 @@
 """Batch gate internals: collecting items, the cache, the local engine's crash and timeout
 handling, the policy file and the baseline comparison."""
 import json
+from contextlib import closing
 import math
 import os
 import time
@@ -113,7 +114,8 @@ def test_key_ignores_file_name_but_not_geometry_or_options(tree):
                     LocalEngine(1), cache)
     # two files with the same geometry share one entry (and one audit); a moved atom is a new entry
     assert run.computed + run.cached == 3 and run.computed == 2
-    assert len(ResultCache(tree / "cache").keys()) == 2
+    with closing(ResultCache(tree / "cache")) as c:
+        assert len(c.keys()) == 2
     strict = GateOptions(OPTIONS.spec, Policy(caution=1e-4, fail=1e-6))
     again = run_batch(["set/water.xyz"], strict, tree / "out2", LocalEngine(1), cache)
     assert again.cached == 0 and again.computed == 1

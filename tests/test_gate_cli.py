@@ -1,6 +1,7 @@
 """`auditor gate` end to end: mixed sets, cache reuse, interruption and resume, policy,
 baseline, JUnit XML, the Dask engine and the pre-commit hook definition."""
 import json
+from contextlib import closing
 import os
 import shlex
 import signal
@@ -194,15 +195,18 @@ def test_killed_run_leaves_no_corrupt_file_and_resumes(mixed):
     proc = subprocess.Popen(cmd, cwd=mixed, start_new_session=True,
                             stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
     try:
-        entries = lambda: ResultCache(mixed / "cache").keys()  # noqa: E731  (committed entries only)
+        def entries():  # committed entries only
+            with closing(ResultCache(mixed / "cache")) as c:
+                return c.keys()
+
         assert _wait_for(lambda: len(entries()) >= 3, 120)
         assert proc.poll() is None and not (mixed / "out" / "summary.csv").exists()
     finally:
         os.killpg(proc.pid, signal.SIGKILL)
         proc.wait()
-    cache = ResultCache(mixed / "cache")
     done = entries()
-    assert all(cache.get(k) is not None for k in done)
+    with closing(ResultCache(mixed / "cache")) as cache:
+        assert all(cache.get(k) is not None for k in done)
     for report in (mixed / "out" / "items").glob("[!.]*.json"):
         json.loads(report.read_text())
     res = gate("resume", "-b", "aug-cc-pvtz", "-o", "out", "--cache-dir", "cache", "-j", "1")

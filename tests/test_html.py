@@ -314,6 +314,25 @@ def test_item_pages_are_written_for_results_only(tmp_path, clean):
     assert [p.name for p in written] == ["ok.html"]
     parse((items / "ok.html").read_text())
     assert [r["report"] for r in link_reports(tmp_path, rows)] == ["items/ok.html", "items/bad.json"]
+    # a page already drawn from the same JSON is not drawn again; a newer JSON is
+    import os
+
+    import auditor.report.html as html_writer
+
+    def must_not_draw(*_):
+        raise AssertionError("page drawn again from an unchanged report")
+
+    real = html_writer.write_html
+    html_writer.write_html = must_not_draw
+    try:
+        assert [p.name for p in write_item_pages(tmp_path, rows)] == ["ok.html"]
+    finally:
+        html_writer.write_html = real
+    page = items / "ok.html"
+    os.utime(items / "ok.json", ns=(page.stat().st_mtime_ns + 10**9,) * 2)
+    page.write_text("stale")
+    write_item_pages(tmp_path, rows)
+    assert page.read_text() != "stale"
 
 
 def test_set_index_without_any_audited_item_has_no_figure():

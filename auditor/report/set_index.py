@@ -18,7 +18,7 @@ from urllib.parse import quote
 
 from . import atomic_write
 from .html import PAGE_CSS
-from .summary import OUTCOME_RANK, VERDICT_RANK
+from .summary import OUTCOME_RANK, VERDICT_RANK, item_label, result_row
 
 WORST_SHOWN = 10
 
@@ -125,8 +125,7 @@ def rank_key(item: dict):
 
 
 def _label(item: dict) -> str:
-    frame = _int(item.get("frame"))
-    return _text(item.get("path")) + (f" [{frame}]" if frame is not None else "")
+    return item_label({"path": _text(item.get("path")), "frame": _int(item.get("frame"))})
 
 
 def _link(item: dict, text: str) -> str:
@@ -297,19 +296,11 @@ def write_set_index(out_dir: Path, items: list[dict], title: str = "Audit of a s
 
 
 def item_from_result(result, report: str = "") -> dict:
-    """An index item read from one AuditResult (or its dict)."""
+    """An index item read from one AuditResult (or its dict): its summary row and link."""
     d = result if isinstance(result, dict) else result.as_dict()
-    inp, sp, rec, atoms = d["input"], d["spectrum"], d["recommendation"], d["causes"]["atoms"]
-    return {
-        "path": inp["path"], "frame": inp["frame"] if inp.get("n_frames", 1) > 1 else None,
-        "verdict": d["verdict"], "smallest_eigenvalue": sp["smallest"],
-        "condition_number": math.inf if sp["condition_number"] is None else sp["condition_number"],
-        "n_functions": inp["n_functions"], "n_atoms": inp["n_atoms"], "basis": inp["basis"],
-        "top_atom": f"{atoms[0]['element']}{atoms[0]['atom']}" if atoms else "",
-        "threshold": rec["threshold"], "n_removed": rec["n_removed"],
-        "reason": next((f["message"] for f in d["findings"] if f["severity"] == "error"), d["verdict_reason"]),
-        "report": report, "error": "",
-    }
+    inp = d["input"]
+    return {**result_row(inp["path"], inp["frame"] if inp.get("n_frames", 1) > 1 else None, "", d),
+            "report": report}
 
 
 def link_reports(out_dir: Path, rows: list[dict], items_dir: str = "items") -> list[dict]:
@@ -339,7 +330,11 @@ def write_item_pages(out_dir: Path, rows: list[dict], items_dir: str = "items",
         src = Path(out_dir) / items_dir / f"{name}.json"
         if not name or not src.is_file() or (verdicts and _verdict(r) not in verdicts):
             continue
+        page = src.with_suffix(".html")
+        if page.is_file() and page.stat().st_mtime_ns >= src.stat().st_mtime_ns:
+            written.append(page)  # drawn from this very JSON already (gate rewrites only changed reports)
+            continue
         data = json.loads(src.read_text(encoding="utf-8"))
         if "spectrum" in data and "input" in data:
-            written.append(write_html(data, src.with_suffix(".html")))
+            written.append(write_html(data, page))
     return written
