@@ -213,6 +213,9 @@ def audit(
     if hasattr(source, "intor") and hasattr(source, "nao_nr"):
         mol, mole_spec = _from_mole(source)
         if basis is None:
+            from .large import check_memory
+
+            check_memory(source.nao, spectrum_method)  # before S is built, as in prepare
             table = mole_function_table(source, mol, mole_spec)
             return audit_prepared(Prepared(mol, mole_spec, source, table, normalized_overlap(source)),
                                   policy, spectrum_method, remedies)

@@ -21,10 +21,10 @@ from pathlib import Path
 from . import __version__
 from .basis import BasisSpec
 from .cache import ResultCache, content_key, file_digest
-from .errors import AuditorError, UsageError
+from .errors import AuditorError, UsageError, failure
 from .geometry import Molecule
 from .policy import Policy
-from .report import atomic_write, report_stem
+from .report import atomic_write, report_stem, unique_name
 from .report.summary import brief, error_row, result_row
 from .workers import start_server, worker_context, worker_env
 
@@ -143,12 +143,7 @@ def collect_items(args: list[str], options: GateOptions, patterns=GEOMETRY_PATTE
     for it in items:
         flat = it.path.lstrip("/").replace("../", "up__").replace("/", "__")
         flat = "".join(c if c.isalnum() or c in "._-" else "_" for c in flat)
-        base = report_stem(flat, it.frame or 1, it.n_frames)
-        name, k = base, 2
-        while name in used:
-            name, k = f"{base}-{k}", k + 1
-        used.add(name)
-        it.name = name
+        it.name = unique_name(report_stem(flat, it.frame or 1, it.n_frames), used)
     return items
 
 
@@ -227,13 +222,8 @@ def run_item(payload: str) -> str:
                                 p["spectrum_method"], remedies=bool(p.get("remedies", False))).as_dict()
         return json.dumps({"seconds": round(time.perf_counter() - t0, 6), "report": dumps_result(result, compact=True),
                            "brief": brief(result), "versions": _versions()})
-    except AuditorError as exc:
-        return json.dumps({"error": exc.message})
-    except MemoryError:
-        return json.dumps({"error": "ran out of memory"})
     except Exception as exc:  # an item must never take the run down; report it as that item's error
-        text = str(exc).splitlines()[0] if str(exc) else ""
-        return json.dumps({"error": f"internal error {type(exc).__name__}: {text}"})
+        return json.dumps({"error": failure(exc)[0]})
 
 
 def check_basis_names(spec: BasisSpec, elements) -> None:

@@ -222,7 +222,7 @@ def _schur_block(A: np.ndarray, P: np.ndarray, j: int, f: np.ndarray) -> np.ndar
 
 
 def shell_pivoted_cholesky(
-    S: np.ndarray, shell_of_function, tol: float, panel: int = 192, tie_order=None
+    S: np.ndarray, shell_of_function, tol: float, panel: int = 192
 ) -> CholeskyResult:
     """Pivoted Cholesky that keeps or drops whole shells.
 
@@ -255,7 +255,7 @@ def shell_pivoted_cholesky(
     diag = np.diagonal(A).copy()  # current Schur diagonal of the remaining functions
     cached = np.ones(m)           # Schur blocks only shrink, so old values are upper bounds
     # Rank of each shell among ties (lower wins); by default the shell index.
-    ids = np.arange(m) if tie_order is None else np.argsort(np.argsort(np.asarray(tie_order), kind="stable"))
+    ids = np.arange(m)  # ties go to the lower shell index
     taken = np.zeros(m, dtype=bool)
     piv: list[np.ndarray] = []
     chosen: list[int] = []
@@ -346,10 +346,10 @@ def shell_pivoted_cholesky(
 # --------------------------------------------------------------------- target search
 
 
-def _factorize(S, tol, shells, tie_order=None) -> CholeskyResult:
+def _factorize(S, tol, shells) -> CholeskyResult:
     if shells is None:
         return pivoted_cholesky(S, tol)
-    return shell_pivoted_cholesky(S, shells, tol, tie_order=tie_order)
+    return shell_pivoted_cholesky(S, shells, tol)
 
 
 def _prefix_ends(res: CholeskyResult, shells) -> np.ndarray:
@@ -420,7 +420,6 @@ def select_for_target(
     search: str = "shifted",
     verify: bool | str = "eigvalsh",
     refine: bool = True,
-    tie_order=None,
 ) -> Selection:
     """Keep as many functions as possible while the kept overlap has lambda_min >= target.
 
@@ -440,8 +439,8 @@ def select_for_target(
     prefix are then offered back one by one, in pivot order, and kept whenever the set
     still meets the target (one incremental factorization; ``added_back`` counts them), so
     that no dropped unit could be added. With ``atom_of_function`` a selection that would
-    leave a non-exempt atom without functions raises UsageError. ``tie_order`` (one number
-    per shell, lower first) breaks ties in shell pivoting; default the shell index.
+    leave a non-exempt atom without functions raises UsageError. Ties in shell pivoting go
+    to the lower shell index.
     """
     target = check_target(target)
     goal = target * (1.0 - TARGET_SLACK)
@@ -454,13 +453,13 @@ def select_for_target(
     if shells is not None:
         _shell_index_lists(shells, n)
     if search == "tolerance":
-        res, k, facts, eigs, smallest = _search_tolerance(S, goal, shells, tie_order)
+        res, k, facts, eigs, smallest = _search_tolerance(S, goal, shells)
         ends = _prefix_ends(res, shells)
         checked = True  # every trial already ran eigvalsh on its kept set
     elif search in ("shifted", "prefix"):
         checked = False
         smallest = np.nan
-        res = _factorize(S, goal, shells, tie_order)
+        res = _factorize(S, goal, shells)
         facts, eigs = 1, 0
         ends = _prefix_ends(res, shells)
         p = res.pivots
@@ -675,13 +674,13 @@ def _add_back(S: np.ndarray, order: np.ndarray, groups: list[np.ndarray], goal: 
     return order, sizes, factor
 
 
-def _search_tolerance(S, target, shells, tie_order=None, max_steps: int = 60):
+def _search_tolerance(S, target, shells, max_steps: int = 60):
     """Bisection on log10(tol) in [target, first pivot]; each trial factorizes and checks."""
     facts = eigs = 0
 
     def trial(tol):
         nonlocal facts, eigs
-        res = _factorize(S, tol, shells, tie_order)
+        res = _factorize(S, tol, shells)
         facts += 1
         eigs += 1
         return res, _smallest(S, res.pivots)

@@ -7,7 +7,8 @@ from pathlib import Path
 from .api import make_spec
 from .errors import InputError
 from .policy import Policy
-from .report import atomic_write
+from .report import atomic_write, report_stem
+from .report.summary import error_row
 from .runner import RunOutcome, audit_paths
 
 if sys.version_info >= (3, 11):
@@ -16,6 +17,7 @@ else:  # pragma: no cover
     import tomli as tomllib
 
 MANIFEST = "examples.toml"
+ORIGIN = "Written by `auditor demo` from `example_geometries/` (a scenario of our own, not real data)"
 
 
 def find_examples() -> Path:
@@ -52,21 +54,19 @@ def run_demo(folder: Path, out: Path) -> tuple[RunOutcome, Path]:
         total.errors += o.errors
         total.written += o.written
         for r in o.results:
-            stem = Path(r.input.path).stem + (f"_f{r.input.frame:03d}" if r.input.n_frames > 1 else "")
+            stem = report_stem(r.input.path, r.input.frame, r.input.n_frames)
             kinds = sorted({f.kind for f in r.findings if f.severity != "info"})
             rows.append(f"| [{stem}]({stem}.md) | {r.input.basis} | {r.input.n_functions} | "
                         f"**{r.verdict}** | {r.spectrum.smallest:.2e} | {', '.join(kinds) or '-'} | {ex.get('note', '')} |")
             items.append({**item_from_result(r, f"{stem}.html"), "path": Path(r.input.path).name})
         for p, msg, _ in o.errors:
             rows.append(f"| {Path(p).name} | {ex['basis']} | | unreadable | | {msg} | {ex.get('note', '')} |")
-            items.append({"path": Path(p).name, "frame": None, "verdict": "error", "smallest_eigenvalue": None,
-                          "n_functions": None, "basis": ex["basis"], "report": "", "error": msg})
+            items.append({**error_row(Path(p).name, None, "", ex["basis"], msg), "report": ""})
     index = out / "index.md"
     atomic_write(index, "\n".join([
         "# Sample reports",
         "",
-        "Written by `auditor demo` from `example_geometries/` (a scenario of our own, not real data). "
-        "The same reports as self-contained HTML pages: [index.html](index.html).",
+        f"{ORIGIN}. The same reports as self-contained HTML pages: [index.html](index.html).",
         "",
         "| report | basis | functions | verdict | smallest eigenvalue | findings | scenario |",
         "|---|---|---|---|---|---|---|",
@@ -75,5 +75,5 @@ def run_demo(folder: Path, out: Path) -> tuple[RunOutcome, Path]:
     ]))
     total.written.append(write_set_index(
         out, items, title="Sample reports", policy=policy.as_dict(),
-        note="Written by auditor demo from example_geometries/ (a scenario of our own, not real data)."))
+        note=ORIGIN.replace("`", "") + "."))
     return total, index

@@ -39,3 +39,13 @@ class ResourceError(AuditorError):
     """The requested audit would not fit in this machine's memory."""
 
     exit_code = EXIT_RESOURCE
+
+
+def failure(exc: BaseException) -> tuple[str, int]:
+    """One line and an exit code for an exception that ends one item's audit (the run goes on)."""
+    if isinstance(exc, AuditorError):
+        return exc.message, exc.exit_code
+    if isinstance(exc, MemoryError):
+        return "ran out of memory", EXIT_RESOURCE
+    text = str(exc).splitlines()[0] if str(exc) else ""
+    return f"internal error ({type(exc).__name__}: {text})", EXIT_INTERNAL

@@ -9,9 +9,9 @@ from pathlib import Path
 
 from .api import audit_prepared, load_molecules, prepare
 from .basis import BasisSpec
-from .errors import EXIT_FAIL, EXIT_INTERNAL, EXIT_OK, AuditorError
+from .errors import EXIT_FAIL, EXIT_OK, AuditorError, failure
 from .policy import Policy
-from .report import report_stem
+from .report import report_stem, unique_name
 from .report.json import write_json
 from .report.markdown import write_markdown
 
@@ -76,19 +76,11 @@ def audit_paths(
                 result = audit_prepared(prepare(mol, spec, spectrum_method), policy, spectrum_method, remedies)
                 outcome.results.append(result)
                 if out is not None:
-                    stem = report_stem(str(path), mol.frame + 1, mol.n_frames)
-                    base, k = stem, 2
-                    while stem in used:
-                        stem, k = f"{base}-{k}", k + 1
-                    used.add(stem)
+                    stem = unique_name(report_stem(str(path), mol.frame + 1, mol.n_frames), used)
                     outcome.written += write_reports(result, out, formats, stem)
                 if on_result:
                     on_result(result)
-        except AuditorError as exc:
-            outcome.errors.append((str(path), exc.message, exc.exit_code))
-        except MemoryError:
-            outcome.errors.append((str(path), f"{path}: ran out of memory", 4))
-        except Exception as exc:  # one broken item must not stop the others
-            outcome.errors.append((str(path), f"{path}: internal error ({type(exc).__name__}: {exc})".splitlines()[0],
-                                   EXIT_INTERNAL))
+        except Exception as exc:  # one broken file must not stop the others
+            message, code = failure(exc)
+            outcome.errors.append((str(path), message if isinstance(exc, AuditorError) else f"{path}: {message}", code))
     return outcome

@@ -77,6 +77,18 @@ def _value_attr(value) -> str:
     return json.dumps(value)
 
 
+def vectors_note(d: dict) -> str:
+    """Which eigenvectors the causes were summed over, in words."""
+    c, sp = d["causes"], d["spectrum"]
+    k, level = c["n_vectors"], c["vectors_below"]
+    below = sum(1 for v in sp["eigenvalues"] if v is not None and v < level)
+    if len(sp["eigenvalues"]) < d["input"]["n_functions"]:
+        below = sp["counts_below"].get(format(level, ".0e"), below)
+    if below is not None and below >= k:
+        return f"the {k} eigenvector(s) with eigenvalue below {level:.0e}"
+    return f"the {k} smallest eigenvector(s) ({below or 'none'} below {level:.0e})"
+
+
 def num(key: str, value, spec: str = ".3e", none: str = "not computed") -> str:
     """A number as shown, tagged with its JSON path and full value."""
     if value is None or (isinstance(value, float) and not math.isfinite(value)):
@@ -413,8 +425,6 @@ def render_html(result, images: dict[str, bytes] | None = None) -> str:
     frame = f", frame {inp['frame']} of {inp['n_frames']}" if inp["n_frames"] > 1 else ""
     title = f"Basis overlap audit: {name}{frame}"
     ghosts = f", {len(inp['ghost_atoms'])} of them ghost atoms" if inp["ghost_atoms"] else ""
-    from .plots import vectors_note
-
     vec_note = vectors_note(d)
     sections = [
         "<!DOCTYPE html>",
