@@ -95,32 +95,23 @@ def worker(kind: str, xyz: str, basis: str) -> dict:
                              for a in rem.get("alternatives", [])],
         }
     else:
-        import tracemalloc
-
         from auditor.large import large_spectrum
 
         timing: dict = {}
         detail: dict = {}
 
         def timed(S, vector_level, min_vectors=3, method="large"):
-            tracemalloc.reset_peak()
-            before = tracemalloc.get_traced_memory()[0]
             t0 = time.perf_counter()
             out = large_spectrum(S, vector_level, min_vectors, info=detail)
             timing["spectrum"] = time.perf_counter() - t0
-            timing["spectrum_traced"] = tracemalloc.get_traced_memory()[1] - before
             return out
 
+        # timed as the eigh reference is: no allocation tracing (peak memory is ru_maxrss)
         api.compute_spectrum = timed
-        tracemalloc.start()  # numpy arrays are traced; LAPACK internals are not
-        before = tracemalloc.get_traced_memory()[0]
         t = time.perf_counter()
         res = audit_prepared(prep, spectrum_method="large", remedies=False)
         rec["t_work"] = time.perf_counter() - t
-        rec["audit_traced_over_S"] = (tracemalloc.get_traced_memory()[1] - before) / (8.0 * n * n)
-        tracemalloc.stop()
         rec["t_spectrum"] = timing.get("spectrum")
-        rec["spectrum_traced_over_S"] = timing.get("spectrum_traced", 0) / (8.0 * n * n)
         rec["spectrum_detail"] = {k: (round(float(v), 3) if isinstance(v, float) else v)
                                   for k, v in detail.items()}
         rec["smallest"] = res.spectrum.smallest
@@ -206,8 +197,6 @@ def main(argv=None) -> None:
                 f"{large['smallest']:.3e} | {large['below_1e-05']} |", flush=True)
             notes = {"load (start, end)": [large.get("load"), ref.get("load")],
                      "all times (s)": {k: [round(t, 1) for t in v if t] for k, v in times.items()},
-                     "traced extra / S (spectrum, whole audit)": [
-                         round(large["spectrum_traced_over_S"], 3), round(large["audit_traced_over_S"], 3)],
                      "spectrum": large.get("spectrum_detail"),
                      "eigh lambda_min": ref.get("smallest"), "eigh below 1e-5": ref.get("below_1e-05")}
             if "error" in ref:
