@@ -295,10 +295,12 @@ def _yes(flag) -> str:
     return {True: "yes", False: "no"}.get(flag, "—")
 
 
-def _more(n_all: int, cols: int) -> str:
-    if n_all <= MAX_REMEDY_ROWS:
-        return ""
-    return f'<tr><td colspan="{cols}">… {n_all - MAX_REMEDY_ROWS} more in the JSON report</td></tr>'
+def _capped_table(n_all: int, what: str, heads: list[str], rows: str) -> str:
+    """A folded table of the first MAX_REMEDY_ROWS rows, with a last row saying how many
+    more the JSON report holds."""
+    more = (f'<tr><td colspan="{len(heads)}">… {n_all - MAX_REMEDY_ROWS} more in the JSON report</td></tr>'
+            if n_all > MAX_REMEDY_ROWS else "")
+    return _fold(n_all, what, f"<table><tr>{''.join(heads)}</tr>{rows}{more}</table>")
 
 
 def _fold(n_rows: int, what: str, table: str) -> str:
@@ -359,9 +361,9 @@ def _remedies(d: dict) -> str:
             f"<td>{'yes' if x.get('diffuse') else ''}</td>"
             f'<td class="n">{num(f"remedies.cholesky_shells.dropped_shells.{i}.functions", x["functions"], "d")}</td></tr>'
             for i, x in enumerate(dropped[:MAX_REMEDY_ROWS]))
-        out.append(_fold(len(dropped), "shells dropped",
-                         '<table><tr><th>atom and shell</th><th>l</th><th class="n">smallest exponent</th>'
-                         f'<th>diffuse</th><th class="n">functions</th></tr>{rows}{_more(len(dropped), 5)}</table>'))
+        out.append(_capped_table(len(dropped), "shells dropped",
+                                 ["<th>atom and shell</th>", "<th>l</th>", '<th class="n">smallest exponent</th>',
+                                  "<th>diffuse</th>", '<th class="n">functions</th>'], rows))
     fn = rem.get("cholesky_functions")
     if fn:
         out.append(f"<h3>Pivoted-Cholesky subset of functions</h3><p>Tolerance "
@@ -375,9 +377,9 @@ def _remedies(d: dict) -> str:
             f'<tr><td class="n">{x["function"]}</td><td>{_where(x)}</td><td>{escape(str(x["component"]))}</td>'
             f'<td class="n">{num(f"remedies.cholesky_functions.dropped.{i}.exponent", x["exponent"], ".4g")}</td></tr>'
             for i, x in enumerate(dropped[:MAX_REMEDY_ROWS]))
-        out.append(_fold(len(dropped), "functions dropped",
-                         '<table><tr><th class="n">function</th><th>atom and shell</th><th>component</th>'
-                         f'<th class="n">smallest exponent</th></tr>{rows}{_more(len(dropped), 4)}</table>'))
+        out.append(_capped_table(len(dropped), "functions dropped",
+                                 ['<th class="n">function</th>', "<th>atom and shell</th>", "<th>component</th>",
+                                  '<th class="n">smallest exponent</th>'], rows))
     if rem.get("diffuse_by_element"):
         out.append("<h3>Diffuse shells by element</h3>" + _generic(rem["diffuse_by_element"], "remedies.diffuse_by_element"))
     tri = rem.get("trial_scf")
