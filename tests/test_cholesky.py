@@ -295,6 +295,15 @@ def test_unnormalized_overlap_is_an_input_error():
         select_for_target(np.diag([1.0, 2.0]), 1e-3)
     with pytest.raises(InputError):
         pivoted_cholesky(np.ones((2, 3)), 1e-3)
+    for bad in (np.nan, np.inf, -np.inf):
+        S = np.eye(3)
+        S[0, 2] = S[2, 0] = bad
+        with pytest.raises(InputError, match="NaN or infinite"):
+            select_for_target(S, 1e-3)
+    S = np.eye(3)
+    S[0, 1], S[1, 0] = np.inf, -np.inf   # opposite infinities: their sum is NaN, still refused
+    with pytest.raises(InputError, match="NaN or infinite"):
+        pivoted_cholesky(S, 1e-3)
 
 
 def test_emptying_an_atom_is_an_error():
