@@ -111,7 +111,9 @@ def check_overlap(S: np.ndarray) -> np.ndarray:
     S = np.asarray(S, dtype=np.float64)
     if S.ndim != 2 or S.shape[0] != S.shape[1] or S.shape[0] == 0:
         raise InputError(f"overlap matrix must be square and non-empty, got shape {S.shape}")
-    if not np.isfinite(S.sum()):  # one pass, no N x N mask: any NaN or infinity spoils the sum
+    with np.errstate(invalid="ignore", over="ignore"):
+        total = S.sum()  # one pass, no N x N mask: any NaN or infinity spoils the sum
+    if not np.isfinite(total):
         raise InputError("overlap matrix contains NaN or infinite elements")
     worst = float(np.max(np.abs(np.diagonal(S) - 1.0)))
     if worst > UNIT_DIAGONAL_SLACK:
