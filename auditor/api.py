@@ -9,7 +9,7 @@ from pathlib import Path
 import numpy as np
 
 from . import __version__
-from .basis import BasisSpec, parse_overrides
+from .basis import BasisSpec, check_basis_name, parse_overrides
 from .diagnose import attribute_causes, crowding_findings, duplicate_findings, geometry_findings, Finding
 from .errors import InputError, UsageError
 from .geometry import Molecule, element_symbol, molecule_from_atoms, parse_atom_numbers, read_geometry
@@ -38,10 +38,10 @@ def make_spec(basis: str | BasisSpec | None, basis_for=None, cartesian: bool = F
     if not basis:
         raise UsageError("a basis is required (e.g. basis='aug-cc-pvdz')")
     if isinstance(basis_for, dict):
-        over = {element_symbol(k, "basis_for"): v for k, v in basis_for.items()}
+        over = {element_symbol(k, "basis_for"): check_basis_name(v, f"basis_for {k}") for k, v in basis_for.items()}
     else:
         over = parse_overrides(basis_for)
-    return BasisSpec(default=basis, per_element=over, cartesian=cartesian)
+    return BasisSpec(default=check_basis_name(basis), per_element=over, cartesian=cartesian)
 
 
 def prepare(mol: Molecule, spec: BasisSpec, spectrum_method: str = "large") -> Prepared:

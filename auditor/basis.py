@@ -37,6 +37,11 @@ class BasisSpec:
         kind = "cartesian" if self.cartesian else "spherical"
         return f"{self.default}" + (f" ({extra})" if extra else "") + f" [{kind}]"
 
+    def files(self) -> list[str]:
+        """The basis files this specification names (inputs: never overwritten)."""
+        names = [self.default, *self.per_element.values()]
+        return [n for n in dict.fromkeys(names) if Path(n).expanduser().is_file()]
+
     def as_dict(self) -> dict:
         return {
             "default": self.default,
@@ -59,9 +64,7 @@ def parse_overrides(items: list[str] | None) -> dict[str, str]:
             sym = element_symbol(el, "--basis-for")
         except InputError as exc:
             raise UsageError(str(exc)) from None
-        if not name.strip():
-            raise UsageError(f"--basis-for {item!r}: empty basis name")
-        out[sym] = name.strip()
+        out[sym] = check_basis_name(name, f"--basis-for {el}")
     return out
 
 
@@ -107,28 +110,140 @@ def _suggest(name: str) -> str:
     return f"; close names: {', '.join(shown[c] for c in close)}" if close else ""
 
 
+def check_basis_name(name: str, where: str = "basis") -> str:
+    """``name`` stripped, or UsageError for an empty name or one with control characters
+    (pyscf would parse a name with a line break as basis text)."""
+    from .errors import UsageError
+
+    text = str(name).strip()
+    if not text:
+        raise UsageError(f"{where}: empty basis name")
+    if any(ord(c) < 32 or ord(c) == 127 for c in text):
+        raise UsageError(f"{where}: a basis name or file name is one line without control characters")
+    return text
+
+
+def eval_off() -> None:
+    """Turn off pyscf's evaluation of text as Python in every parser that has it.
+
+    pyscf's basis, ECP and geometry parsers evaluate a data line that is not a plain
+    number with ``eval`` unless DISABLE_EVAL is set; a basis file could then run code.
+    The flag is read at import time into each parser module, so it is set in each one
+    (and in pyscf's config, for parsers imported later)."""
+    import pyscf
+    import pyscf.gto.basis.parse_cp2k as cp2k
+    import pyscf.gto.basis.parse_molpro as molpro
+    import pyscf.gto.basis.parse_nwchem as nwchem
+    import pyscf.gto.basis.parse_nwchem_ecp as nwchem_ecp
+    import pyscf.gto.mole as mole
+
+    pyscf.__config__.DISABLE_EVAL = True
+    for module in (mole, nwchem, nwchem_ecp, cp2k, molpro):
+        module.DISABLE_EVAL = True
+
+
+#: NWChem-format basis files above this size are refused (published sets are a few MB).
+MAX_BASIS_FILE_BYTES = 16 << 20
+_KEYWORDS = ("BASIS", "END", "ECP", "SO")
+
+
+@lru_cache(maxsize=64)
+def read_basis_file(path: str) -> dict[str, tuple[str, ...]]:
+    """The lines of each element's shells in an NWChem-format basis file, checked line by
+    line: every data line must be plain ASCII numbers (InputError naming the line
+    otherwise). ECP sections are skipped: they do not enter the overlap."""
+    from .geometry import element_symbol
+    from .textio import NUMBER, read_text
+
+    text = read_text(path, "basis file", MAX_BASIS_FILE_BYTES)
+    blocks: dict[str, list[str]] = {}
+    current: list[str] | None = None
+    in_ecp = False
+    for k, raw in enumerate(text.splitlines(), 1):
+        line = raw.split("#", 1)[0].strip()
+        if not line:
+            continue
+        tokens = line.split()
+        head = tokens[0].upper()
+        if head in _KEYWORDS:
+            in_ecp = head == "ECP" or (in_ecp and head != "END")
+            current = None
+            continue
+        if tokens[0][0].isalpha():
+            try:
+                symbol = element_symbol(tokens[0], f"{path}:{k}")
+            except InputError:
+                raise InputError(f"{path}:{k}: expected an element and a shell type (e.g. 'H S'), "
+                                 f"found {line[:40]!r}") from None
+            current = None if in_ecp else blocks.setdefault(symbol, [])
+        elif not all(NUMBER.fullmatch(t) for t in tokens):
+            bad = next(t for t in tokens if not NUMBER.fullmatch(t))
+            raise InputError(f"{path}:{k}: basis data must be plain numbers, found {bad[:40]!r}")
+        elif current is None and not in_ecp:
+            raise InputError(f"{path}:{k}: numbers before any 'ELEMENT SHELL' line")
+        if current is not None:
+            current.append(line)
+    if not blocks:
+        raise InputError(f"{path}: no basis data in NWChem format (lines such as 'H S' followed by "
+                         "exponents and coefficients)")
+    return {el: tuple(lines) for el, lines in blocks.items()}
+
+
+def _file_shells(path: str, element: str) -> list:
+    from pyscf.gto import basis as pbasis
+    from pyscf.gto.basis import parse_nwchem
+
+    blocks = read_basis_file(path)
+    if element not in blocks:
+        raise InputError(f"basis file {path} has no functions for element {element} "
+                         f"(it has {', '.join(sorted(blocks))})")
+    try:  # only this element's lines: pyscf alone would fall back to the whole file
+        return parse_nwchem.parse("\n".join(blocks[element]), optimize=pbasis.OPTIMIZE_CONTRACTION)
+    except Exception as exc:  # pyscf raises BasisNotFoundError, ValueError, IndexError, ...
+        raise InputError(f"basis file {path}: cannot read the shells of {element} "
+                         f"({exc.__class__.__name__}: {str(exc).strip().splitlines()[0] if str(exc).strip() else ''})") from None
+
+
 @lru_cache(maxsize=None)
 def load_shells(name: str, element: str) -> tuple:
     """Shells of ``element`` in basis ``name`` (pyscf's internal list format).
 
-    Raises InputError naming what is missing, with close names for typos.
+    ``name`` is a basis name or an NWChem-format file (read by a numbers-only check
+    first). Raises InputError naming what is missing, with close names for typos.
     """
     from pyscf.gto import basis as pbasis
 
+    eval_off()
+    name = check_basis_name(name)
     path = Path(name).expanduser()
-    is_file = path.is_file()
-    try:
-        shells = pbasis.load(str(path) if is_file else name, element)
-    except Exception as exc:  # pyscf raises BasisNotFoundError, KeyError, RuntimeError, ...
-        if is_file:
-            raise InputError(f"basis file {name}: no usable basis for {element} ({exc.__class__.__name__})") from None
-        if _canon(name) not in pbasis.ALIAS and not pbasis._is_pople_basis(name) and not _in_exchange(name):
-            raise InputError(f"unknown basis name {name!r}{_suggest(name)}") from None
-        raise InputError(f"basis {name!r} has no functions for element {element}") from None
+    if path.exists():
+        shells = _file_shells(str(path), element)
+    else:
+        try:
+            shells = pbasis.load(name, element)
+        except Exception:  # pyscf raises BasisNotFoundError, KeyError, RuntimeError, ...
+            if _canon(name) not in pbasis.ALIAS and not pbasis._is_pople_basis(name) and not _in_exchange(name):
+                raise InputError(f"unknown basis name {name!r}{_suggest(name)}") from None
+            raise InputError(f"basis {name!r} has no functions for element {element}") from None
     if not shells:
-        where = f"basis file {name}" if is_file else f"basis {name!r}"
+        where = f"basis file {name}" if path.exists() else f"basis {name!r}"
         raise InputError(f"{where} has no functions for element {element}")
+    bad = _bad_exponent(shells)
+    if bad is not None:
+        raise InputError(f"basis {name!r}: element {element} has a shell with exponent {bad!r}; "
+                         "exponents must be positive and finite")
     return tuple(_freeze(s) for s in shells)
+
+
+def _bad_exponent(shells):
+    import math
+
+    for shell in shells:
+        prims = shell[2:] if isinstance(shell[1], int) else shell[1:]
+        for p in prims:
+            if not (isinstance(p[0], (int, float)) and math.isfinite(p[0]) and p[0] > 0):
+                return p[0]
+    return None
 
 
 def _freeze(shell):

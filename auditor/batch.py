@@ -14,6 +14,7 @@ import os
 import signal
 import time
 from collections import deque
+from contextlib import contextmanager
 from dataclasses import dataclass, field
 from multiprocessing.connection import wait as wait_any
 from pathlib import Path
@@ -24,7 +25,7 @@ from .cache import ResultCache, content_key, file_digest
 from .errors import AuditorError, UsageError, failure
 from .geometry import Molecule
 from .policy import Policy
-from .report import atomic_write, report_stem, unique_name
+from .report import TEMP_NAME, atomic_write, check_not_input, protect, report_stem, unique_name
 from .report.summary import brief, error_row, result_row
 from .workers import start_server, worker_context, worker_env
 
@@ -492,6 +493,8 @@ class BatchRun:
     computed: int = 0
     cached: int = 0
     errors: int = 0
+    inputs: list[str] = field(default_factory=list)   # the input files (never overwritten)
+    files: list[str] = field(default_factory=list)    # the item files written, relative to items/
 
 
 def _same_text(path: Path, text: str) -> bool:
@@ -522,9 +525,16 @@ def run_batch(args: list[str], options: GateOptions, out: Path, engine, cache: R
     if hasattr(engine, "warm_up") and (cache is None or not cache.path.exists()):
         engine.warm_up()   # nothing can come from the cache: start the workers' imports at once
     items = collect_items(args, options, patterns)
+    with protect([it.path for it in items] + options.spec.files()):
+        return _audit_items(items, options, items_dir, engine, cache, progress)
+
+
+def _audit_items(items: list[Item], options: GateOptions, items_dir: Path, engine, cache, progress) -> BatchRun:
+    from .report.json import dumps_result
+
     by_name = {it.name: it for it in items}
     rows: dict[str, dict] = {}
-    run = BatchRun(rows=[])
+    run = BatchRun(rows=[], inputs=[it.path for it in items])
     basis = options.spec.describe()
     total = len(items)
 
@@ -593,10 +603,8 @@ def run_batch(args: list[str], options: GateOptions, out: Path, engine, cache: R
 
         prefetch_libraries()  # the summary writer needs them; meanwhile this process mostly waits
     engine.run([(it.name, item_payload(it, g, context)) for it, g in todo], on_done, check=check)
-    for stale in items_dir.iterdir():  # reports of items no longer in the set, temporary files of killed runs
-        if stale.is_file() and (stale.name.startswith(".") or (stale.suffix == ".json" and stale.stem not in by_name)):
-            stale.unlink(missing_ok=True)
     run.rows = [rows[it.name] for it in items]
+    run.files = [f"{it.name}.json" for it in items]
     return run
 
 
@@ -627,6 +635,64 @@ def _summaries_if_unchanged(out: Path, rows_digest: str):
     return files, stamps
 
 
+LOCK_NAME = ".auditor-gate.lock"
+
+
+@contextmanager
+def output_lock(out: Path):
+    """Hold an exclusive lock on ``out`` for one gate run: a second run into the same folder
+    is refused at once with a clear line instead of mixing its files with the first's.
+    The kernel releases the lock when the process ends, however it ends."""
+    try:
+        Path(out).mkdir(parents=True, exist_ok=True)
+        fd = os.open(Path(out) / LOCK_NAME, os.O_RDWR | os.O_CREAT | getattr(os, "O_CLOEXEC", 0), 0o666)
+    except OSError as exc:
+        raise UsageError(f"{out}: cannot use the output folder ({exc.strerror})") from None
+    try:
+        try:
+            import fcntl
+
+            fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except ImportError:  # pragma: no cover - not POSIX: no lock
+            pass
+        except OSError:
+            raise UsageError(f"{out}: another auditor gate run is writing to this folder; "
+                             "wait for it to end or choose another --out") from None
+        yield
+    finally:
+        os.close(fd)
+
+
+def _recorded_item_files(out: Path) -> set[str]:
+    """Item files that earlier runs into ``out`` wrote, as recorded in their run.json."""
+    try:
+        stats = json.loads((Path(out) / "run.json").read_text(encoding="utf-8"))
+        names = stats.get("item_files") or []
+    except (OSError, ValueError, AttributeError):
+        return set()
+    return {n for n in names if isinstance(n, str) and n and "/" not in n and "\\" not in n and n not in (".", "..")}
+
+
+def _remove_stale(items_dir: Path, previous: set[str], current: set[str]) -> None:
+    """Delete what the tool itself wrote and no longer needs: reports of items that earlier
+    runs recorded and this run did not produce, and temporary files of killed runs (named
+    after one of those reports). Nothing else in the folder is touched."""
+    ours = previous | current
+    stale = [items_dir / n for n in sorted(previous - current)]
+    try:
+        stale += [p for p in items_dir.iterdir()
+                  if (m := TEMP_NAME.match(p.name)) and m.group("target") in ours]
+    except OSError:
+        pass
+    for path in stale:
+        try:
+            if path.is_file() and not path.is_symlink():
+                check_not_input(path)
+                path.unlink()
+        except (OSError, UsageError):
+            pass
+
+
 @dataclass
 class GateOutcome:
     run: BatchRun
@@ -640,14 +706,22 @@ def run_gate(args: list[str], options: GateOptions, out: Path, engine, cache: Re
              patterns=GEOMETRY_PATTERNS, progress=None, html: bool = False) -> GateOutcome:
     """Audit the set, judge every item against the policy (and baseline), write
     summary.csv, summary.parquet, junit.xml and run.json under ``out``; with ``html``
-    also items/<item>.html and the set overview index.html."""
+    also items/<item>.html and the set overview index.html. Only files this run or an
+    earlier one wrote (recorded in run.json) are ever replaced or deleted."""
+    t0 = time.monotonic()
+    with output_lock(out):
+        previous = _recorded_item_files(out)
+        run = run_batch(args, options, out, engine, cache, patterns, progress)
+        with protect(run.inputs + options.spec.files()):
+            return _finish_gate(run, options, out, cache, gate_policy, baseline, drop_decades, html, previous, t0)
+
+
+def _finish_gate(run, options, out, cache, gate_policy, baseline, drop_decades, html, previous, t0) -> GateOutcome:
     from .errors import EXIT_FAIL, EXIT_OK
     from .gate_policy import BLOCKING, GatePolicy, improvements, judge
     from .report.junit import write_junit
     from .report.summary import write_summary
 
-    t0 = time.monotonic()
-    run = run_batch(args, options, out, engine, cache, patterns, progress)
     judge(run.rows, gate_policy or GatePolicy(), baseline, drop_decades)
     digest = _rows_digest(run.rows)
     summaries, stamps = _summaries_if_unchanged(out, digest)
@@ -658,7 +732,9 @@ def run_gate(args: list[str], options: GateOptions, out: Path, engine, cache: Re
     if html:
         from .report.set_index import link_reports, write_item_pages, write_set_index
 
-        written += write_item_pages(out, run.rows)
+        pages = write_item_pages(out, run.rows)
+        written += pages
+        run.files += [p.name for p in pages]
         written.append(write_set_index(out, link_reports(out, run.rows),
                                        title=f"Gate: {options.spec.describe()}", policy=options.policy.as_dict()))
     code = EXIT_FAIL if any(r["outcome"] in BLOCKING for r in run.rows) else EXIT_OK
@@ -672,7 +748,9 @@ def run_gate(args: list[str], options: GateOptions, out: Path, engine, cache: Re
         "cache": str(cache.root) if cache is not None else None,
         "cache_write_errors": cache.failed_writes if cache is not None else 0, "version": __version__,
         "summary_stamps": stamps,
+        "item_files": sorted(run.files),
     }
+    _remove_stale(Path(out) / ITEMS_DIR, previous, set(run.files))
     written.append(Path(out) / "run.json")
     atomic_write(written[-1], json.dumps(stats, indent=2) + "\n")
     return GateOutcome(run, improvements(run.rows), code, written)

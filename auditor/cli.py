@@ -130,7 +130,7 @@ def prune(
     from .api import load_molecules, make_spec, prepare
     from .policy import Policy
     from .prune import prune_prepared, write_prune_outputs
-    from .report import report_stem
+    from .report import protect, report_stem
 
     try:
         if unit.lower() not in ("angstrom", "bohr"):
@@ -144,7 +144,8 @@ def prune(
         prep = prepare(frames[frame - 1], spec)
         result, plan = prune_prepared(prep, policy, options)
         stem = report_stem(str(geometry), frame, len(frames))
-        paths = write_prune_outputs(result, plan, prep, out_dir, stem)
+        with protect([geometry, *spec.files()]):
+            paths = write_prune_outputs(result, plan, prep, out_dir, stem)
     except AuditorError as exc:
         _fail(exc.message, exc.exit_code)
     if not quiet:

@@ -11,6 +11,7 @@ The pruned basis is a JSON document that pyscf reads directly::
 """
 from __future__ import annotations
 
+import io
 import json
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -521,9 +522,9 @@ def write_prune_outputs(result, plan: RemedyPlan, prep, out_dir: Path, stem: str
     files = {"basis": f"{stem}.pruned.json", "transform": f"{stem}.X.npy", "explain": f"{stem}.prune.md"}
     paths = [write_pruned(plan.pruned, out_dir / files["basis"])]
     X = canonical_transform(prep, result.recommendation.threshold)
-    tmp = out_dir / f".{files['transform']}.tmp.npy"
-    np.save(tmp, X)
-    tmp.replace(out_dir / files["transform"])
+    buf = io.BytesIO()
+    np.save(buf, X)
+    atomic_write(out_dir / files["transform"], buf.getvalue())
     paths.append(out_dir / files["transform"])
     atomic_write(out_dir / files["explain"], explain_markdown(result, plan, files))
     paths.append(out_dir / files["explain"])

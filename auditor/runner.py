@@ -11,7 +11,7 @@ from .api import audit_prepared, load_molecules, prepare
 from .basis import BasisSpec
 from .errors import EXIT_FAIL, EXIT_OK, AuditorError, failure
 from .policy import Policy
-from .report import report_stem, unique_name
+from .report import protect, report_stem, unique_name
 from .report.json import write_json
 from .report.markdown import write_markdown
 
@@ -67,6 +67,11 @@ def audit_paths(
     remedies=True,
 ) -> RunOutcome:
     """Audit every frame of every file; collect errors per file instead of stopping."""
+    with protect([*paths, *spec.files()]):
+        return _audit_each(paths, spec, policy, out, formats, unit, ghost, spectrum_method, on_result, remedies)
+
+
+def _audit_each(paths, spec, policy, out, formats, unit, ghost, spectrum_method, on_result, remedies) -> RunOutcome:
     outcome = RunOutcome()
     used: set[str] = set()
     for path in paths:
@@ -74,10 +79,10 @@ def audit_paths(
             frames = load_molecules(path, unit=unit, ghost=ghost)
             for mol in frames:
                 result = audit_prepared(prepare(mol, spec, spectrum_method), policy, spectrum_method, remedies)
-                outcome.results.append(result)
                 if out is not None:
                     stem = unique_name(report_stem(str(path), mol.frame + 1, mol.n_frames), used)
                     outcome.written += write_reports(result, out, formats, stem)
+                outcome.results.append(result)
                 if on_result:
                     on_result(result)
         except Exception as exc:  # one broken file must not stop the others

@@ -1,0 +1,84 @@
+"""Reading user files safely: regular files only, a size limit before reading, UTF-8 text
+with the line of the first undecodable byte named, and plain ASCII numbers.
+
+Input is data: nothing read here is ever evaluated.
+"""
+from __future__ import annotations
+
+import os
+import re
+import stat
+from pathlib import Path
+
+from .errors import InputError
+
+#: Default size limit of one input text file (geometry, basis file, list of paths).
+MAX_INPUT_BYTES = 64 << 20
+
+#: A plain decimal number in ASCII: optional sign, digits with an optional point, optional
+#: exponent (E or D, as Fortran writes it). No underscores, no other scripts' digits.
+NUMBER = re.compile(r"[+-]?(?:[0-9]+\.?[0-9]*|\.[0-9]+)(?:[eEdD][+-]?[0-9]+)?")
+
+
+def plain_float(token: str) -> float:
+    """``token`` as a float if it is a plain ASCII number, else ValueError (float() alone
+    accepts '1_0', 'nan', 'infinity' and digits of other scripts)."""
+    if not NUMBER.fullmatch(token):
+        raise ValueError(token)
+    return float(token.replace("d", "e").replace("D", "e"))
+
+
+def check_regular_file(path: Path, what: str = "file") -> os.stat_result:
+    """The file's status, or InputError unless ``path`` is a regular file (FIFOs, devices,
+    sockets and folders are refused before anything is opened: reading them can block
+    forever or never end)."""
+    try:
+        st = os.stat(path)
+    except FileNotFoundError:
+        raise InputError(f"{path}: no such {what}") from None
+    except OSError as exc:
+        raise InputError(f"{path}: cannot read ({exc.strerror})") from None
+    if stat.S_ISDIR(st.st_mode):
+        raise InputError(f"{path}: is a folder, expected a {what}")
+    if not stat.S_ISREG(st.st_mode):
+        raise InputError(f"{path}: not a regular file (a pipe, device or socket), expected a {what}")
+    return st
+
+
+def read_bytes(path: str | Path, what: str = "file", limit: int = MAX_INPUT_BYTES) -> bytes:
+    """The bytes of a regular file of at most ``limit`` bytes (InputError otherwise)."""
+    path = Path(path)
+    st = check_regular_file(path, what)
+    if st.st_size > limit:
+        raise InputError(f"{path}: {st.st_size / 2**20:.1f} MiB is larger than the limit of "
+                         f"{limit / 2**20:.0f} MiB for a {what} (--max-input-mb raises it)")
+    try:
+        # O_NONBLOCK: if the file was swapped for a FIFO after the check, open does not wait
+        fd = os.open(path, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0) | getattr(os, "O_CLOEXEC", 0))
+    except OSError as exc:
+        raise InputError(f"{path}: cannot read ({exc.strerror})") from None
+    with os.fdopen(fd, "rb") as fh:
+        if not stat.S_ISREG(os.fstat(fh.fileno()).st_mode):
+            raise InputError(f"{path}: not a regular file, expected a {what}")
+        data = fh.read(limit + 1)
+    if len(data) > limit:
+        raise InputError(f"{path}: larger than the limit of {limit / 2**20:.0f} MiB for a {what}")
+    return data
+
+
+def decode_text(data: bytes, path: str | Path) -> str:
+    """UTF-8 text (a leading byte-order mark is dropped), or InputError naming the line of
+    the first byte that is not UTF-8."""
+    if data.startswith(b"\xef\xbb\xbf"):
+        data = data[3:]
+    try:
+        return data.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        line = data.count(b"\n", 0, exc.start) + 1
+        raise InputError(f"{path}:{line}: not UTF-8 text (byte 0x{data[exc.start]:02x}); "
+                         "save the file as UTF-8") from None
+
+
+def read_text(path: str | Path, what: str = "file", limit: int = MAX_INPUT_BYTES) -> str:
+    """UTF-8 text of a regular file of at most ``limit`` bytes."""
+    return decode_text(read_bytes(path, what, limit), path)
