@@ -184,6 +184,10 @@ def load_pruned_doc(doc: dict, **overrides):
     """A pyscf Mole from a pruned-basis document (keyword arguments override Mole fields)."""
     from pyscf import gto
 
+    from .basis import eval_off
+
+    eval_off()  # the document is user data: pyscf must not evaluate text in it
+
     try:
         kw = {"atom": doc["atoms"], "basis": doc["basis"], "unit": doc.get("unit", "angstrom"),
               "cart": bool(doc.get("cartesian", False)), "charge": int(doc.get("charge", 0)),
