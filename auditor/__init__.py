@@ -9,10 +9,13 @@ Public API::
 __version__ = "0.1.0"
 
 _EXPORTS = {
-    "audit": "api", "audit_prepared": "api", "load_molecules": "api", "make_spec": "api", "prepare": "api",
-    "BasisSpec": "basis", "AuditorError": "errors", "InputError": "errors", "ResourceError": "errors",
-    "UsageError": "errors", "Molecule": "geometry", "read_geometry": "geometry", "Policy": "policy",
-    "AuditResult": "result",
+    "audit": "pipeline.run", "audit_prepared": "pipeline.run", "load_molecules": "pipeline.run", "make_spec": "pipeline.run",
+    "prepare": "pipeline.run", "prune_prepared": "pipeline.run", "AuditResult": "pipeline.result",
+    "BasisSpec": "inputs.basis", "Molecule": "inputs.geometry", "read_geometry": "inputs.geometry",
+    "load_pruned": "inputs.pruned", "Policy": "diagnosis.verdict", "RemedyOptions": "remedies.plan",
+    "to_json": "report.json_report", "render_markdown": "report.markdown", "render_html": "report.html",
+    "AuditorError": "base.errors", "InputError": "base.errors", "ResourceError": "base.errors",
+    "UsageError": "base.errors",
 }
 
 __all__ = list(_EXPORTS)

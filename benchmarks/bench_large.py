@@ -63,7 +63,7 @@ def worker(kind: str, xyz: str, basis: str) -> dict:
 
     import auditor
     from auditor import api
-    from auditor.api import audit_prepared, make_spec, prepare
+    from auditor.pipeline.run import audit_prepared, make_spec, prepare
 
     import pyscf.gto  # noqa: F401  (library code is not the audit's memory: load it before the baseline)
     import scipy.sparse.linalg  # noqa: F401
@@ -95,7 +95,7 @@ def worker(kind: str, xyz: str, basis: str) -> dict:
                              for a in rem.get("alternatives", [])],
         }
     else:
-        from auditor.large import large_spectrum
+        from auditor.numerics.factored import large_spectrum
 
         timing: dict = {}
         detail: dict = {}
@@ -151,8 +151,8 @@ def main(argv=None) -> None:
         print(json.dumps(worker(args.worker, args.xyz, args.basis)))
         return
 
-    from auditor.errors import ResourceError
-    from auditor.large import check_memory
+    from auditor.base.errors import ResourceError
+    from auditor.numerics.memory import check_memory
 
     print(f"# {time.strftime('%Y-%m-%d %H:%M UTC', time.gmtime())}, {os.cpu_count()} cores, "
           f"load average at start {os.getloadavg()[0]:.1f}")

@@ -4,7 +4,7 @@ Water clusters on a cubic grid (O-O 2.9 angstrom, fixed seed for orientations) i
 aug-cc-pVTZ (92 functions per water). For each size the script times, best of --repeat:
 
 * eigh: numpy.linalg.eigh of S (what the spectrum step does once);
-* target searches of auditor.cholesky.select_for_target, function and shell level, with
+* target searches of auditor.remedies.subset.select_for_target, function and shell level, with
   the kept set checked by eigvalsh or by Lanczos on the Cholesky factor;
 * the tolerance bisection (one pivoted factorization per trial), for comparison.
 
@@ -63,7 +63,7 @@ def main() -> None:
     from pyscf import gto
 
     sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), ".."))
-    from auditor.cholesky import select_for_target
+    from auditor.remedies.subset import select_for_target
 
     print(f"# basis {args.basis}, target {args.target:g}, BLAS threads {args.threads}, "
           f"best of {args.repeat}; times in seconds, ratio = time / eigh")

@@ -13,24 +13,13 @@ import math
 from html import escape
 from pathlib import Path
 
-from . import atomic_write
+from ..base.elements import L_LETTERS
+from ..base.files import atomic_write
+from ..base.jsonio import _clean
+from ..diagnosis.findings import SEVERITY_ORDER
+from .style import PAGE_CSS
+from .text import vectors_note
 
-SEVERITY_RANK = {"error": 0, "warning": 1, "info": 2}
-
-#: the page frame both HTML writers share (palette, type, numbers, figures, footer)
-PAGE_CSS = """
-:root { --ink:#1f2328; --muted:#59636e; --line:#d8dee4; --band:#f6f8fa;
-        --pass:#009E73; --caution:#E69F00; --fail:#D55E00; --error:#CC79A7; --accent:#0072B2; }
-* { box-sizing: border-box; }
-body { margin:0; color:var(--ink); background:#fff; font:15px/1.5 system-ui, -apple-system,
-       "Segoe UI", "DejaVu Sans", sans-serif; }
-h1 { font-size: 1.55em; margin: 0.2em 0 0.1em; }
-.sub { color: var(--muted); margin: 0 0 14px; }
-td.n, th.n { text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap; }
-figure { margin: 10px 0 16px; }
-figure img { max-width: 100%; height: auto; border: 1px solid var(--line); border-radius: 4px; }
-footer { margin-top: 36px; color: var(--muted); font-size: 0.82em; }
-"""
 
 CSS = PAGE_CSS + """
 main { max-width: 1080px; margin: 0 auto; padding: 20px 28px 40px; }
@@ -66,8 +55,6 @@ details summary { cursor: pointer; color: var(--accent); margin: 4px 0; }
 
 
 def _d(result) -> dict:
-    from .json import _clean
-
     return _clean(result if isinstance(result, dict) else result.as_dict())
 
 
@@ -77,16 +64,6 @@ def _value_attr(value) -> str:
     return json.dumps(value)
 
 
-def vectors_note(d: dict) -> str:
-    """Which eigenvectors the causes were summed over, in words."""
-    c, sp = d["causes"], d["spectrum"]
-    k, level = c["n_vectors"], c["vectors_below"]
-    below = sum(1 for v in sp["eigenvalues"] if v is not None and v < level)
-    if len(sp["eigenvalues"]) < d["input"]["n_functions"]:
-        below = sp["counts_below"].get(format(level, ".0e"), below)
-    if below is not None and below >= k:
-        return f"the {k} eigenvector(s) with eigenvalue below {level:.0e}"
-    return f"the {k} smallest eigenvector(s) ({below or 'none'} below {level:.0e})"
 
 
 def num(key: str, value, spec: str = ".3e", none: str = "not computed") -> str:
@@ -211,7 +188,7 @@ def _causes_tables(d: dict, limit: int = 12) -> str:
 
 
 def _findings(d: dict) -> str:
-    fs = sorted(enumerate(d["findings"]), key=lambda p: (SEVERITY_RANK.get(p[1]["severity"], 3), p[0]))
+    fs = sorted(enumerate(d["findings"]), key=lambda p: (SEVERITY_ORDER.get(p[1]["severity"], 3), p[0]))
     if not fs:
         return "<p>No geometry defects, duplicate functions or crowded diffuse shells were found.</p>"
     rows = "".join(
@@ -310,7 +287,7 @@ def _fold(n_rows: int, what: str, table: str) -> str:
 
 
 def _l(x) -> str:
-    return "spdfghik"[x] if isinstance(x, int) and 0 <= x < 8 else str(x)
+    return L_LETTERS[x] if isinstance(x, int) and 0 <= x < len(L_LETTERS) else str(x)
 
 
 def _where(r: dict) -> str:

@@ -5,9 +5,8 @@ import math
 import xml.etree.ElementTree as ET
 from pathlib import Path
 
-from ..gate_policy import BLOCKING
-from . import atomic_write
-from .summary import item_label
+from ..base.files import atomic_write
+from .rows import BLOCKING, item_label
 
 
 def _details(r: dict) -> str:

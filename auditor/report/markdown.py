@@ -3,7 +3,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from . import atomic_write
+from ..base.files import atomic_write
 
 MAX_ROWS = 10
 

@@ -8,6 +8,8 @@ from __future__ import annotations
 
 import io
 import math
+from pathlib import Path
+from urllib.parse import quote
 
 import numpy as np
 from matplotlib import rc_context
@@ -15,21 +17,11 @@ from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 
-from .html import vectors_note
+from ..base.files import atomic_write
+from .style import BLUE, GREEN, GREY, INK, ORANGE, SKY, VERDICT_COLOURS, VERMILION, WEIGHT_CMAP
+from .text import vectors_note
 
-# Okabe & Ito's colour-blind-safe qualitative palette.
-INK = "#222222"
-ORANGE = "#E69F00"
-SKY = "#56B4E9"
-GREEN = "#009E73"
-YELLOW = "#F0E442"
-BLUE = "#0072B2"
-VERMILION = "#D55E00"
-PURPLE = "#CC79A7"
-GREY = "#8C8C8C"
 
-VERDICT_COLOURS = {"pass": GREEN, "caution": ORANGE, "fail": VERMILION, "error": PURPLE}
-WEIGHT_CMAP = "YlGnBu"    # sequential in lightness, readable by colour-blind viewers: light = no share
 DPI = 110
 
 STYLE = {
@@ -409,10 +401,6 @@ FIGURE_TITLES = {
 
 def write_figures(images: dict[str, bytes], out, stem: str) -> list:
     """Write each figure as out/<stem>_<name>.png; returns the paths in FIGURE_TITLES order."""
-    from pathlib import Path
-
-    from . import atomic_write
-
     paths = []
     for name in FIGURE_TITLES:
         if images.get(name):
@@ -424,8 +412,6 @@ def write_figures(images: dict[str, bytes], out, stem: str) -> list:
 
 def markdown_figures(paths, stem: str) -> list[str]:
     """Markdown lines that show the figures written beside the report (relative links)."""
-    from urllib.parse import quote
-
     lines = ["## Figures", ""]
     for path in paths:
         name = path.name[len(stem) + 1:-4] if path.name.startswith(stem + "_") else path.stem

@@ -1,12 +1,17 @@
 """Short terminal summary (rich)."""
 from __future__ import annotations
 
+import math
 from pathlib import Path
 
-from rich.console import Console
+from rich.console import Console, Group
+from rich.markup import escape
 from rich.table import Table
+from rich.text import Text
 
-STYLE = {"pass": "green", "caution": "yellow", "fail": "bold red", "unreadable": "magenta"}
+from .rows import item_label, rank_key
+from .style import TERMINAL_STYLE as STYLE
+
 
 
 def summary_table(results, errors=()) -> Table:
@@ -64,3 +69,35 @@ def print_remedies(results, console: Console | None = None, always: bool = False
         elif tri and tri.get("difference_microhartree") is not None:
             console.print(f"    trial SCF ({tri['method']}): pruned minus canonical orthogonalization "
                           f"{tri['difference_microhartree']:+.1f} microhartree", highlight=False, markup=False)
+
+
+def worst_rows(rows: list[dict], n: int) -> list[dict]:
+    return sorted(rows, key=rank_key)[:n]
+
+
+def worst_table(rows: list[dict], n: int = 10):
+    """rich renderable of the ``n`` worst items (blocking outcomes first, then smallest
+    eigenvalue), with the reason of each item that is not plainly ok below the table."""
+    t = Table(show_header=True, header_style="bold", box=None, pad_edge=False,
+              title=f"worst {min(n, len(rows))} of {len(rows)} item(s)", title_justify="left")
+    for col in ("item", "verdict", "gate", "smallest λ", "log10 κ", "main atom", "τ advised", "removed"):
+        t.add_column(col, justify="right" if col in ("smallest λ", "log10 κ", "τ advised", "removed") else "left",
+                     overflow="fold", no_wrap=col not in ("item", "main atom"))
+    notes = []
+    for r in worst_rows(rows, n):
+        lam, cond = r["smallest_eigenvalue"], r["condition_number"]
+        ok = r["verdict"] != "error"
+        t.add_row(
+            escape(item_label(r)),
+            f"[{STYLE[r['verdict']]}]{r['verdict']}[/]",
+            f"[{STYLE.get(r.get('outcome'), '')}]{r.get('outcome', '')}[/]",
+            f"{lam:.2e}" if ok else "",
+            ("inf" if math.isinf(cond) else f"{math.log10(cond):.1f}") if ok else "",
+            r["top_atom"],
+            f"{r['threshold']:.1e}" if ok else "",
+            "" if r["n_removed"] is None else str(r["n_removed"]),
+        )
+        if r["verdict"] != "pass" or r.get("outcome") != "ok" or r.get("change"):
+            why = "; ".join(x for x in (r.get("change", ""), r.get("note", ""), r.get("reason", "")) if x)
+            notes.append(Text(f"  {why}" if r["verdict"] == "error" and not r.get("note") else f"  {item_label(r)}: {why}"))
+    return Group(t, *notes)

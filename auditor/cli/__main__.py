@@ -1,0 +1,4 @@
+"""python -m auditor.cli"""
+from . import main
+
+main()

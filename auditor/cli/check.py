@@ -1,0 +1,64 @@
+"""`auditor check`: audit geometries in one basis and write their reports."""
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Annotated, List
+
+import typer
+
+from . import options as o
+from .console import err, fail, out
+
+
+def check(
+    geometry: Annotated[List[Path], typer.Argument(help="XYZ / extended XYZ files (every frame is audited).")],
+    basis: o.Basis,
+    basis_for: o.BasisFor = None,
+    cartesian: o.Cartesian = False,
+    unit: o.Unit = "angstrom",
+    ghost: o.Ghost = None,
+    out_dir: Annotated[Path, typer.Option("--out", "-o", help="Folder for the reports.")] = Path("audit_reports"),
+    fmt: Annotated[str, typer.Option("--format", "-f", help="json, md (with PNG figures beside it), html "
+                                                           "(self-contained page) or all.")] = "all",
+    caution: o.Caution = 1e-5,
+    fail_level: Annotated[float, typer.Option("--fail", help="Smallest eigenvalue below which the verdict is fail.")] = 1e-7,
+    spectrum: o.Spectrum = "auto",
+    target: o.Target = None,
+    trial_scf: o.TrialScf = None,
+    trial_max_functions: o.TrialMaxFunctions = 400,
+    trial_seconds: o.TrialSeconds = 120.0,
+    quiet: o.Quiet = False,
+):
+    """Audit each geometry in one basis; write DIR/<stem>.json, .md and .html per frame.
+
+    Exit codes: 0 pass or caution, 1 fail, 2 usage error, 3 unreadable input, 4 too large,
+    5 internal error.
+    """
+    from ..pipeline.run import make_spec
+    from ..base.errors import EXIT_USAGE, AuditorError
+    from ..diagnosis.verdict import Policy
+    from ..gate.serial import audit_paths
+    from ..report.terminal import print_remedies, print_summary
+    from ..report.writers import FORMATS
+
+    if fmt not in FORMATS:
+        fail(f"--format must be one of {', '.join(FORMATS)}, got {fmt!r}", EXIT_USAGE)
+    try:
+        spec = make_spec(basis, basis_for, cartesian)
+        policy = Policy(caution=caution, fail=fail_level)
+        o.check_unit(unit)
+        o.check_ghost(ghost)
+        remedies = o.remedy_options(target, trial_scf, trial_max_functions, trial_seconds)
+        o.check_spectrum_method(spectrum)
+    except AuditorError as exc:
+        fail(exc.message, exc.exit_code)
+    outcome = audit_paths(geometry, spec, policy, out_dir, fmt, unit=unit, ghost=ghost, remedies=remedies,
+                          spectrum_method=spectrum)
+    for _, message, _ in outcome.errors:
+        err.print(f"[bold red]error:[/] {message}")
+    if not quiet:
+        print_summary(outcome.results, [(p, m) for p, m, _ in outcome.errors], out)
+        print_remedies(outcome.results, out)
+        if outcome.written:
+            out.print(f"wrote {len(outcome.written)} report file(s) to {out_dir}/")
+    raise typer.Exit(outcome.exit_code)

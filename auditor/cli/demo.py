@@ -1,0 +1,29 @@
+"""`auditor demo`: audit the bundled examples and write the sample reports."""
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Annotated, Optional
+
+import typer
+
+from .console import fail, out
+
+
+def demo(
+    out_dir: Annotated[Path, typer.Option("--out", "-o", help="Folder for the sample reports.")] = Path("reports"),
+    examples: Annotated[Optional[Path], typer.Option("--examples", help="Folder with examples.toml and the "
+                                                                        "geometries.")] = None,
+):
+    """Audit the bundled example geometries and write their reports (and an index)."""
+    from ..base.errors import AuditorError
+    from ..gate.demo import find_examples, run_demo
+    from ..report.terminal import print_summary
+
+    try:
+        folder = examples or find_examples()
+        outcome, index = run_demo(folder, out_dir)
+    except AuditorError as exc:
+        fail(exc.message, exc.exit_code)
+    print_summary(outcome.results, [(p, m) for p, m, _ in outcome.errors], out)
+    out.print(f"wrote {len(outcome.written)} report file(s) and {index}")
+    raise typer.Exit(0 if not outcome.errors else outcome.exit_code)

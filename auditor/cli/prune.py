@@ -1,0 +1,69 @@
+"""`auditor prune`: write a shell-pruned basis, the matrix X and an explanation."""
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Annotated
+
+import typer
+
+from . import options as o
+from .console import fail, out
+
+
+def prune(
+    geometry: Annotated[Path, typer.Argument(help="XYZ / extended XYZ file.")],
+    basis: o.Basis,
+    out_dir: Annotated[Path, typer.Option("--out", "-o", help="Folder for <stem>.pruned.json, <stem>.X.npy and "
+                                                              "<stem>.prune.md.")],
+    target: Annotated[float | None, typer.Option("--target", help="Smallest eigenvalue the pruned basis must reach "
+                                                                  "(default: the caution level).")] = None,
+    basis_for: o.BasisFor = None,
+    cartesian: o.Cartesian = False,
+    unit: o.Unit = "angstrom",
+    ghost: o.Ghost = None,
+    frame: Annotated[int, typer.Option("--frame", help="Frame of a multi-frame file (1-based).")] = 1,
+    caution: Annotated[float, typer.Option("--caution", help="Caution level (the default target).")] = 1e-5,
+    fail_level: Annotated[float, typer.Option("--fail", help="Fail level (bounds the advised threshold).")] = 1e-7,
+    trial_scf: o.TrialScf = None,
+    trial_max_functions: o.TrialMaxFunctions = 400,
+    trial_seconds: o.TrialSeconds = 120.0,
+    quiet: o.Quiet = False,
+):
+    """Write a shell-pruned basis that reaches a target smallest eigenvalue, the canonical
+    orthogonalization matrix X, and a Markdown explanation.
+
+    Exit codes: 0 written, 2 usage error (bad target, a pruning that empties an atom),
+    3 unreadable input, 5 internal error.
+    """
+    from ..pipeline.run import load_molecules, make_spec, prepare, prune_prepared
+    from ..base.errors import AuditorError, UsageError
+    from ..base.files import protect
+    from ..diagnosis.verdict import Policy
+    from ..report.naming import report_stem
+    from ..report.pruned_files import write_prune_outputs
+    from ..report.terminal import print_remedies
+
+    try:
+        o.check_unit(unit)
+        options = o.remedy_options(target, trial_scf, trial_max_functions, trial_seconds)
+        spec = make_spec(basis, basis_for, cartesian)
+        policy = Policy(caution=caution, fail=fail_level)
+        frames = load_molecules(geometry, unit=unit, ghost=ghost)
+        if not 1 <= frame <= len(frames):
+            raise UsageError(f"{geometry}: frame {frame} requested, file has {len(frames)} frame(s)")
+        prep = prepare(frames[frame - 1], spec)
+        result, plan = prune_prepared(prep, policy, options)
+        stem = report_stem(str(geometry), frame, len(frames))
+        with protect([geometry, *spec.files()]):
+            paths = write_prune_outputs(result, plan, prep, out_dir, stem)
+    except AuditorError as exc:
+        fail(exc.message, exc.exit_code)
+    if not quiet:
+        doc = plan.pruned
+        out.print(f"{geometry.name}: kept {doc['n_functions']} of {doc['n_functions_full']} functions, "
+                  f"dropped {len(doc['dropped_shells'])} shell(s); smallest eigenvalue "
+                  f"{doc['smallest_eigenvalue']:.3e} (target {plan.target:.1e}, full basis "
+                  f"{result.spectrum.smallest:.3e})", markup=False)
+        print_remedies([result], out, always=True)
+        out.print("wrote " + ", ".join(str(p) for p in paths), markup=False)
+    raise typer.Exit(0)

@@ -1,0 +1,79 @@
+"""The demo: audit the bundled example geometries and write sample reports."""
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+from ..pipeline.run import make_spec
+from ..base.errors import InputError
+from ..base.files import atomic_write
+from ..diagnosis.verdict import Policy
+from ..report.naming import report_stem
+from ..report.overview import item_from_result, write_set_index
+from ..report.rows import error_row
+from .serial import RunOutcome, audit_paths
+
+if sys.version_info >= (3, 11):
+    import tomllib
+else:  # pragma: no cover
+    import tomli as tomllib
+
+MANIFEST = "examples.toml"
+ORIGIN = "Written by `auditor demo` from `example_geometries/` (a scenario of our own, not real data)"
+
+
+def find_examples() -> Path:
+    """example_geometries/ in the working folder (as a relative path, so that the reports
+    do not depend on where the checkout lives), else beside the installed package."""
+    for base in (Path("."), Path(__file__).resolve().parents[2]):
+        folder = base / "example_geometries"
+        if (folder / MANIFEST).is_file():
+            return folder
+    raise InputError(f"no example_geometries/{MANIFEST} found here or beside the package")
+
+
+def load_manifest(folder: Path) -> list[dict]:
+    path = folder / MANIFEST
+    try:
+        data = tomllib.loads(path.read_text(encoding="utf-8"))
+    except (OSError, tomllib.TOMLDecodeError) as exc:
+        raise InputError(f"{path}: cannot read ({exc})") from None
+    return data.get("example", [])
+
+
+def run_demo(folder: Path, out: Path) -> tuple[RunOutcome, Path]:
+    """Audit every example of the manifest; write reports and an index to ``out``."""
+    total = RunOutcome()
+    rows, items = [], []
+    policy = Policy()
+    for ex in load_manifest(folder):
+        spec = make_spec(ex["basis"], ex.get("basis_for"), bool(ex.get("cartesian", False)))
+        o = audit_paths([folder / ex["file"]], spec, policy, out, "all",
+                        unit=ex.get("unit", "angstrom"), ghost=ex.get("ghost"))
+        total.results += o.results
+        total.errors += o.errors
+        total.written += o.written
+        for r in o.results:
+            stem = report_stem(r.input.path, r.input.frame, r.input.n_frames)
+            kinds = sorted({f.kind for f in r.findings if f.severity != "info"})
+            rows.append(f"| [{stem}]({stem}.md) | {r.input.basis} | {r.input.n_functions} | "
+                        f"**{r.verdict}** | {r.spectrum.smallest:.2e} | {', '.join(kinds) or '-'} | {ex.get('note', '')} |")
+            items.append({**item_from_result(r, f"{stem}.html"), "path": Path(r.input.path).name})
+        for p, msg, _ in o.errors:
+            rows.append(f"| {Path(p).name} | {ex['basis']} | | unreadable | | {msg} | {ex.get('note', '')} |")
+            items.append({**error_row(Path(p).name, None, "", ex["basis"], msg), "report": ""})
+    index = out / "index.md"
+    atomic_write(index, "\n".join([
+        "# Sample reports",
+        "",
+        f"{ORIGIN}. The same reports as self-contained HTML pages: [index.html](index.html).",
+        "",
+        "| report | basis | functions | verdict | smallest eigenvalue | findings | scenario |",
+        "|---|---|---|---|---|---|---|",
+        *rows,
+        "",
+    ]))
+    total.written.append(write_set_index(
+        out, items, title="Sample reports", policy=policy.as_dict(),
+        note=ORIGIN.replace("`", "") + "."))
+    return total, index

@@ -1,0 +1,118 @@
+"""One item as a task: its cache key, the JSON payload a worker receives, and the audit it runs."""
+from __future__ import annotations
+
+import json
+import time
+from pathlib import Path
+
+from .. import __version__
+from ..base.errors import InputError, UsageError, failure
+from ..diagnosis.verdict import Policy
+from ..inputs.basis import BasisSpec
+from ..inputs.geometry import Molecule
+from ..report.json_report import dumps_result
+from ..report.rows import brief
+from .cache import content_key, file_digest
+from .items import GateOptions, Item
+
+
+def _pyscf_version() -> str:
+    from importlib.metadata import PackageNotFoundError, version
+
+    try:
+        return version("pyscf")
+    except PackageNotFoundError:
+        return "unknown"
+
+
+def _versions() -> dict:
+    """The versions a result depends on, where it is computed."""
+    return {"auditor": __version__, "pyscf": _pyscf_version()}
+
+
+def _geometry(mol: Molecule) -> dict:
+    return {
+        "symbols": list(mol.symbols),
+        "coords": [[float(x) for x in row] for row in mol.coords],
+        "ghost": [bool(g) for g in mol.ghost],
+        "charge": int(mol.charge),
+        "multiplicity": mol.multiplicity,
+    }
+
+
+def run_context(options: GateOptions) -> dict:
+    """Everything besides the geometry that a result depends on (part of every cache key)."""
+    names = [options.spec.default, *options.spec.per_element.values()]
+    files = {n: file_digest(Path(n).expanduser()) for n in names if Path(n).expanduser().is_file()}
+    return {
+        "basis": options.spec.as_dict(),
+        "basis_files": files,
+        "policy": options.policy.as_dict(),
+        "spectrum_method": options.spectrum_method,
+        "remedies": options.remedies,
+        "versions": _versions(),
+    }
+
+
+def item_key(geometry: dict, context: dict) -> str:
+    """Content hash of (geometry, basis, options, versions); the file name plays no part."""
+    return content_key({"geometry": geometry, **context})
+
+
+def item_payload(item: Item, geometry: dict, context: dict) -> str:
+    """JSON text that a worker needs to audit ``item`` (``context``: ``run_context``)."""
+    mol = item.molecule
+    return json.dumps({
+        "geometry": geometry, "source": item.path, "frame": mol.frame, "n_frames": mol.n_frames,
+        "basis": context["basis"], "policy": context["policy"], "spectrum_method": context["spectrum_method"],
+        "remedies": context["remedies"], "versions": context["versions"],
+    })
+
+
+def run_item(payload: str) -> str:
+    """Audit one item (worker side): JSON text in; JSON text out, {"report": <report JSON
+    text>, "brief": ..., "versions": ...} or {"error": "..."}."""
+    import numpy as np
+
+    from ..pipeline.run import audit_prepared, prepare  # in the worker: the parent never loads pyscf
+
+    p = json.loads(payload)
+    t0 = time.perf_counter()
+    try:
+        g = p["geometry"]
+        mol = Molecule(tuple(g["symbols"]), np.asarray(g["coords"], dtype=float), tuple(g["ghost"]),
+                       charge=g["charge"], multiplicity=g["multiplicity"], source=p["source"],
+                       frame=p["frame"], n_frames=p["n_frames"])
+        spec = BasisSpec(p["basis"]["default"], dict(p["basis"]["per_element"]), bool(p["basis"]["cartesian"]))
+        result = audit_prepared(prepare(mol, spec, p["spectrum_method"]), Policy(**p["policy"]),
+                                p["spectrum_method"], remedies=bool(p.get("remedies", False))).as_dict()
+        return json.dumps({"seconds": round(time.perf_counter() - t0, 6), "report": dumps_result(result, compact=True),
+                           "brief": brief(result), "versions": _versions()})
+    except Exception as exc:  # an item must never take the run down; report it as that item's error
+        return json.dumps({"error": failure(exc)[0]})
+
+
+def check_basis_names(spec: BasisSpec, elements) -> None:
+    """A basis name that neither pyscf nor the file system knows is a usage error, not one
+    error per item. (Imports pyscf: runs where the audits run.)"""
+    from ..inputs.basis import load_shells  # in the worker: loads pyscf
+
+    elements = set(elements)
+    for name in sorted({spec.for_element(el) for el in elements}):
+        users = sorted(el for el in elements if spec.for_element(el) == name)
+        try:
+            load_shells(name, users[0])
+        except InputError as exc:
+            if exc.message.startswith("unknown basis name"):
+                raise UsageError(exc.message) from None
+
+
+def _preflight(check: tuple | None) -> str:
+    """Run ``check_basis_names(*check)``; the usage error's message, or "" when fine."""
+    if check is None:
+        return ""
+    try:
+        check_basis_names(*check)
+    except UsageError as exc:
+        return exc.message
+    return ""

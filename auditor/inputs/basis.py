@@ -1,0 +1,319 @@
+"""Basis names and files -> per-element shells, and shell metadata (exponent, diffuse)."""
+from __future__ import annotations
+
+import difflib
+import re
+from dataclasses import dataclass, field
+from functools import lru_cache
+from pathlib import Path
+
+from ..base.elements import element_symbol
+from ..base.errors import InputError, UsageError
+from ..base.textio import NUMBER, read_text
+
+#: A shell counts as diffuse (when the basis name does not tell us its parent, see
+#: ``parent_basis``) if its smallest exponent is below this fraction of the smallest
+#: exponent of the same angular momentum in the reference valence basis below.
+#: Heuristic of our own, calibrated on the cc-pVXZ / aug-cc-pVXZ pairs for H and C-O.
+FALLBACK_FRACTION = 0.35
+REFERENCE_BASES = ("cc-pvdz", "def2-svp")
+
+
+@dataclass(frozen=True)
+class BasisSpec:
+    """Which basis each element gets: a default plus per-element overrides.
+
+    Each value is a basis name that pyscf knows or a path to a basis file in a
+    format pyscf parses (NWChem format).
+    """
+
+    default: str
+    per_element: dict[str, str] = field(default_factory=dict)
+    cartesian: bool = False
+
+    def for_element(self, element: str) -> str:
+        return self.per_element.get(element, self.default)
+
+    def describe(self) -> str:
+        extra = ", ".join(f"{el}={name}" for el, name in sorted(self.per_element.items()))
+        kind = "cartesian" if self.cartesian else "spherical"
+        return f"{self.default}" + (f" ({extra})" if extra else "") + f" [{kind}]"
+
+    def files(self) -> list[str]:
+        """The basis files this specification names (inputs: never overwritten)."""
+        names = [self.default, *self.per_element.values()]
+        return [n for n in dict.fromkeys(names) if Path(n).expanduser().is_file()]
+
+    def as_dict(self) -> dict:
+        return {
+            "default": self.default,
+            "per_element": dict(sorted(self.per_element.items())),
+            "cartesian": self.cartesian,
+        }
+
+
+def parse_overrides(items: list[str] | None) -> dict[str, str]:
+    """Parse ['H=cc-pvtz', 'O=file.nw'] into {'H': 'cc-pvtz', 'O': 'file.nw'}."""
+    out: dict[str, str] = {}
+    for item in items or []:
+        if "=" not in item:
+            raise UsageError(f"--basis-for expects ELEMENT=BASIS, got {item!r}")
+        el, name = item.split("=", 1)
+        try:
+            sym = element_symbol(el, "--basis-for")
+        except InputError as exc:
+            raise UsageError(str(exc)) from None
+        out[sym] = check_basis_name(name, f"--basis-for {el}")
+    return out
+
+
+def _canon(name: str) -> str:
+    from pyscf.gto import basis as pbasis
+
+    return pbasis._format_basis_name(name)
+
+
+@lru_cache(maxsize=None)
+def _known_names() -> tuple[str, ...]:
+    from pyscf.gto import basis as pbasis
+
+    return tuple(sorted(pbasis.ALIAS))
+
+
+@lru_cache(maxsize=None)
+def _exchange_names() -> frozenset:
+    """Basis names of basis_set_exchange, which pyscf consults for names it does not hold."""
+    try:
+        import basis_set_exchange as bse
+    except ImportError:
+        return frozenset()
+    return frozenset(n.lower() for n in bse.get_all_basis_names())
+
+
+def _in_exchange(name: str) -> bool:
+    return name.strip().lower() in _exchange_names()
+
+
+@lru_cache(maxsize=None)
+def _display_names() -> dict[str, str]:
+    """pyscf's canonical name -> a name as people write it (basis_set_exchange's, if any)."""
+    shown = {k: k for k in _known_names()}
+    for n in sorted(_exchange_names()):
+        shown[_canon(n)] = n
+    return shown
+
+
+def _suggest(name: str) -> str:
+    shown = _display_names()
+    close = difflib.get_close_matches(_canon(name), list(shown), n=3, cutoff=0.6)
+    return f"; close names: {', '.join(shown[c] for c in close)}" if close else ""
+
+
+def check_basis_name(name: str, where: str = "basis") -> str:
+    """``name`` stripped, or UsageError for an empty name or one with control characters
+    (pyscf would parse a name with a line break as basis text)."""
+    text = str(name).strip()
+    if not text:
+        raise UsageError(f"{where}: empty basis name")
+    if any(ord(c) < 32 or ord(c) == 127 for c in text):
+        raise UsageError(f"{where}: a basis name or file name is one line without control characters")
+    return text
+
+
+def eval_off() -> None:
+    """Turn off pyscf's evaluation of text as Python in every parser that has it.
+
+    pyscf's basis, ECP and geometry parsers evaluate a data line that is not a plain
+    number with ``eval`` unless DISABLE_EVAL is set; a basis file could then run code.
+    The flag is read at import time into each parser module, so it is set in each one
+    (and in pyscf's config, for parsers imported later)."""
+    import pyscf
+    import pyscf.gto.basis.parse_cp2k as cp2k
+    import pyscf.gto.basis.parse_molpro as molpro
+    import pyscf.gto.basis.parse_nwchem as nwchem
+    import pyscf.gto.basis.parse_nwchem_ecp as nwchem_ecp
+    import pyscf.gto.mole as mole
+
+    pyscf.__config__.DISABLE_EVAL = True
+    for module in (mole, nwchem, nwchem_ecp, cp2k, molpro):
+        module.DISABLE_EVAL = True
+
+
+#: NWChem-format basis files above this size are refused (published sets are a few MB).
+MAX_BASIS_FILE_BYTES = 16 << 20
+_KEYWORDS = ("BASIS", "END", "ECP", "SO")
+
+
+@lru_cache(maxsize=64)
+def read_basis_file(path: str) -> dict[str, tuple[str, ...]]:
+    """The lines of each element's shells in an NWChem-format basis file, checked line by
+    line: every data line must be plain ASCII numbers (InputError naming the line
+    otherwise). ECP sections are skipped: they do not enter the overlap."""
+    text = read_text(path, "basis file", MAX_BASIS_FILE_BYTES)
+    blocks: dict[str, list[str]] = {}
+    current: list[str] | None = None
+    in_ecp = False
+    for k, raw in enumerate(text.splitlines(), 1):
+        line = raw.split("#", 1)[0].strip()
+        if not line:
+            continue
+        tokens = line.split()
+        head = tokens[0].upper()
+        if head in _KEYWORDS:
+            in_ecp = head == "ECP" or (in_ecp and head != "END")
+            current = None
+            continue
+        if tokens[0][0].isalpha():
+            try:
+                symbol = element_symbol(tokens[0], f"{path}:{k}")
+            except InputError:
+                raise InputError(f"{path}:{k}: expected an element and a shell type (e.g. 'H S'), "
+                                 f"found {line[:40]!r}") from None
+            current = None if in_ecp else blocks.setdefault(symbol, [])
+        elif not all(NUMBER.fullmatch(t) for t in tokens):
+            bad = next(t for t in tokens if not NUMBER.fullmatch(t))
+            raise InputError(f"{path}:{k}: basis data must be plain numbers, found {bad[:40]!r}")
+        elif current is None and not in_ecp:
+            raise InputError(f"{path}:{k}: numbers before any 'ELEMENT SHELL' line")
+        if current is not None:
+            current.append(line)
+    if not blocks:
+        raise InputError(f"{path}: no basis data in NWChem format (lines such as 'H S' followed by "
+                         "exponents and coefficients)")
+    return {el: tuple(lines) for el, lines in blocks.items()}
+
+
+def _file_shells(path: str, element: str) -> list:
+    from pyscf.gto import basis as pbasis
+    from pyscf.gto.basis import parse_nwchem
+
+    blocks = read_basis_file(path)
+    if element not in blocks:
+        raise InputError(f"basis file {path} has no functions for element {element} "
+                         f"(it has {', '.join(sorted(blocks))})")
+    try:  # only this element's lines: pyscf alone would fall back to the whole file
+        return parse_nwchem.parse("\n".join(blocks[element]), optimize=pbasis.OPTIMIZE_CONTRACTION)
+    except Exception as exc:  # pyscf raises BasisNotFoundError, ValueError, IndexError, ...
+        raise InputError(f"basis file {path}: cannot read the shells of {element} "
+                         f"({exc.__class__.__name__}: {str(exc).strip().splitlines()[0] if str(exc).strip() else ''})") from None
+
+
+@lru_cache(maxsize=None)
+def load_shells(name: str, element: str) -> tuple:
+    """Shells of ``element`` in basis ``name`` (pyscf's internal list format).
+
+    ``name`` is a basis name or an NWChem-format file (read by a numbers-only check
+    first). Raises InputError naming what is missing, with close names for typos.
+    """
+    from pyscf.gto import basis as pbasis
+
+    eval_off()
+    name = check_basis_name(name)
+    path = Path(name).expanduser()
+    if path.exists():
+        shells = _file_shells(str(path), element)
+    else:
+        try:
+            shells = pbasis.load(name, element)
+        except Exception:  # pyscf raises BasisNotFoundError, KeyError, RuntimeError, ...
+            if _canon(name) not in pbasis.ALIAS and not pbasis._is_pople_basis(name) and not _in_exchange(name):
+                raise InputError(f"unknown basis name {name!r}{_suggest(name)}") from None
+            raise InputError(f"basis {name!r} has no functions for element {element}") from None
+    if not shells:
+        where = f"basis file {name}" if path.exists() else f"basis {name!r}"
+        raise InputError(f"{where} has no functions for element {element}")
+    bad = _bad_exponent(shells)
+    if bad is not None:
+        raise InputError(f"basis {name!r}: element {element} has a shell with exponent {bad!r}; "
+                         "exponents must be positive and finite")
+    return tuple(_freeze(s) for s in shells)
+
+
+def _bad_exponent(shells):
+    import math
+
+    for shell in shells:
+        prims = shell[2:] if isinstance(shell[1], int) else shell[1:]
+        for p in prims:
+            if not (isinstance(p[0], (int, float)) and math.isfinite(p[0]) and p[0] > 0):
+                return p[0]
+    return None
+
+
+def _freeze(shell):
+    if isinstance(shell, list):
+        return tuple(_freeze(x) for x in shell)
+    return shell
+
+
+def thaw(shells) -> list:
+    """Frozen shells back to pyscf's mutable list format."""
+    if isinstance(shells, tuple):
+        return [thaw(x) for x in shells]
+    return shells
+
+
+_AUG_PATTERNS = (
+    (re.compile(r"^(?:[dtq]-)?aug-(.+)$"), r"\1"),
+    (re.compile(r"^ma-(.+)$"), r"\1"),
+    (re.compile(r"^(def2-(?:svp|tzvp|tzvpp|qzvp|qzvpp))d$"), r"\1"),
+)
+
+
+def parent_basis(name: str) -> str | None:
+    """The basis without its diffuse augmentation, when the name says so.
+
+    aug-cc-pvtz -> cc-pvtz, d-aug-X -> X, ma-def2-svp -> def2-svp,
+    def2-tzvppd -> def2-tzvpp, 6-311++g** -> 6-311g**. None otherwise.
+    """
+    low = name.strip().lower()
+    for pattern, repl in _AUG_PATTERNS:
+        if pattern.match(low):
+            return pattern.sub(repl, low)
+    if re.match(r"^\d-\d+\+{1,2}g", low):
+        return low.replace("+", "", 2) if "++" in low else low.replace("+", "", 1)
+    return None
+
+
+def _min_exponent_by_l(shells) -> dict[int, float]:
+    out: dict[int, float] = {}
+    for shell in shells:
+        l = shell[0]
+        prims = shell[1:] if not isinstance(shell[1], (int,)) else shell[2:]
+        exps = [p[0] for p in prims]
+        if exps:
+            out[l] = min(out.get(l, float("inf")), min(exps))
+    return out
+
+
+@lru_cache(maxsize=None)
+def diffuse_rule(name: str, element: str) -> tuple[str, dict[int, float], float]:
+    """How shells of ``element`` in basis ``name`` are judged diffuse.
+
+    Returns (how, cut-off exponent per l, cut-off for l not listed). A shell whose
+    smallest exponent lies below the cut-off for its l is diffuse. With a known
+    parent basis the cut-off is the parent's smallest exponent (the shells that the
+    augmentation added); otherwise FALLBACK_FRACTION of a reference valence basis.
+    """
+    parent = parent_basis(name) if not Path(name).expanduser().is_file() else None
+    if parent:
+        try:
+            ref = _min_exponent_by_l(load_shells(parent, element))
+            return (f"below the smallest exponent of {parent}", {l: a * 0.999 for l, a in ref.items()}, float("inf"))
+        except InputError:
+            pass
+    for ref_name in REFERENCE_BASES:
+        try:
+            ref = _min_exponent_by_l(load_shells(ref_name, element))
+        except InputError:
+            continue
+        cut = {l: FALLBACK_FRACTION * a for l, a in ref.items()}
+        top = cut[max(cut)]
+        return (f"below {FALLBACK_FRACTION} x the smallest exponent of {ref_name}", cut, top)
+    return ("no reference basis for this element", {}, 0.0)
+
+
+def is_diffuse(name: str, element: str, l: int, exponent: float) -> bool:
+    """Whether a shell with angular momentum ``l`` and smallest exponent counts as diffuse."""
+    _, cut, other = diffuse_rule(name, element)
+    return exponent < cut.get(l, other)

@@ -1,0 +1,36 @@
+"""The pruned-basis document (format ``auditor-pruned-basis/1``) read back as a pyscf Mole."""
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+from ..base.errors import InputError
+from .basis import eval_off
+
+
+PRUNED_FORMAT = "auditor-pruned-basis/1"
+
+
+def load_pruned_doc(doc: dict, **overrides):
+    """A pyscf Mole from a pruned-basis document (keyword arguments override Mole fields)."""
+    from pyscf import gto
+
+    eval_off()  # the document is user data: pyscf must not evaluate text in it
+
+    try:
+        kw = {"atom": doc["atoms"], "basis": doc["basis"], "unit": doc.get("unit", "angstrom"),
+              "cart": bool(doc.get("cartesian", False)), "charge": int(doc.get("charge", 0)),
+              "spin": int(doc.get("spin", 0)), "verbose": 0}
+    except (KeyError, TypeError, ValueError) as exc:
+        raise InputError(f"not a pruned-basis document ({exc.__class__.__name__}: {exc})") from None
+    kw.update(overrides)
+    return gto.M(**kw)
+
+
+def load_pruned(path, **overrides):
+    """A pyscf Mole from a pruned-basis JSON file (keyword arguments override Mole fields)."""
+    try:
+        doc = json.loads(Path(path).read_text(encoding="utf-8"))
+    except (OSError, ValueError) as exc:
+        raise InputError(f"{path}: cannot read a pruned-basis file ({exc.__class__.__name__})") from None
+    return load_pruned_doc(doc, **overrides)

@@ -1,0 +1,161 @@
+"""Factorizations of S - shift*I in one triangle of S while the other keeps S (no second N x N array)."""
+from __future__ import annotations
+
+import ctypes
+from typing import Any
+
+import numpy as np
+from scipy.linalg import lapack
+
+
+def _fortran_view(S: np.ndarray) -> np.ndarray:
+    """S itself as a Fortran-ordered array (its transpose when S is C-ordered)."""
+    if S.dtype != np.float64 or S.ndim != 2 or S.shape[0] != S.shape[1]:
+        raise ValueError("S must be a square float64 array")
+    if not S.flags.writeable:
+        raise ValueError("the large path works in place and needs a writeable S")
+    if S.flags.f_contiguous:
+        return S
+    if S.flags.c_contiguous:
+        return S.T  # same memory; S is symmetric
+    raise ValueError("the large path needs a contiguous S (C or Fortran order)")
+
+
+def _restore_lower(A: np.ndarray, diag: np.ndarray, shift: float = 0.0, block: int = 64) -> None:
+    """Overwrite the lower triangle of A with the mirror of its strict upper triangle.
+
+    The diagonal becomes ``diag - shift``; no N x N temporary is made.
+    """
+    n = A.shape[0]
+    for j0 in range(0, n, block):
+        j1 = min(n, j0 + block)
+        A[j1:, j0:j1] = A[j0:j1, j1:].T
+        d = A[j0:j1, j0:j1]
+        il = np.tril_indices(j1 - j0, -1)
+        d[il] = d.T[il]
+    np.fill_diagonal(A, diag - shift)
+
+
+def _fortran_routine(module, name: str, n_args: int):
+    """A BLAS/LAPACK routine of scipy's own library, callable with raw pointers."""
+    capsule = module.__pyx_capi__[name]
+    api = ctypes.pythonapi
+    api.PyCapsule_GetName.restype = ctypes.c_char_p
+    api.PyCapsule_GetName.argtypes = [ctypes.py_object]
+    api.PyCapsule_GetPointer.restype = ctypes.c_void_p
+    api.PyCapsule_GetPointer.argtypes = [ctypes.py_object, ctypes.c_char_p]
+    address = api.PyCapsule_GetPointer(capsule, api.PyCapsule_GetName(capsule))
+    return ctypes.CFUNCTYPE(None, *([ctypes.c_void_p] * n_args))(address)
+
+
+_ROUTINES: dict[str, Any] = {}
+
+
+def _routine(name: str):
+    if not _ROUTINES:
+        from scipy.linalg import cython_blas, cython_lapack
+
+        _ROUTINES.update(
+            dgemm=_fortran_routine(cython_blas, "dgemm", 13),
+            dsyrk=_fortran_routine(cython_blas, "dsyrk", 10),
+            dtrsm=_fortran_routine(cython_blas, "dtrsm", 11),
+            dpotrf=_fortran_routine(cython_lapack, "dpotrf", 5),
+        )
+    return _ROUTINES[name]
+
+
+def _cholesky(A: np.ndarray, block: int = 384) -> int:
+    """In-place Cholesky of the lower triangle of Fortran-ordered A; returns the LAPACK
+    convention info (0 = success, j = the leading minor of order j is not positive).
+
+    Left-looking and blocked, calling BLAS-3 on sub-blocks of A in place: a failure at
+    column j costs about the work up to column j (LAPACK's right-looking dpotrf does
+    most of the trailing updates first), and it avoids the dpotrf of scipy's bundled
+    OpenBLAS, which crashed (segmentation fault) at N = 35000 on this machine.
+    """
+    n = A.shape[0]
+    if not A.flags.f_contiguous:
+        raise ValueError("Cholesky needs a Fortran-ordered array")
+    c = ctypes
+    ld = c.c_int(n)
+    base = A.ctypes.data
+    one, minus = c.c_double(1.0), c.c_double(-1.0)
+    L, R, N, T = c.c_char(b"L"), c.c_char(b"R"), c.c_char(b"N"), c.c_char(b"T")
+    info = c.c_int(0)
+    ref = c.byref
+
+    def at(i: int, j: int):
+        return c.c_void_p(base + 8 * (i + j * n))
+
+    gemm, syrk, trsm, potrf = (_routine(x) for x in ("dgemm", "dsyrk", "dtrsm", "dpotrf"))
+    for k0 in range(0, n, block):
+        k1 = min(n, k0 + block)
+        kb, below = c.c_int(k1 - k0), c.c_int(n - k1)
+        if k0 > 0:
+            done = c.c_int(k0)
+            # A11 -= L10 L10^T ; A21 -= L20 L10^T (columns left of the panel)
+            syrk(ref(L), ref(N), ref(kb), ref(done), ref(minus), at(k0, 0), ref(ld),
+                 ref(one), at(k0, k0), ref(ld))
+            if n > k1:
+                gemm(ref(N), ref(T), ref(below), ref(kb), ref(done), ref(minus), at(k1, 0),
+                     ref(ld), at(k0, 0), ref(ld), ref(one), at(k1, k0), ref(ld))
+        potrf(ref(L), ref(kb), at(k0, k0), ref(ld), ref(info))
+        if info.value != 0:
+            if info.value < 0:
+                raise RuntimeError(f"dpotrf argument error {info.value}")
+            return k0 + info.value
+        if n > k1:  # L21 = A21 L11^-T
+            trsm(ref(R), ref(L), ref(T), ref(N), ref(below), ref(kb), ref(one), at(k0, k0),
+                 ref(ld), at(k1, k0), ref(ld))
+    return 0
+
+
+def _ldl_negative_count(A: np.ndarray) -> int:
+    """Number of negative eigenvalues of the lower triangle of A, via LDL^T inertia.
+
+    Sylvester's law of inertia: A = L D L^T has as many negative eigenvalues as D.
+    D has 1x1 blocks and 2x2 blocks (marked by negative pivots in IPIV).
+    """
+    n = A.shape[0]
+    lwork = int(lapack.dsytrf_lwork(n, lower=1)[0])
+    _, ipiv, info = lapack.dsytrf(A, lower=1, lwork=max(lwork, 1), overwrite_a=1)
+    if info < 0:
+        raise RuntimeError(f"dsytrf argument error {info}")
+    d = np.diagonal(A)
+    two = np.flatnonzero(ipiv < 0)
+    one = np.ones(n, dtype=bool)
+    one[two] = False
+    negative = int(np.count_nonzero(d[one] < 0.0))
+    # With UPLO='L' a 2x2 block at (k, k+1) has ipiv[k] == ipiv[k+1] < 0.
+    for k in two[::2].tolist():
+        a, b, c = A[k, k], A[k + 1, k], A[k + 1, k + 1]
+        det = a * c - b * b
+        if det < 0.0:
+            negative += 1
+        elif det > 0.0:
+            negative += 2 if a + c < 0.0 else 0
+        else:
+            negative += 1 if a + c < 0.0 else 0
+    return negative
+
+
+class _Triangles:
+    """Holds S in the strict upper triangle of A (plus its diagonal) while the lower
+    triangle is used for factorizations."""
+
+    def __init__(self, A: np.ndarray):
+        self.A = A
+        self.diag = np.diagonal(A).copy()
+        self.dirty = False
+
+    def load(self, shift: float) -> np.ndarray:
+        """Put S - shift*I into the lower triangle and return A for factorization."""
+        if self.dirty or shift != 0.0:
+            _restore_lower(self.A, self.diag, shift)
+        self.dirty = True
+        return self.A
+
+    def restore(self) -> None:
+        if self.dirty:
+            _restore_lower(self.A, self.diag, 0.0)
+            self.dirty = False

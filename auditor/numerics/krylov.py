@@ -1,0 +1,138 @@
+"""Extreme eigenpairs without a full eigendecomposition: block Krylov on the inverse, Lanczos for the largest."""
+from __future__ import annotations
+
+import numpy as np
+import scipy.linalg
+from scipy.linalg import blas, lapack
+from scipy.sparse.linalg import LinearOperator, eigsh
+
+from .memory import KRYLOV_DEPTH, _block_size
+
+
+def _largest_eigenvalue(A: np.ndarray, tol: float = 1e-8) -> float:
+    """Largest eigenvalue of the intact symmetric A by Lanczos (ARPACK)."""
+    n = A.shape[0]
+    if n <= 64:
+        return float(np.linalg.eigvalsh(A)[-1])
+    op = LinearOperator((n, n), matvec=lambda x: A @ x, dtype=np.float64)
+    v0 = np.full(n, 1.0 / np.sqrt(n))  # S has mostly positive entries: a good start
+    return float(eigsh(op, k=1, which="LA", tol=tol, v0=v0, return_eigenvectors=False)[0])
+
+
+def _orthonormalize(X: np.ndarray) -> None:
+    """Orthonormalize the columns of the Fortran-ordered block X in place.
+
+    Cholesky QR twice (BLAS-3; tall thin Householder QR was the bottleneck here);
+    Householder QR when the block is too ill-conditioned for it.
+    """
+    for _ in range(2):
+        G = blas.dsyrk(1.0, X, trans=1, lower=0)
+        R, info = lapack.dpotrf(G, lower=0, clean=1, overwrite_a=1)
+        d = np.abs(np.diagonal(R))
+        if info != 0 or d.min() <= 1e-6 * d.max():
+            _householder(X)
+            return
+        blas.dtrsm(1.0, R, X, side=1, lower=0, overwrite_b=1)
+
+
+def _householder(X: np.ndarray) -> None:
+    """Householder QR of the Fortran-ordered block X, in place (X becomes Q)."""
+    qr, tau, _, info = lapack.dgeqrf(X, overwrite_a=1)
+    if info != 0:
+        raise RuntimeError(f"dgeqrf failed ({info})")
+    q, _, info = lapack.dorgqr(qr, tau, overwrite_a=1)
+    if info != 0:
+        raise RuntimeError(f"dorgqr failed ({info})")
+    if q is not X:
+        X[...] = q
+
+
+def _times_in_place(X: np.ndarray, U: np.ndarray, rows: int = 4096) -> None:
+    """X[:, :c] = X @ U for U with c columns, by row blocks (no N x c temporary)."""
+    c = U.shape[1]
+    Uf = np.asfortranarray(U)
+    for r0 in range(0, X.shape[0], rows):
+        X[r0:r0 + rows, :c] = X[r0:r0 + rows] @ Uf
+
+
+def _smallest_eigenpairs(
+    L: np.ndarray, shift: float, k: int, tol: float, maxiter: int, seed: int, info: dict
+) -> tuple[np.ndarray, np.ndarray]:
+    """k smallest eigenpairs of S from the Cholesky factor L of S - shift*I (lower triangle).
+
+    Restarted block Krylov iteration on A = (S - shift*I)^-1: from a block X of p > k
+    columns the basis Q = [X, AX, A^2 X, ...] (``KRYLOV_DEPTH`` blocks, orthonormalized
+    against each other) gives Rayleigh-Ritz pairs of A; the p leading Ritz vectors
+    restart it. Each application of A is one BLAS-3 solve with p right-hand sides.
+
+    Only Q and the image W = A Q_last of its last block are stored: A Q_j for an earlier
+    block lies in span(Q) (the next block was made from it), so H = Q^T A Q is filled
+    block column by block column as the images appear, and the residual of a Ritz pair
+    (theta, u) is (W - Q Q^T W) u_last, with u_last its last-block components.
+    """
+    n = L.shape[0]
+    p = _block_size(k, n)
+    depth = KRYLOV_DEPTH if KRYLOV_DEPTH * p <= n // 2 else 1
+    m = depth * p
+    rng = np.random.default_rng(seed)
+    Q = np.empty((n, m), order="F")   # orthonormal Krylov basis
+    W = np.empty((n, p), order="F")   # A applied to the newest block
+    H = np.zeros((m, m), order="F")   # Q^T A Q, upper block triangle as computed
+    Q[:, :p] = rng.standard_normal((n, p))
+    _orthonormalize(Q[:, :p])
+    worst = np.inf
+    solves = 0
+    for it in range(1, maxiter + 1):
+        for j in range(depth):
+            blk = slice(j * p, (j + 1) * p)
+            W[...] = Q[:, blk]
+            _, status = lapack.dpotrs(L, W, lower=1, overwrite_b=1)
+            if status != 0:
+                raise RuntimeError(f"dpotrs failed ({status})")
+            solves += p
+            done = Q[:, :(j + 1) * p]
+            H[:(j + 1) * p, blk] = blas.dgemm(1.0, done, W, trans_a=1)
+            if j + 1 < depth:
+                nxt = Q[:, (j + 1) * p:(j + 2) * p]
+                nxt[...] = W
+                for _ in range(2):  # classical Gram-Schmidt, twice, in place
+                    out = blas.dgemm(-1.0, done, blas.dgemm(1.0, done, nxt, trans_a=1), beta=1.0, c=nxt,
+                                     overwrite_c=1)
+                    if not np.shares_memory(out, nxt):
+                        nxt[...] = out
+                _orthonormalize(nxt)
+        last = slice(m - p, m)
+        HW = H[:, last].copy()  # Q^T W, for the residuals
+        # the p largest Ritz values of A (the smallest eigenvalues of S), in place on H,
+        # whose upper triangle is complete
+        theta, U = scipy.linalg.eigh(H, lower=False, overwrite_a=True, check_finite=False,
+                                     subset_by_index=[m - p, m - 1], driver="evr")
+        theta, U = theta[::-1], np.asfortranarray(U[:, ::-1])
+        worst = _worst_residual(Q, W, HW, U[last, :k], theta[:k])
+        if worst <= tol or it == maxiter or m >= n:
+            vectors = blas.dgemm(1.0, Q, U[:, :k])
+            break
+        if depth > 1:  # restart from the leading Ritz vectors Q U
+            _times_in_place(Q, U[:, :p])
+        else:  # small N: plain subspace iteration, restart from A X = W
+            Q[:, :p] = blas.dgemm(1.0, W, U[:, :p])
+            _orthonormalize(Q[:, :p])
+    info["iterations"] = it
+    info["block"] = p
+    info["krylov_depth"] = depth
+    info["column_solves"] = solves
+    info["residual"] = worst
+    values = 1.0 / theta[:k] + shift
+    return values, vectors
+
+
+def _worst_residual(Q: np.ndarray, W: np.ndarray, HW: np.ndarray, U_last: np.ndarray,
+                    theta: np.ndarray) -> float:
+    """max_i ||(W - Q HW) u_i|| / theta_i with HW = Q^T W, in column chunks (bounded memory)."""
+    worst = 0.0
+    for c0 in range(0, U_last.shape[1], 64):
+        Uc = np.asfortranarray(U_last[:, c0:c0 + 64])
+        R = blas.dgemm(1.0, W, Uc)
+        R = blas.dgemm(-1.0, Q, HW @ Uc, beta=1.0, c=R, overwrite_c=1)
+        worst = max(worst, float((np.linalg.norm(R, axis=0) / theta[c0:c0 + 64]).max()))
+    return worst

@@ -1,0 +1,239 @@
+"""The Python API: audit a geometry (path, ASE Atoms, pyscf Mole or Molecule)."""
+from __future__ import annotations
+
+import math
+import re
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from .. import __version__
+from ..base.elements import element_symbol
+from ..base.errors import InputError, ResourceError, UsageError
+from ..diagnosis.causes import attribute_causes
+from ..diagnosis.findings import (SEVERITY_ORDER, Finding, crowding_findings, duplicate_findings, geometry_findings,
+                                  near_singular_finding)
+from ..diagnosis.verdict import Policy, decide
+from ..inputs.basis import BasisSpec, check_basis_name, parse_overrides
+from ..inputs.geometry import Molecule, molecule_from_atoms, parse_atom_numbers, read_geometry
+from ..numerics.eigen import compute_spectrum
+from ..numerics.memory import check_memory
+from ..numerics.overlap import FunctionTable, build_mole, function_table, mole_function_table, normalized_overlap
+from ..numerics.spectrum import Spectrum
+from ..remedies.canonical import advise
+from ..remedies.plan import RemedyOptions, make_plan, remedies_for
+from ..remedies.subset import check_target
+from .result import AuditResult, InputInfo, SpectrumInfo
+
+
+@dataclass
+class Prepared:
+    """A geometry with its basis: the pyscf Mole, the function table and unit-diagonal S."""
+
+    molecule: Molecule
+    spec: BasisSpec
+    mole: object
+    table: FunctionTable
+    S: np.ndarray
+
+
+def make_spec(basis: str | BasisSpec | None, basis_for=None, cartesian: bool = False) -> BasisSpec:
+    """BasisSpec from a name (or file) plus overrides given as dict or ['H=cc-pvtz', ...]."""
+    if isinstance(basis, BasisSpec):
+        return basis
+    if not basis:
+        raise UsageError("a basis is required (e.g. basis='aug-cc-pvdz')")
+    if isinstance(basis_for, dict):
+        over = {element_symbol(k, "basis_for"): check_basis_name(v, f"basis_for {k}") for k, v in basis_for.items()}
+    else:
+        over = parse_overrides(basis_for)
+    return BasisSpec(default=check_basis_name(basis), per_element=over, cartesian=cartesian)
+
+
+def prepare(mol: Molecule, spec: BasisSpec, spectrum_method: str = "large") -> Prepared:
+    """Build the pyscf Mole, the function table and S for one molecule.
+
+    The memory guard runs before S is built: ResourceError when S plus the spectrum
+    step of ``spectrum_method`` cannot fit ("large" checks only what any audit needs).
+    """
+    pm = build_mole(mol, spec)
+    check_memory(pm.nao, spectrum_method)
+    table = function_table(mol, spec)
+    return Prepared(mol, spec, pm, table, normalized_overlap(pm))
+
+
+def _from_mole(pm) -> tuple[Molecule, BasisSpec]:
+    symbols, ghost = [], []
+    for i in range(pm.natm):
+        raw = re.sub(r"^(ghost-?|x-)", "", pm.atom_pure_symbol(i), flags=re.IGNORECASE)
+        symbols.append(element_symbol(raw, f"pyscf Mole atom {i + 1}"))
+        ghost.append(bool(pm.atom_charge(i) == 0))
+    coords = pm.atom_coords(unit="Angstrom")
+    b = pm.basis
+    if isinstance(b, str):
+        spec = BasisSpec(b, {}, bool(pm.cart))
+    elif isinstance(b, dict) and all(isinstance(v, str) for v in b.values()):
+        over = {}
+        for k, v in b.items():
+            try:
+                over[element_symbol(re.sub(r"^(ghost-?|x-)", "", k, flags=re.IGNORECASE), "basis")] = v
+            except InputError:
+                continue
+        spec = BasisSpec("custom", over, bool(pm.cart))
+    else:
+        spec = BasisSpec("custom", {}, bool(pm.cart))
+    mol = Molecule(tuple(symbols), np.asarray(coords), tuple(ghost), charge=int(pm.charge),
+                   multiplicity=int(pm.spin) + 1, source="<pyscf Mole>")
+    return mol, spec
+
+
+def audit_prepared(prep: Prepared, policy: Policy | None = None, spectrum_method: str = "auto",
+                   remedies=True) -> AuditResult:
+    """Run the whole audit on a prepared geometry + basis.
+
+    ``remedies``: True (default options), a ``prune.RemedyOptions``, or False to skip them.
+    """
+    policy = policy or Policy()
+    mol, table, S = prep.molecule, prep.table, prep.S
+    spec = compute_spectrum(S, vector_level=policy.caution, method=spectrum_method)
+    findings: list[Finding] = geometry_findings(mol)
+    findings += duplicate_findings(S, table)
+    findings += crowding_findings(S, mol, table, troubled=spec.smallest < policy.caution)
+    causes = attribute_causes(spec.vectors, table, below=policy.caution)
+    verdict, reason = decide(policy, spec.smallest, [f.kind for f in findings])
+    recommendation = advise(spec, default_threshold=_default_threshold(policy), min_kept=policy.fail)
+    if spec.smallest < policy.caution:
+        findings.insert(0, near_singular_finding(spec, policy, causes))
+    findings.sort(key=lambda f: SEVERITY_ORDER[f.severity])  # stable: keeps order within a severity
+    remedy_part = None
+    if remedies is not False:
+        options = remedies if isinstance(remedies, RemedyOptions) else RemedyOptions()
+        remedy_part = remedies_for(prep, recommendation, spec.smallest, options, policy.caution)
+    return AuditResult(
+        version=__version__,
+        input=_input_info(prep),
+        spectrum=_spectrum_info(spec),
+        verdict=verdict,
+        verdict_reason=reason,
+        policy=policy.as_dict(),
+        findings=tuple(findings),
+        causes=causes,
+        recommendation=recommendation,
+        remedies=remedy_part,
+    )
+
+
+def _default_threshold(policy: Policy) -> float:
+    """Geometric middle of the caution and fail levels, rounded to a decade (1e-6 by default)."""
+    return 10.0 ** round(0.5 * (math.log10(policy.caution) + math.log10(policy.fail)))
+
+
+def _input_info(prep: Prepared) -> InputInfo:
+    mol, t = prep.molecule, prep.table
+    atoms = tuple(
+        {"atom": i + 1, "element": s, "ghost": bool(g), "xyz": [round(float(x), 8) for x in xyz]}
+        for i, (s, g, xyz) in enumerate(zip(mol.symbols, mol.ghost, mol.coords))
+    )
+    return InputInfo(
+        path=mol.source,
+        frame=mol.frame + 1,
+        n_frames=mol.n_frames,
+        basis=prep.spec.describe(),
+        basis_spec=prep.spec.as_dict(),
+        n_atoms=mol.n_atoms,
+        n_functions=t.n_functions,
+        n_shells=t.n_shells,
+        ghost_atoms=tuple(i + 1 for i, g in enumerate(mol.ghost) if g),
+        charge=mol.charge,
+        multiplicity=mol.multiplicity,
+        atoms=atoms,
+    )
+
+
+def _spectrum_info(spec: Spectrum) -> SpectrumInfo:
+    cond = spec.condition_number
+    return SpectrumInfo(
+        smallest=spec.smallest,
+        largest=spec.largest,
+        condition_number=cond,
+        log10_condition=math.log10(cond) if cond else None,
+        counts_below=dict(spec.counts_below),
+        gershgorin_bound=spec.gershgorin_bound,
+        method=spec.method,
+        eigenvalues=tuple(float(v) for v in spec.values),
+    )
+
+
+def load_molecules(path: str | Path, unit: str = "angstrom", ghost: str | list[int] | None = None) -> list[Molecule]:
+    """Every frame of a geometry file, with ghost atoms marked (1-based numbers or '4-6,9')."""
+    frames = read_geometry(path, unit=unit)
+    numbers = parse_atom_numbers(ghost) if isinstance(ghost, str) else list(ghost or [])
+    return [f.with_ghosts(numbers) if numbers else f for f in frames]
+
+
+def audit(
+    source,
+    basis: str | BasisSpec | None = None,
+    *,
+    basis_for=None,
+    cartesian: bool = False,
+    unit: str = "angstrom",
+    ghost: str | list[int] | None = None,
+    frame: int = 1,
+    policy: Policy | None = None,
+    spectrum_method: str = "auto",
+    remedies=True,
+) -> AuditResult:
+    """Audit one geometry in one basis and return the result object.
+
+    ``source`` is a path to an XYZ / extended XYZ file (``frame`` picks a frame,
+    1-based), an ASE Atoms, a pyscf Mole (its own basis is used when ``basis`` is
+    None), or a Molecule. ``basis`` is a name pyscf knows or a basis file;
+    ``basis_for`` overrides it per element ({'H': 'cc-pvtz'} or ['H=cc-pvtz']);
+    ``ghost`` marks atoms (1-based) as ghost atoms; ``remedies`` is True, False or a
+    ``auditor.prune.RemedyOptions`` (target, opt-in trial SCF).
+    """
+    if hasattr(source, "intor") and hasattr(source, "nao_nr"):
+        mol, mole_spec = _from_mole(source)
+        if basis is None:
+            check_memory(source.nao, spectrum_method)  # before S is built, as in prepare
+            table = mole_function_table(source, mol, mole_spec)
+            return audit_prepared(Prepared(mol, mole_spec, source, table, normalized_overlap(source)),
+                                  policy, spectrum_method, remedies)
+    elif isinstance(source, Molecule):
+        mol = source
+    elif hasattr(source, "get_positions") and hasattr(source, "get_chemical_symbols"):
+        mol = molecule_from_atoms(source)
+    else:
+        frames = read_geometry(source, unit=unit)
+        if not 1 <= frame <= len(frames):
+            raise UsageError(f"{source}: frame {frame} requested, file has {len(frames)} frame(s)")
+        mol = frames[frame - 1]
+    numbers = parse_atom_numbers(ghost) if isinstance(ghost, str) else list(ghost or [])
+    if numbers:
+        mol = mol.with_ghosts(numbers)
+    spec = make_spec(basis, basis_for, cartesian)
+    return audit_prepared(prepare(mol, spec, spectrum_method), policy, spectrum_method, remedies)
+
+
+def prune_prepared(prep, policy=None, options: RemedyOptions | None = None):
+    """Audit a prepared geometry and work out its pruned basis even when nothing must go.
+
+    Returns (AuditResult with remedies, RemedyPlan). Raises UsageError when no shell-pruned
+    basis reaches the target (for example because an atom would lose every function).
+    """
+    from dataclasses import replace
+
+    policy = policy or Policy()
+    options = replace(options or RemedyOptions(), force=True, shell_pivoting=True)
+    check_target(policy.caution if options.target is None else options.target)
+    result = audit_prepared(prep, policy, remedies=False)
+    plan = make_plan(prep, result.recommendation, result.spectrum.smallest, options, policy.caution)
+    if plan.pruned is None:
+        memory = [p for p in plan.problems if p.startswith("remedies skipped")]
+        if memory:
+            raise ResourceError(memory[0])
+        why = next((p for p in plan.problems if p.startswith("shell-pruned")), "no pruned basis found")
+        raise UsageError(why)
+    return replace(result, remedies=plan.as_dict(prep.table)), plan

@@ -1,0 +1,141 @@
+"""Canonical-orthogonalization advice from the spectrum of the normalized S."""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from ..numerics.spectrum import Spectrum
+
+CANDIDATES: tuple[float, ...] = tuple(10.0 ** -k for k in range(4, 10))  # 1e-4 ... 1e-9
+MIN_GAP_DECADES = 1.0   # a gap this wide in log10(lambda) is a natural cut
+GAP_WINDOW = (1e-9, 1e-4)
+
+
+@dataclass(frozen=True)
+class Candidate:
+    threshold: float
+    n_removed: int | None
+    smallest_kept: float | None
+    max_transform_element: float | None
+
+    def as_dict(self) -> dict:
+        return {
+            "threshold": self.threshold,
+            "n_removed": self.n_removed,
+            "smallest_kept": self.smallest_kept,
+            "max_transform_element": self.max_transform_element,
+        }
+
+
+@dataclass(frozen=True)
+class Recommendation:
+    """The advised threshold tau for X = U_k Lambda_k^-1/2 (eigenvalues >= tau kept)."""
+
+    threshold: float
+    reason: str
+    n_removed: int | None
+    smallest_kept: float | None
+    max_transform_element: float | None
+    candidates: list[Candidate]
+    how_to: str
+
+    def as_dict(self) -> dict:
+        return {
+            "threshold": self.threshold,
+            "reason": self.reason,
+            "n_removed": self.n_removed,
+            "smallest_kept": self.smallest_kept,
+            "max_transform_element": self.max_transform_element,
+            "candidates": [c.as_dict() for c in self.candidates],
+            "how_to": self.how_to,
+        }
+
+
+def find_gap(values: np.ndarray, window=GAP_WINDOW, min_decades: float = MIN_GAP_DECADES,
+             min_kept: float = 0.0):
+    """Widest gap in log10 of the ascending ``values`` whose midpoint lies in ``window``
+    and whose upper edge (the smallest eigenvalue kept) is at least ``min_kept``.
+
+    Returns (threshold at the geometric midpoint, lower edge, upper edge, width in
+    decades) or None when no gap is at least ``min_decades`` wide.
+    """
+    v = values[values < window[1] * 10.0]
+    if v.size == 0:
+        return None
+    logs = np.log10(np.clip(v, 1e-300, None))
+    upper_edge = values[v.size] if v.size < values.size else None
+    edges = list(zip(logs[:-1], logs[1:]))
+    if upper_edge is not None:
+        edges.append((logs[-1], float(np.log10(upper_edge))))
+    best = None
+    lo_w, hi_w = np.log10(window[0]), np.log10(window[1])
+    for lo, hi in edges:
+        width = hi - lo
+        mid = 0.5 * (lo + hi)
+        ok = width >= min_decades and lo_w <= mid <= hi_w and hi >= np.log10(max(min_kept, 1e-300))
+        if ok and (best is None or width > best[3]):
+            best = (10.0 ** mid, 10.0 ** lo, 10.0 ** hi, width)
+    return best
+
+
+def candidate(spec: Spectrum, threshold: float) -> Candidate:
+    """What canonical orthogonalization at ``threshold`` removes and keeps."""
+    n_removed = spec.count_below(threshold)
+    smallest_kept = None
+    growth = None
+    if n_removed is not None and n_removed < spec.values.size:
+        smallest_kept = float(spec.values[n_removed])
+        growth = spec.growth(n_removed)
+    return Candidate(threshold, n_removed, smallest_kept, growth)
+
+
+def advise(spec: Spectrum, default_threshold: float, min_kept: float = 0.0) -> Recommendation:
+    """Recommend a canonical-orthogonalization threshold.
+
+    A gap of at least MIN_GAP_DECADES in the log-spectrum inside GAP_WINDOW, above
+    which the kept eigenvalues are at least ``min_kept`` (the policy's fail level),
+    is the natural place; otherwise ``default_threshold``. Candidates
+    1e-4 ... 1e-9 are tabulated so that the user can judge.
+    """
+    gap = find_gap(spec.values, min_kept=min_kept)
+    if gap is not None:
+        tau = float(f"{gap[0]:.1e}")
+        reason = (f"the spectrum has a gap of {gap[3]:.1f} decades between {gap[1]:.2e} and "
+                  f"{gap[2]:.2e}; the threshold sits in its middle")
+    else:
+        tau = default_threshold
+        reason = (f"no clear gap in the spectrum between {GAP_WINDOW[0]:.0e} and {GAP_WINDOW[1]:.0e}; "
+                  f"the policy default {default_threshold:.0e} is used")
+    chosen = candidate(spec, tau)
+    if chosen.n_removed == 0:
+        reason += "; nothing falls below it, so no function needs removing"
+    how_to = (
+        "from pyscf import scf; scf.hf.overlap_zero_eigenvalue_threshold = "
+        f"{tau:.1e}  # before building the SCF object; pyscf applies it to its own S, which has "
+        "unit diagonal for spherical basis sets (for Cartesian d/f shells use the normalized-S "
+        "transformation X instead)"
+    )
+    return Recommendation(
+        threshold=tau,
+        reason=reason,
+        n_removed=chosen.n_removed,
+        smallest_kept=chosen.smallest_kept,
+        max_transform_element=chosen.max_transform_element,
+        candidates=[candidate(spec, t) for t in CANDIDATES],
+        how_to=how_to,
+    )
+
+
+def orthogonalizer(S_raw: np.ndarray, threshold: float) -> np.ndarray:
+    """X with X^T S X = 1 over the eigenvectors of the unit-diagonal S with eigenvalue >= threshold."""
+    d = 1.0 / np.sqrt(np.diagonal(S_raw))
+    w, U = np.linalg.eigh(S_raw * d[:, None] * d[None, :])
+    keep = w >= threshold
+    return d[:, None] * (U[:, keep] / np.sqrt(w[keep]))
+
+
+def canonical_transform(prep, threshold: float) -> np.ndarray:
+    """X with X^T S X = 1 in pyscf's AO basis, from the unit-diagonal S's eigenvectors
+    with eigenvalue >= ``threshold`` (canonical orthogonalization)."""
+    return orthogonalizer(prep.mole.intor_symmetric("int1e_ovlp"), threshold)

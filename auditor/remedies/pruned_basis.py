@@ -1,0 +1,106 @@
+"""The pruned basis: a pyscf-ready document that keeps only some whole shells."""
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import numpy as np
+
+from ..base.errors import InputError
+from ..base.files import atomic_write
+from ..base.jsonio import _clean
+from ..inputs.pruned import PRUNED_FORMAT
+from .subset import check_atoms_not_emptied
+
+
+def function_record(table, i: int) -> dict:
+    """A function named by 1-based number and atom, element, shell, l and exponent."""
+    s = int(table.func_shell[i])
+    a = int(table.shell_atom[s])
+    return {
+        "function": i + 1,
+        "atom": a,
+        "element": table.elements[a - 1],
+        "ghost": bool(table.ghost[a - 1]),
+        "shell": table.shell_name[s],
+        "component": table.func_component[i],
+        "l": int(table.shell_l[s]),
+        "exponent": float(table.shell_exponent[s]),
+        "diffuse": bool(table.shell_diffuse[s]),
+    }
+
+
+def shell_record(table, s: int) -> dict:
+    """A shell named by atom, element, shell name, l, smallest exponent and size."""
+    a = int(table.shell_atom[s])
+    return {
+        "atom": a,
+        "element": table.elements[a - 1],
+        "ghost": bool(table.ghost[a - 1]),
+        "shell": table.shell_name[s],
+        "l": int(table.shell_l[s]),
+        "exponent": float(table.shell_exponent[s]),
+        "diffuse": bool(table.shell_diffuse[s]),
+        "functions": int(np.sum(table.func_shell == s)),
+    }
+
+
+def _shell_entries(pm) -> list[tuple[int, int, list[list[float]]]]:
+    """(0-based atom, l, [[exponent, coefficient], ...]) per contracted shell, in the
+    order of the function table (each contraction of a pyscf shell is its own shell).
+    Coefficients refer to normalized primitives, the convention of pyscf basis input."""
+    out = []
+    for b in range(pm.nbas):
+        exps = pm.bas_exp(b)
+        coeff = pm.bas_ctr_coeff(b)
+        for c in range(pm.bas_nctr(b)):
+            prims = [[float(e), float(x)] for e, x in zip(exps, coeff[:, c]) if x != 0.0]
+            out.append((pm.bas_atom(b), pm.bas_angular(b), prims))
+    return out
+
+
+def pruned_basis(prep, kept_shells, target: float | None = None, smallest: float | None = None) -> dict:
+    """The pyscf-ready document of a basis that keeps only ``kept_shells`` (0-based).
+
+    Atoms that lose a shell get a label of their own (element plus 1-based atom number,
+    e.g. "H5"); the others share the element's label. Raises UsageError if an atom
+    would keep no function.
+    """
+    mol, table = prep.molecule, prep.table
+    keep = np.zeros(table.n_shells, dtype=bool)
+    keep[np.asarray(list(kept_shells), dtype=int)] = True
+    check_atoms_not_emptied(np.flatnonzero(keep[table.func_shell]), table.func_atom - 1,
+                            what="this pruning")
+    entries = _shell_entries(prep.mole)
+    if len(entries) != table.n_shells:
+        raise InputError("pyscf shells and the function table disagree; cannot write a pruned basis")
+    pruned_atoms = {int(table.shell_atom[s]) - 1 for s in np.flatnonzero(~keep)}
+    atoms, basis = [], {}
+    for i, (sym, ghost, xyz) in enumerate(zip(mol.symbols, mol.ghost, mol.coords)):
+        base = ("ghost-" if ghost else "") + sym
+        label = f"{base}{i + 1}" if i in pruned_atoms else base
+        atoms.append([label, [round(float(x), 10) for x in xyz]])
+        if label not in basis:
+            basis[label] = [[l, *prims] for s, (a, l, prims) in enumerate(entries) if a == i and keep[s]]
+    dropped = [shell_record(table, int(s)) for s in np.flatnonzero(~keep)]
+    return {
+        "format": PRUNED_FORMAT,
+        "source": mol.source,
+        "basis_name": prep.spec.describe(),
+        "unit": "angstrom",
+        "cartesian": bool(prep.spec.cartesian),
+        "charge": int(mol.charge),
+        "spin": mol.spin,
+        "target": target,
+        "smallest_eigenvalue": smallest,
+        "n_functions": int(np.sum(keep[table.func_shell])),
+        "n_functions_full": table.n_functions,
+        "atoms": atoms,
+        "basis": basis,
+        "dropped_shells": dropped,
+    }
+
+
+def write_pruned(doc: dict, path: Path) -> Path:
+    atomic_write(path, json.dumps(_clean(doc), indent=1, ensure_ascii=False, allow_nan=False) + "\n")
+    return Path(path)

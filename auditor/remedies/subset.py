@@ -1,0 +1,421 @@
+"""The target search: the largest set of functions (or whole shells) whose overlap keeps its
+smallest eigenvalue at or above a target, found along a pivoted-Cholesky order.
+
+Everything here is a pure function on numpy arrays. ``S`` is the overlap matrix scaled to
+unit diagonal. Pivoted Cholesky follows Lehtola, J. Chem. Phys. 151, 241102 (2019): the
+pivot order picks a numerically independent subset of functions.
+
+Two facts drive the target search:
+
+* The pivot order does not depend on the tolerance; a lower tolerance only extends the
+  order. So every kept set a tolerance can produce is a prefix of one pivot order.
+* Adding a function to a set can only lower the smallest eigenvalue of its overlap (Cauchy
+  interlacing). So the prefixes that meet a target form an initial run, and the longest
+  one is the leading block of ``S[p, p] - target * I`` that is positive definite, which one
+  ordinary Cholesky factorization finds (LAPACK reports the first leading minor that fails).
+"""
+from __future__ import annotations
+
+import dataclasses
+from dataclasses import dataclass, field
+
+import numpy as np
+import scipy.linalg
+from scipy.linalg import lapack
+
+from ..base.errors import UsageError
+from ..numerics.cholesky import (CholeskyResult, _shell_index_lists, _smallest, check_overlap, pivoted_cholesky,
+                                 shell_pivoted_cholesky, smallest_from_factor)
+
+
+#: Relative rounding allowance at the target: lambda_min >= target * (1 - slack) passes.
+#: Without it a target of exactly 1 would fail on diagonals of 1 - 1e-16.
+TARGET_SLACK = 1e-12
+
+
+@dataclass(frozen=True)
+class Selection:
+    """A kept set of functions meeting a target smallest eigenvalue.
+
+    ``kept`` and ``dropped`` are ascending 0-based function indices; ``order`` is the
+    kept set in pivot order, its first ``prefix`` entries the pivoted-Cholesky prefix and
+    the last ``added_back`` those offered back afterwards. ``tolerance`` is a
+    pivoted-Cholesky tolerance that yields exactly the prefix. ``factorizations`` counts
+    Cholesky factorizations (pivoted, plain or incremental) and ``eigen_checks`` the
+    eigenvalue computations the search used.
+    """
+
+    kept: np.ndarray
+    dropped: np.ndarray
+    order: np.ndarray
+    smallest_kept: float
+    target: float
+    tolerance: float
+    factorizations: int
+    eigen_checks: int
+    search: str
+    kept_shells: np.ndarray | None = None
+    dropped_shells: np.ndarray | None = None
+    notes: list[str] = field(default_factory=list)
+    prefix: int = 0
+    added_back: int = 0
+
+    @property
+    def n_dropped(self) -> int:
+        return int(self.dropped.size)
+
+
+def check_target(target: float) -> float:
+    """Return ``target`` as float, or raise UsageError unless 0 < target <= 1."""
+    try:
+        value = float(target)
+    except (TypeError, ValueError):
+        raise UsageError(f"target smallest eigenvalue must be a number, got {target!r}") from None
+    if not np.isfinite(value) or value <= 0.0 or value > 1.0:
+        raise UsageError(
+            f"target smallest eigenvalue must lie in (0, 1] for a unit-diagonal overlap, got {target!r}"
+        )
+    return value
+
+
+def check_atoms_not_emptied(
+    kept: np.ndarray, atom_of_function: np.ndarray, exempt_atoms=(), what: str = "this selection"
+) -> None:
+    """Raise UsageError if ``kept`` holds no function of an atom that had some.
+
+    Atoms are 0-based in ``atom_of_function`` and named 1-based in the message;
+    ``exempt_atoms`` (0-based, e.g. ghost atoms) may be emptied.
+    """
+    atoms = np.asarray(atom_of_function)
+    had = set(np.unique(atoms).tolist())
+    has = set(np.unique(atoms[np.asarray(kept, dtype=int)]).tolist())
+    emptied = sorted(had - has - {int(a) for a in exempt_atoms})
+    if emptied:
+        names = ", ".join(str(a + 1) for a in emptied)
+        raise UsageError(
+            f"{what} would remove every basis function of atom {names}; "
+            "lower the target or fix the geometry (coincident or duplicated atoms?)"
+        )
+
+
+def _factorize(S, tol, shells) -> CholeskyResult:
+    if shells is None:
+        return pivoted_cholesky(S, tol)
+    return shell_pivoted_cholesky(S, shells, tol)
+
+
+def _prefix_ends(res: CholeskyResult, shells) -> np.ndarray:
+    """Allowed kept-set sizes along the pivot order (0 and every shell boundary)."""
+    if shells is None:
+        return np.arange(res.rank + 1)
+    sizes = np.bincount(np.asarray(shells))[res.shell_pivots]
+    return np.concatenate([[0], np.cumsum(sizes)])
+
+
+def _reproducing_tol(res: CholeskyResult, k: int, shells) -> float:
+    """A tolerance at which the same pivoting stops after exactly ``k`` kept functions."""
+    vals = res.pivot_values if shells is None else res.shell_values
+    j = int(np.searchsorted(_prefix_ends(res, shells), k))  # pivots (functions or shells) kept
+    if j >= vals.size:
+        return res.tol
+    if j == 0:
+        return float(np.nextafter(vals[0], np.inf))
+    if vals[j] < vals[j - 1]:
+        return float(np.sqrt(vals[j - 1] * vals[j])) if vals[j] > 0 else float(vals[j - 1])
+    return float(vals[j - 1])  # a tie: no tolerance separates the two pivots
+
+
+def select_for_target(
+    S: np.ndarray,
+    target: float,
+    shell_of_function=None,
+    atom_of_function=None,
+    exempt_atoms=(),
+    search: str = "shifted",
+    verify: bool | str = "eigvalsh",
+    refine: bool = True,
+) -> Selection:
+    """Keep as many functions as possible while the kept overlap has lambda_min >= target.
+
+    The kept set starts as the longest prefix of the pivot order (shell by shell when
+    ``shell_of_function`` is given) that meets the target; ``search`` finds it:
+
+    * "shifted": one pivoted factorization at tol=target (every longer prefix has a pivot
+      below target and so lambda_min below target), then one Cholesky of
+      ``S[p, p] - target*I`` whose first failing leading minor marks the longest prefix.
+    * "prefix": the same pivot order, bisection over prefix length with eigvalsh checks.
+    * "tolerance": bisection on log10(tol), one pivoted factorization per trial.
+
+    ``verify`` ("eigvalsh" or True, "lanczos", "none" or False) checks the kept set's
+    smallest eigenvalue, with ``numpy.linalg.eigvalsh`` on the kept block or with
+    `smallest_from_factor` on its Cholesky factor, and shortens the set if rounding let
+    it slip below target. With ``refine`` the units (functions or shells) left out of the
+    prefix are then offered back one by one, in pivot order, and kept whenever the set
+    still meets the target (one incremental factorization; ``added_back`` counts them), so
+    that no dropped unit could be added. With ``atom_of_function`` a selection that would
+    leave a non-exempt atom without functions raises UsageError. Ties in shell pivoting go
+    to the lower shell index.
+    """
+    target = check_target(target)
+    goal = target * (1.0 - TARGET_SLACK)
+    mode = {True: "eigvalsh", False: "none"}.get(verify, verify)
+    if mode not in ("eigvalsh", "lanczos", "none"):
+        raise ValueError(f"unknown verify mode {verify!r}")
+    S = check_overlap(S)
+    n = S.shape[0]
+    shells = None if shell_of_function is None else np.asarray(shell_of_function)
+    if shells is not None:
+        _shell_index_lists(shells, n)
+    if search == "tolerance":
+        res, k, facts, eigs, smallest = _search_tolerance(S, goal, shells)
+        ends = _prefix_ends(res, shells)
+        checked = True  # every trial already ran eigvalsh on its kept set
+    elif search in ("shifted", "prefix"):
+        checked = False
+        smallest = np.nan
+        res = _factorize(S, goal, shells)
+        facts, eigs = 1, 0
+        ends = _prefix_ends(res, shells)
+        p = res.pivots
+        if search == "shifted":
+            shifted = S[np.ix_(p, p)]
+            shifted[np.diag_indices_from(shifted)] -= goal
+            info = lapack.dpotrf(shifted.T, lower=1, overwrite_a=1, clean=0)[1]
+            facts += 1
+            good = p.size if info == 0 else int(info) - 1
+            k = int(ends[np.searchsorted(ends, good, side="right") - 1])
+            if refine and 0 < k < n:
+                # the leading k x k block of this factor is the factor of S[p[:k], p[:k]] - goal*I
+                # that the add-back pass extends: keep it (one N x N array at a time)
+                res = dataclasses.replace(res, factor=None)
+                prefix_factor = np.asfortranarray(shifted.T[:k, :k])
+                del shifted
+                for j in range(1, k):  # LAPACK left the upper triangle as it was
+                    prefix_factor[:j, j] = 0.0
+            else:
+                del shifted
+        else:
+            lo, hi = 0, ends.size - 1  # ends[lo] passes (empty set); find the last passing index
+            while lo < hi:
+                mid = (lo + hi + 1) // 2
+                eigs += 1
+                if _smallest(S, p[: ends[mid]]) >= goal:
+                    lo = mid
+                else:
+                    hi = mid - 1
+            k = int(ends[lo])
+    else:
+        raise ValueError(f"unknown search {search!r}")
+
+    notes: list[str] = []
+    order = res.pivots[:k].copy()
+    blocks: list[int] = []
+    factor = None
+    if refine and 0 < k < n:
+        # The add-back pass works on the factor of S[order, order] - goal*I, and a prefix of
+        # its result serves every check below: release the N x N pivoted factor first.
+        res = dataclasses.replace(res, factor=None)
+        order, blocks, factor = _add_back(S, order, _leftover_groups(res, k, shells, n), goal,
+                                          prefix_factor if search == "shifted" else None)
+        facts += 1
+    pivoted = res.factor
+    if mode != "none" and not (checked and not blocks):
+        while order.size:
+            if mode == "lanczos" and factor is not None:
+                # order is a prefix of the factor's order. The factor of S[order, order] - goal*I
+                # exists, so this value is at least goal: here it is reported, not checked
+                # (only the dense eigvalsh check can shorten the set).
+                smallest = goal + smallest_from_factor(factor[: order.size, : order.size])
+            elif mode == "lanczos" and pivoted is not None:
+                smallest = smallest_from_factor(pivoted[:k, :k])
+            else:
+                smallest = _smallest(S, order)
+            eigs += 1
+            if smallest >= goal:
+                break
+            # Rounding in a positive-definiteness test can admit a set a hair below target.
+            if blocks:
+                order = order[: order.size - blocks.pop()]
+            else:
+                k = int(ends[np.searchsorted(ends, k, side="left") - 1])
+                order = res.pivots[:k].copy()
+            notes.append("shortened after the eigenvalue check (rounding at the target)")
+    if order.size == 0:
+        raise UsageError(f"no kept set reaches target {target:g}")
+    added = order.size - k
+    kept = np.sort(order)
+    dropped = np.setdiff1d(np.arange(n), kept)
+    if atom_of_function is not None:
+        check_atoms_not_emptied(kept, atom_of_function, exempt_atoms, f"target {target:g}")
+    kept_shells = dropped_shells = None
+    if shells is not None:
+        kept_shells = np.unique(shells[kept])
+        dropped_shells = np.setdiff1d(np.arange(int(shells.max()) + 1), kept_shells)
+    return Selection(
+        kept=kept,
+        dropped=dropped,
+        order=order,
+        smallest_kept=float(smallest),
+        target=target,
+        tolerance=_reproducing_tol(res, k, shells),
+        factorizations=facts,
+        eigen_checks=eigs,
+        search=search,
+        kept_shells=kept_shells,
+        dropped_shells=dropped_shells,
+        notes=notes,
+        prefix=k,
+        added_back=added,
+    )
+
+
+def shells_from_functions(
+    S: np.ndarray, functions: Selection, shell_of_function, verify: bool | str = "eigvalsh"
+) -> Selection | None:
+    """A whole-shell kept set seeded by a function-level selection.
+
+    Keeps the shells none of whose functions ``functions`` drops (a subset of its kept
+    set, so still at or above its target by Cauchy interlacing), then offers the other
+    shells back as `select_for_target` does. None when no shell is clean.
+    """
+    S = check_overlap(S)
+    n = S.shape[0]
+    shells = np.asarray(shell_of_function)
+    groups = _shell_index_lists(shells, n)
+    target = functions.target
+    goal = target * (1.0 - TARGET_SLACK)
+    mode = {True: "eigvalsh", False: "none"}.get(verify, verify)
+    bad = set(shells[functions.dropped].tolist())
+    seed = [s for s in dict.fromkeys(shells[functions.order].tolist()) if s not in bad]
+    if not seed:
+        return None
+    order = np.concatenate([groups[s] for s in seed])
+    k = order.size
+    order, blocks, factor = _add_back(S, order, [groups[s] for s in sorted(bad)], goal)
+    smallest, eigs, notes = np.nan, 0, []
+    while mode != "none":
+        if mode == "lanczos" and factor is not None:
+            smallest = goal + smallest_from_factor(factor[: order.size, : order.size])
+        else:
+            smallest = _smallest(S, order)
+        eigs += 1
+        if smallest >= goal or not blocks:
+            break
+        order = order[: order.size - blocks.pop()]
+        notes.append("shortened after the eigenvalue check (rounding at the target)")
+    if mode != "none" and smallest < goal:
+        return None
+    kept = np.sort(order)
+    kept_shells = np.unique(shells[kept])
+    return Selection(
+        kept=kept,
+        dropped=np.setdiff1d(np.arange(n), kept),
+        order=order,
+        smallest_kept=float(smallest),
+        target=target,
+        tolerance=functions.tolerance,
+        factorizations=functions.factorizations + 1,
+        eigen_checks=functions.eigen_checks + eigs,
+        search="from-functions",
+        kept_shells=kept_shells,
+        dropped_shells=np.setdiff1d(np.arange(len(groups)), kept_shells),
+        notes=notes,
+        prefix=k,
+        added_back=order.size - k,
+    )
+
+
+def _leftover_groups(res: CholeskyResult, k: int, shells, n: int) -> list[np.ndarray]:
+    """Units not in the kept prefix: the rest of the pivot order, then those never pivoted."""
+    if shells is None:
+        rest = np.concatenate([res.pivots[k:], res.dropped])
+        return [np.array([i]) for i in rest]
+    groups = _shell_index_lists(shells, n)
+    j = int(np.searchsorted(_prefix_ends(res, shells), k))
+    later = [int(s) for s in res.shell_pivots[j:]]
+    never = sorted(set(range(len(groups))) - {int(s) for s in res.shell_pivots})
+    return [groups[s] for s in later + never]
+
+
+def _add_back(S: np.ndarray, order: np.ndarray, groups: list[np.ndarray], goal: float,
+              L: np.ndarray | None = None):
+    """Greedily append each group (in turn) while ``S[kept, kept] - goal*I`` stays positive
+    definite, by extending its Cholesky factor (``L``, lower, when the caller has it). A
+    group that fails once can never fit later (adding functions only lowers the smallest
+    eigenvalue), so one pass leaves no dropped group that could be added. Returns (order,
+    sizes of the added groups, factor of ``S[order, order] - goal*I``)."""
+    if not groups:
+        return order, [], L
+    A = None
+    if L is None:
+        A = S[np.ix_(order, order)]
+        A[np.diag_indices_from(A)] -= goal
+        try:  # A is symmetric: its transpose is the Fortran-ordered array LAPACK factors in place
+            L = scipy.linalg.cholesky(A.T, lower=True, overwrite_a=True, check_finite=False)
+        except np.linalg.LinAlgError:
+            return order, [], None
+    cand = np.concatenate(groups)
+    starts = np.cumsum([0] + [g.size for g in groups])
+    # Rows of the growing factor for every candidate column, block by block.
+    W = [scipy.linalg.solve_triangular(L, S[np.ix_(order, cand)], lower=True, check_finite=False)]
+    kept, sizes, tails = [order], [], []
+    for gi, g in enumerate(groups):
+        cols = slice(starts[gi], starts[gi + 1])
+        Wg = np.vstack([w[:, cols] for w in W])
+        C = S[np.ix_(g, g)] - Wg.T @ Wg
+        C[np.diag_indices_from(C)] -= goal
+        try:
+            Cc = scipy.linalg.cholesky(C, lower=True, check_finite=False)
+        except np.linalg.LinAlgError:
+            continue
+        rhs = S[np.ix_(g, cand)] - Wg.T @ np.vstack(W)
+        W.append(scipy.linalg.solve_triangular(Cc, rhs, lower=True, check_finite=False))
+        kept.append(g)
+        sizes.append(g.size)
+        tails.append((Wg, Cc))
+    order = np.concatenate(kept)
+    if not tails:
+        return order, sizes, L
+    factor = np.zeros((order.size, order.size))
+    k = L.shape[0]
+    factor[:k, :k] = L
+    del L, A  # the same memory (L is A's transpose, factored in place)
+    for Wg, Cc in tails:
+        d = Cc.shape[0]
+        factor[k : k + d, : Wg.shape[0]] = Wg.T
+        factor[k : k + d, k : k + d] = Cc
+        k += d
+    return order, sizes, factor
+
+
+def _search_tolerance(S, target, shells, max_steps: int = 60):
+    """Bisection on log10(tol) in [target, first pivot]; each trial factorizes and checks."""
+    facts = eigs = 0
+
+    def trial(tol):
+        nonlocal facts, eigs
+        res = _factorize(S, tol, shells)
+        facts += 1
+        eigs += 1
+        return res, _smallest(S, res.pivots)
+
+    res_lo, low = trial(target)
+    if low >= target:
+        return res_lo, res_lo.rank, facts, eigs, low
+    first = (res_lo.pivot_values if shells is None else res_lo.shell_values)[0]
+    ends = _prefix_ends(res_lo, shells)
+    lo, hi = np.log10(target), np.log10(first)
+    res_hi, high = trial(first)
+    if high < target:  # a lone first shell below target (e.g. a Cartesian shell and target near 1)
+        return res_hi, 0, facts, eigs, np.inf
+    for _ in range(max_steps):
+        gap = np.searchsorted(ends, res_lo.rank) - np.searchsorted(ends, res_hi.rank)
+        if gap <= 1 or hi - lo < 1e-12:
+            break
+        mid = 0.5 * (lo + hi)
+        res_mid, val = trial(10.0**mid)
+        if val >= target:
+            hi, res_hi, high = mid, res_mid, val
+        else:
+            lo, res_lo = mid, res_mid
+    return res_hi, res_hi.rank, facts, eigs, high

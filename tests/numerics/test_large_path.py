@@ -1,0 +1,332 @@
+"""The large-system spectrum path against the dense eigendecomposition."""
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from scipy.linalg import lapack
+
+from auditor.base.errors import EXIT_RESOURCE, ResourceError
+from auditor.numerics.factored import large_spectrum
+from auditor.numerics.inplace import _cholesky, _ldl_negative_count
+from auditor.numerics.memory import _HEADROOM_BYTES, check_memory, estimate_bytes, resolve_method
+from auditor.numerics.eigen import compute_spectrum
+from auditor.numerics.spectrum import COUNT_LEVELS, level_key
+
+WATER = [("O", (0.0, 0.0, 0.0)), ("H", (0.9572, 0.0, 0.0)), ("H", (-0.2400, 0.9266, 0.0))]
+
+
+def _shifted(atoms, v):
+    return [(s, tuple(np.add(p, v))) for s, p in atoms]
+
+
+TRIMER = WATER + _shifted(WATER, (2.9, 0.1, 0.2)) + _shifted(WATER, (0.3, 2.8, -0.4))
+
+
+def overlap(atoms, basis: str) -> np.ndarray:
+    """Unit-diagonal overlap from pyscf, made exactly symmetric."""
+    from pyscf import gto
+
+    mol = gto.M(atom=atoms, basis=basis, unit="Angstrom", verbose=0, spin=None)
+    S = mol.intor_symmetric("int1e_ovlp")
+    d = 1.0 / np.sqrt(np.diagonal(S).copy())
+    S = S * np.outer(d, d)
+    np.fill_diagonal(S, 1.0)
+    return 0.5 * (S + S.T)
+
+
+def trimer_with_ghost(distance: float, basis: str = "aug-cc-pvdz") -> np.ndarray:
+    """Water trimer plus a ghost O ``distance`` Å from the first O: a planted near-duplicate."""
+    return overlap(TRIMER + [("ghost-O", (distance, 0.0, 0.0))], basis)
+
+
+def planted(n: int = 400, seed: int = 3) -> np.ndarray:
+    """Q diag(lambda) Q^T with six planted small eigenvalues, scaled to unit diagonal."""
+    rng = np.random.default_rng(seed)
+    small = [3e-9, 4e-8, 2e-7, 7e-7, 2e-6, 3e-6]
+    lam = np.concatenate([small, np.logspace(-3.5, 0.7, n - len(small))])
+    Q, _ = np.linalg.qr(rng.standard_normal((n, n)))
+    S = (Q * lam) @ Q.T
+    d = 1.0 / np.sqrt(np.diagonal(S).copy())
+    S = S * np.outer(d, d)
+    return 0.5 * (S + S.T)
+
+
+def reference(S):
+    # reference: numpy.linalg.eigh (LAPACK syevd), on a copy
+    return np.linalg.eigh(S.copy())
+
+
+def check_counts(spec, w):
+    """Every count the large path reports equals the count of the dense eigenvalues."""
+    for t in COUNT_LEVELS:
+        got = spec.counts_below[level_key(t)]
+        if got is not None:
+            assert got == int(np.searchsorted(w, t)), level_key(t)  # reference: numpy.linalg.eigh
+
+
+def subspace_sine(V, U, k):
+    """sin of the largest principal angle between span(V) and the first k columns of U."""
+    return float(np.linalg.norm(U[:, k:].T @ V, 2))
+
+
+@pytest.mark.parametrize("order", ["C", "F"])
+def test_planted_synthetic_agrees_and_restores_S(order):
+    S = np.asarray(planted(), order=order)
+    S0 = S.copy()
+    w, U = reference(S)
+    spec = large_spectrum(S, 1e-5)
+    assert np.array_equal(S, S0)  # the factorization triangle is restored from its mirror
+    assert spec.method == "large" and not spec.complete
+    k = spec.vectors.shape[1]
+    assert k == int(np.searchsorted(w, 1e-5)) == 6
+    # 1e-8 relative, or a few eps * ||S|| where that is larger: both methods are backward
+    # stable, so tinier eigenvalues agree only to rounding (reference: numpy.linalg.eigh)
+    tol = np.maximum(1e-8 * w[:k], 64 * np.finfo(float).eps * w[-1])
+    assert np.all(np.abs(spec.values - w[:k]) <= tol)
+    assert abs(spec.largest - w[-1]) <= 1e-7 * w[-1]  # reference: numpy.linalg.eigh
+    check_counts(spec, w)
+    # all eigenvalues below the vector level are computed: every decade below it is known
+    assert all(spec.counts_below[level_key(t)] is not None for t in COUNT_LEVELS if t <= 1e-5)
+    assert spec.counts_below["1e-03"] is None  # not computed, not guessed
+    assert w[k] / w[k - 1] > 2.0  # a gap, so the near-null space is well defined
+    assert subspace_sine(spec.vectors, U, k) < 1e-6  # projectors agree; reference: eigh
+    assert spec.gershgorin_bound <= w[0]  # Gershgorin circle theorem
+
+
+def test_ghost_atom_near_duplicate():
+    S = trimer_with_ghost(0.001)
+    w, U = reference(S)
+    spec = large_spectrum(S, 1e-5)
+    k = spec.vectors.shape[1]
+    assert k == int(np.searchsorted(w, 1e-5)) == 22
+    # lambda_min ~ 5e-11: both methods are backward stable, so they agree to a few
+    # eps * ||S|| in absolute terms (reference: numpy.linalg.eigh)
+    assert abs(spec.smallest - w[0]) <= 1e-13
+    check_counts(spec, w)
+    assert [spec.counts_below[level_key(t)] for t in COUNT_LEVELS[2:]] == [
+        int(np.searchsorted(w, t)) for t in COUNT_LEVELS[2:]
+    ]
+    assert w[k] / w[k - 1] > 2.0
+    assert subspace_sine(spec.vectors, U, k) < 1e-5  # reference: numpy.linalg.eigh
+
+
+def test_well_separated_ghost_relative_accuracy_and_nulls():
+    S = trimer_with_ghost(0.2)
+    w, _ = reference(S)
+    spec = large_spectrum(S, 1e-5, min_vectors=3)
+    assert w[0] > 1e-6
+    assert abs(spec.smallest - w[0]) <= 1e-8 * w[0]  # reference: numpy.linalg.eigh
+    assert spec.values.size == 3  # two below 1e-5, filled up to min_vectors
+    check_counts(spec, w)
+    assert spec.counts_below["1e-05"] == 2  # Sylvester's law of inertia; eigh agrees
+    # the three computed values stop below 1e-4: those decades stay unknown
+    assert spec.values[-1] < 1e-4
+    assert spec.counts_below["1e-04"] is None and spec.counts_below["1e-03"] is None
+
+
+def test_cholesky_decision_when_nothing_below_level():
+    S = trimer_with_ghost(0.5)
+    w, _ = reference(S)
+    assert w[0] > 1e-5
+    info: dict = {}
+    spec = large_spectrum(S, 1e-5, info=info)
+    assert "t_ldl_tau" not in info  # the Cholesky attempt of S - tau I succeeded
+    assert all(spec.counts_below[level_key(t)] == 0 for t in COUNT_LEVELS if t <= 1e-5)
+    check_counts(spec, w)
+    assert spec.counts_below["1e-04"] == 2  # computed values reach past 1e-4
+    np.testing.assert_allclose(spec.values, w[:3], rtol=1e-8)  # reference: numpy.linalg.eigh
+
+
+def test_vector_cap_keeps_exact_counts():
+    S = trimer_with_ghost(0.001, "aug-cc-pvtz")
+    w, _ = reference(S)
+    spec = large_spectrum(S, 1e-5, max_vectors=10)
+    assert spec.vectors.shape[1] == 10
+    assert spec.counts_below["1e-05"] == int(np.searchsorted(w, 1e-5)) == 45  # Sylvester
+    check_counts(spec, w)
+    # decades covered by the ten computed values are known, the others are not
+    assert spec.counts_below["1e-10"] == int(np.searchsorted(w, 1e-10))
+    assert spec.counts_below["1e-06"] is None
+    np.testing.assert_allclose(spec.values, w[:10], rtol=1e-6, atol=1e-14)
+
+
+def test_exact_counts_by_inertia():
+    S = planted(300, seed=5)
+    w, _ = reference(S)
+    spec = large_spectrum(S, 1e-5, exact_counts=True)
+    expected = {level_key(t): int(np.searchsorted(w, t)) for t in COUNT_LEVELS}
+    assert spec.counts_below == expected  # Sylvester's law of inertia; reference: eigh
+
+
+def test_singular_overlap_from_coincident_ghost():
+    S = trimer_with_ghost(0.0)
+    w, _ = reference(S)
+    info: dict = {}
+    spec = large_spectrum(S, 1e-5, info=info)
+    assert abs(spec.smallest) < 1e-12 and abs(w[0]) < 1e-12  # singular to rounding
+    assert spec.counts_below["1e-05"] == int(np.searchsorted(w, 1e-5))
+    assert spec.condition_number is None or spec.condition_number > 1e11
+
+
+def test_inertia_with_two_by_two_pivots():
+    rng = np.random.default_rng(7)
+    n = 120
+    B = rng.standard_normal((n // 2, n // 2))
+    A = np.block([[np.zeros((n // 2, n // 2)), B], [B.T, 1e-3 * np.eye(n // 2)]])
+    A = np.asfortranarray(A + np.diag(rng.uniform(-1e-3, 1e-3, n)))
+    expected = int((np.linalg.eigvalsh(A) < 0).sum())  # reference: numpy eigvalsh
+    _, ipiv, _ = lapack.dsytrf(A.copy(order="F"), lower=1)
+    assert (ipiv < 0).any()  # the matrix really needs 2x2 pivots
+    assert _ldl_negative_count(A) == expected  # Sylvester's law of inertia
+
+
+def test_blocked_cholesky_matches_lapack_and_stops_where_it_does():
+    rng = np.random.default_rng(11)
+    n = 900  # three panels of the blocked factorization
+    X = rng.standard_normal((n, n))
+    S = np.asfortranarray(X @ X.T / n + 1e-2 * np.eye(n))
+    upper = np.triu(S, 1).copy()
+    A = S.copy(order="F")
+    assert _cholesky(A) == 0
+    ref, info = lapack.dpotrf(S.copy(order="F"), lower=1)  # reference: LAPACK dpotrf
+    assert info == 0
+    np.testing.assert_allclose(np.tril(A), np.tril(ref), atol=1e-12)
+    assert np.array_equal(np.triu(A, 1), upper)  # the other triangle still holds S
+    S[700, 700] = -1.0  # leading minor of order 701 is indefinite
+    assert _cholesky(S.copy(order="F")) == lapack.dpotrf(S.copy(order="F"), lower=1)[1] == 701
+
+
+def test_compute_spectrum_dispatch():
+    S = trimer_with_ghost(0.2)
+    assert compute_spectrum(S, 1e-5, method="large").method == "large"
+    assert compute_spectrum(S, 1e-5, method="auto").method == "full"  # far below the crossover
+    assert resolve_method(10**5, "auto", available=10**12) == "large"
+    # below the crossover, "auto" goes large only when the full path would not fit
+    fits = estimate_bytes(1000, "full") + _HEADROOM_BYTES
+    assert resolve_method(1000, "auto", available=fits) == "full"
+    assert resolve_method(1000, "auto", available=fits - 1) == "large"
+    assert estimate_bytes(20000, "full") > 3 * estimate_bytes(20000, "large")
+
+
+def test_memory_guard_refuses_impossible_size():
+    with pytest.raises(ResourceError) as err:
+        check_memory(2_000_000, "large")  # S alone would need ~32 TB
+    msg = str(err.value)
+    assert "needs about" in msg and "GB" in msg and "available" in msg
+    assert err.value.exit_code == EXIT_RESOURCE
+
+
+def test_memory_guard_names_needed_and_available():
+    gib = 1024 ** 3
+    with pytest.raises(ResourceError) as err:
+        check_memory(30000, "full", available=16 * gib)
+    msg = str(err.value)
+    assert "16.0 GB" in msg  # available, as given
+    assert f"{estimate_bytes(30000, 'full') / gib:.1f} GB" in msg  # needed
+    assert "large spectrum path" in msg  # 30000 functions fit on the large path
+    # measured peaks of the large path: 1.09-1.20 copies of S (README benchmark); the guard
+    # must count at least S itself and stay below 1.4 copies
+    needed = check_memory(30000, "large", available=16 * gib)
+    assert 8 * 30000 ** 2 < needed < 1.4 * 8 * 30000 ** 2
+
+
+def _write_trimer_with_ghost(path, distance):
+    atoms = TRIMER + [("O", (distance, 0.0, 0.0))]
+    lines = [f"{s} {x:.6f} {y:.6f} {z:.6f}" for s, (x, y, z) in atoms]
+    path.write_text(f"{len(atoms)}\nwater trimer + ghost O\n" + "\n".join(lines) + "\n")
+    return str(path)
+
+
+def _ranking(entries, key):
+    """Ranking by weight rounded to 1e-4, ties by name: near-equal weights may swap."""
+    return [e[key] for e in sorted(entries, key=lambda e: (-round(e["weight"], 4), str(e[key])))]
+
+
+def test_audit_causes_rank_the_same_on_both_paths(tmp_path):
+    import auditor
+
+    xyz = _write_trimer_with_ghost(tmp_path / "g.xyz", 0.05)
+    full = auditor.audit(xyz, "aug-cc-pvdz", ghost="10", spectrum_method="full", remedies=False)
+    large = auditor.audit(xyz, "aug-cc-pvdz", ghost="10", spectrum_method="large", remedies=False)
+    assert large.spectrum.method == "large" and full.spectrum.method == "full"
+    assert large.verdict == full.verdict
+    assert large.causes.n_vectors == full.causes.n_vectors > 0
+    assert _ranking(large.causes.atoms, "atom") == _ranking(full.causes.atoms, "atom")
+    assert _ranking(large.causes.shells, "shell") == _ranking(full.causes.shells, "shell")
+    for a, b in zip(sorted(large.causes.atoms, key=lambda e: e["atom"]),
+                    sorted(full.causes.atoms, key=lambda e: e["atom"])):
+        assert abs(a["weight"] - b["weight"]) < 1e-5  # reference: the full path (eigh)
+    assert abs(large.spectrum.smallest - full.spectrum.smallest) <= 1e-8 * full.spectrum.smallest
+
+
+def test_audit_refuses_before_building_S(tmp_path, monkeypatch):
+    import auditor
+    import auditor.pipeline.run
+    import auditor.numerics.memory
+
+    def must_not_build(*_):
+        raise AssertionError("S was built although the memory guard should refuse")
+
+    monkeypatch.setattr(auditor.numerics.memory, "available_bytes", lambda: 64 * 1024 ** 2)
+    monkeypatch.setattr(auditor.numerics.memory, "_SMALL_BYTES", 0)  # this molecule is small enough to skip the check
+    monkeypatch.setattr(auditor.pipeline.run, "normalized_overlap", must_not_build)
+    xyz = _write_trimer_with_ghost(tmp_path / "g.xyz", 0.5)
+    with pytest.raises(ResourceError, match=r"needs about .* GB .* only 0\.1 GB is available"):
+        auditor.audit(xyz, "aug-cc-pvdz", ghost="10", spectrum_method="large", remedies=False)
+
+
+def test_cli_spectrum_option_large_matches_full(tmp_path):
+    # the large path chosen from the command line gives the same smallest eigenvalue
+    # as the dense path (reference: numpy.linalg.eigh via --spectrum full)
+    import json
+
+    from typer.testing import CliRunner
+
+    from auditor.cli import app
+    from helpers import WATER, write_xyz
+
+    symbols, coords = WATER
+    f = write_xyz(tmp_path / "w.xyz", symbols + ["H"], coords + [[0.0, 0.7572, -0.4392]])
+    got = {}
+    for method in ("full", "large"):
+        res = CliRunner().invoke(app, ["check", str(f), "-b", "aug-cc-pvdz", "-o", str(tmp_path / method),
+                                       "-f", "json", "--spectrum", method])
+        assert res.exit_code in (0, 1), res.output
+        got[method] = json.loads((tmp_path / method / "w.json").read_text())["spectrum"]
+    assert got["large"]["method"] == "large" and got["full"]["method"] == "full"
+    assert got["large"]["smallest"] == pytest.approx(got["full"]["smallest"], rel=1e-8)
+    assert CliRunner().invoke(app, ["check", str(f), "-b", "sto-3g", "--spectrum", "fast"]).exit_code == 2
+
+
+def test_large_path_gives_max_X_only_where_certified():
+    # reference: X = U_kept diag(lambda_kept)^-1/2 formed from numpy.linalg.eigh; the large
+    # path reports max |X| of a candidate threshold only when its eigenvectors certify it
+    from auditor.remedies.canonical import CANDIDATES
+
+    S = trimer_with_ghost(0.05)
+    w, U = reference(S)
+    spec = large_spectrum(S, vector_level=1e-5)
+    assert spec.beyond == 1e-5   # every eigenvalue below the level was computed
+    certified = 0
+    for t in CANDIDATES:
+        removed = int(np.sum(w < t))
+        got = spec.growth(removed)
+        if got is None:
+            continue
+        certified += 1
+        X = U[:, removed:] / np.sqrt(w[removed:])
+        assert got == pytest.approx(np.abs(X).max(), rel=1e-4), t
+    assert certified >= 1
+    # without the guarantee that nothing below the level was skipped, nothing is claimed
+    capped = large_spectrum(trimer_with_ghost(0.05), vector_level=1e-3, max_vectors=3)
+    assert int(np.sum(w < 1e-3)) > capped.values.size == 3
+    assert capped.beyond is None and all(capped.growth(r) is None for r in range(3))
+
+
+def test_unconverged_iteration_is_refused_not_reported():
+    # a Ritz pair that has not converged is not an eigenpair: the path must say so
+    S = trimer_with_ghost(0.05)
+    S0 = S.copy()
+    with pytest.raises(ResourceError, match="did not converge"):
+        large_spectrum(S, vector_level=1e-5, maxiter=1, tol=1e-300)
+    assert np.array_equal(S, S0)  # S restored all the same

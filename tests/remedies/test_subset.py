@@ -1,0 +1,340 @@
+"""Pivoted Cholesky, shell pivoting and target-driven selection (auditor.numerics.cholesky, auditor.remedies.subset)."""
+from __future__ import annotations
+
+import itertools
+
+import numpy as np
+import pytest
+from pyscf import gto
+
+from auditor.numerics.cholesky import pivoted_cholesky, shell_pivoted_cholesky, smallest_from_factor
+from auditor.remedies.subset import check_atoms_not_emptied, select_for_target, shells_from_functions
+from auditor.base.errors import InputError, UsageError
+
+
+def normalized_overlap(mol: gto.Mole) -> np.ndarray:
+    S = mol.intor("int1e_ovlp")
+    d = 1.0 / np.sqrt(np.diagonal(S))
+    return S * d[:, None] * d[None, :]
+
+
+def labels(mol: gto.Mole) -> tuple[np.ndarray, np.ndarray]:
+    """Shell index and atom index (both 0-based) of every function."""
+    loc = mol.ao_loc_nr()
+    shell = np.repeat(np.arange(mol.nbas), np.diff(loc))
+    atom = np.array([mol.bas_atom(s) for s in range(mol.nbas)])[shell]
+    return shell, atom
+
+
+def s_overlap(exps: np.ndarray, centres: np.ndarray) -> np.ndarray:
+    """Overlap of normalized s Gaussians: (2 sqrt(ab)/(a+b))^(3/2) exp(-ab R^2/(a+b)).
+
+    Reference: Gaussian product theorem, Boys, Proc. R. Soc. A 200, 542 (1950).
+    """
+    a, b = exps[:, None], exps[None, :]
+    r2 = ((centres[:, None, :] - centres[None, :, :]) ** 2).sum(-1)
+    return (2.0 * np.sqrt(a * b) / (a + b)) ** 1.5 * np.exp(-a * b * r2 / (a + b))
+
+
+def random_s_overlap(n: int, seed: int) -> np.ndarray:
+    """s Gaussians at random centres and exponents: no symmetry, so no pivot ties."""
+    rng = np.random.default_rng(seed)
+    return s_overlap(10.0 ** rng.uniform(-1.5, 0.5, n), rng.uniform(0.0, 4.0, (n, 3)))
+
+
+@pytest.fixture(scope="module")
+def dimer():
+    """A compressed water dimer in d-aug-cc-pVDZ: diffuse shells on close atoms."""
+    mol = gto.M(
+        atom="""O 0 0 0; H 0.757 0.586 0; H -0.757 0.586 0;
+                O 0.3 -0.2 2.2; H 1.0 0.4 2.3; H -0.5 0.3 2.5""",
+        basis="d-aug-cc-pvdz",
+        unit="Angstrom",
+        verbose=0,
+    )
+    S = normalized_overlap(mol)
+    shell, atom = labels(mol)
+    return mol, S, shell, atom
+
+
+def test_pyscf_s_overlap_matches_closed_form():
+    # Reference: closed-form s-s overlap of normalized Gaussians (Boys 1950); checks the
+    # fixture formula used by the even-tempered test below against the integral library.
+    mol = gto.M(atom="He 0 0 0; He 0 0 0.9", basis={"He": [[0, [0.7, 1.0]], [0, [2.3, 1.0]]]},
+                unit="Bohr", verbose=0)
+    centres = np.array([[0, 0, 0], [0, 0, 0], [0, 0, 0.9], [0, 0, 0.9]])
+    expected = s_overlap(np.array([0.7, 2.3, 0.7, 2.3]), centres)
+    assert np.allclose(normalized_overlap(mol), expected, atol=1e-12)
+
+
+@pytest.mark.parametrize("method", ["lapack", "loop", "shell"])
+def test_factor_reproduces_kept_block(dimer, method):
+    # Reference: definition of the Cholesky factorization, L L^T = S[kept, kept], with L
+    # lower triangular and a positive diagonal.
+    _, S, shell, _ = dimer
+    if method == "shell":
+        res = shell_pivoted_cholesky(S, shell, 1e-3)
+    else:
+        res = pivoted_cholesky(S, 1e-3, method=method)
+    p = res.pivots
+    assert 0 < res.rank < S.shape[0]  # the tolerance really drops something here
+    assert np.allclose(res.factor @ res.factor.T, S[np.ix_(p, p)], atol=1e-12)
+    assert np.allclose(res.factor, np.tril(res.factor))
+    assert np.all(np.diagonal(res.factor) > 0)
+    assert sorted(np.concatenate([p, res.dropped]).tolist()) == list(range(S.shape[0]))
+
+
+def test_pivot_values_bound_and_stop(dimer):
+    # Reference: a Schur-complement diagonal d_k = 1/(S_k^-1)_kk is >= lambda_min(S_k)
+    # (Rayleigh quotient of S_k^-1); the factorization stops below the tolerance.
+    _, S, _, _ = dimer
+    tol = 1e-3
+    res = pivoted_cholesky(S, tol)
+    assert res.pivot_values.min() >= tol
+    for k in (5, res.rank // 2, res.rank):
+        sub = S[np.ix_(res.pivots[:k], res.pivots[:k])]
+        assert res.pivot_values[k - 1] >= np.linalg.eigvalsh(sub)[0] - 1e-14
+
+
+def test_lapack_loop_and_singleton_shells_agree():
+    # Reference: full diagonal pivoting picks the largest Schur diagonal; three independent
+    # implementations (LAPACK dpstrf, a plain loop, shell pivoting with one-function shells)
+    # must give the same order on a matrix without ties.
+    S = random_s_overlap(80, seed=3)
+    a = pivoted_cholesky(S, 1e-3, method="lapack")
+    b = pivoted_cholesky(S, 1e-3, method="loop")
+    c = shell_pivoted_cholesky(S, np.arange(80), 1e-3)
+    assert a.rank < 80
+    assert np.array_equal(a.pivots, b.pivots)
+    assert np.array_equal(a.pivots, c.pivots)
+    assert np.allclose(a.factor, c.factor, atol=1e-10)
+
+
+@pytest.mark.parametrize("shell_level", [False, True])
+@pytest.mark.parametrize("search", ["shifted", "prefix", "tolerance"])
+def test_kept_set_reaches_target_and_is_longest_prefix(dimer, shell_level, search):
+    # Reference: numpy.linalg.eigvalsh on the kept block; the next function (or shell) in
+    # the pivot order would take the kept set below target (so nothing longer qualifies).
+    _, S, shell, _ = dimer
+    target = 1e-3
+    sof = shell if shell_level else None
+    sel = select_for_target(S, target, sof, search=search, refine=False)
+    kept = sel.kept
+    assert sel.n_dropped > 0
+    assert np.linalg.eigvalsh(S[np.ix_(kept, kept)])[0] >= target
+    full = shell_pivoted_cholesky(S, shell, 0.0) if shell_level else pivoted_cholesky(S, 0.0)
+    k = kept.size
+    assert np.array_equal(np.sort(full.pivots[:k]), kept)
+    step = np.bincount(shell)[full.shell_pivots[len(sel.kept_shells)]] if shell_level else 1
+    longer = full.pivots[: k + step]
+    assert np.linalg.eigvalsh(S[np.ix_(longer, longer)])[0] < target
+    if shell_level:  # whole shells only
+        assert set(shell[sel.kept]).isdisjoint(shell[sel.dropped])
+
+
+def test_searches_agree_and_count_factorizations(dimer):
+    _, S, _, _ = dimer
+    for refine in (False, True):
+        sels = {s: select_for_target(S, 1e-3, search=s, refine=refine) for s in ("shifted", "prefix", "tolerance")}
+        for s in sels.values():
+            assert np.array_equal(s.kept, sels["shifted"].kept)
+        assert sels["shifted"].factorizations == 2 + refine
+        assert sels["prefix"].factorizations == 1 + refine
+        assert sels["tolerance"].factorizations > 2 + refine
+
+
+@pytest.mark.parametrize("shell_level", [False, True])
+def test_refined_set_meets_target_and_no_dropped_unit_fits(dimer, shell_level):
+    # Reference: numpy.linalg.eigvalsh; after the add-back pass, adding any single dropped
+    # function (or shell) takes the kept set below target, and the prefix is kept whole.
+    _, S, shell, _ = dimer
+    target = 1e-3
+    sof = shell if shell_level else None
+    sel = select_for_target(S, target, sof)
+    plain = select_for_target(S, target, sof, refine=False)
+    assert np.array_equal(np.sort(sel.order[: sel.prefix]), plain.kept)
+    assert sel.n_dropped <= plain.n_dropped
+    assert sel.kept.size == sel.prefix + sel.added_back
+    assert np.linalg.eigvalsh(S[np.ix_(sel.kept, sel.kept)])[0] >= target
+    units = [np.flatnonzero(shell == s) for s in sel.dropped_shells] if shell_level else [[i] for i in sel.dropped]
+    assert units
+    for u in units:
+        trial = np.concatenate([sel.kept, u])
+        assert np.linalg.eigvalsh(S[np.ix_(trial, trial)])[0] < target
+
+
+def test_reported_tolerance_reproduces_kept_set(dimer):
+    # Reference: definition of the stopping rule (largest remaining diagonal < tol).
+    _, S, shell, _ = dimer
+    for sof in (None, shell):
+        sel = select_for_target(S, 1e-3, sof)
+        again = pivoted_cholesky(S, sel.tolerance) if sof is None else shell_pivoted_cholesky(S, sof, sel.tolerance)
+        assert np.array_equal(again.pivots, sel.order[: sel.prefix])
+
+
+def test_fewest_drops_among_tolerances_tried(dimer):
+    # Reference: brute force over a grid of tolerances, each checked by eigvalsh.
+    _, S, _, _ = dimer
+    target = 1e-3
+    sel = select_for_target(S, target)
+    drops = []
+    for tol in np.logspace(np.log10(target), -0.01, 40):
+        res = pivoted_cholesky(S, tol)
+        if np.linalg.eigvalsh(S[np.ix_(res.pivots, res.pivots)])[0] >= target:
+            drops.append(S.shape[0] - res.rank)
+    assert drops and sel.n_dropped <= min(drops)
+
+
+def test_drops_at_least_eigenvalues_below_target(dimer):
+    # Reference: Cauchy interlacing; a principal submatrix of size m has
+    # lambda_min <= lambda_(n-m+1) of S, so at least #(eigenvalues < target) must go.
+    _, S, shell, _ = dimer
+    w = np.linalg.eigvalsh(S)
+    for target in (1e-2, 1e-3):
+        below = int(np.sum(w < target))
+        assert select_for_target(S, target).n_dropped >= below
+        assert select_for_target(S, target, shell).n_dropped >= below
+
+
+def test_planted_duplicate_shell_is_the_one_dropped():
+    # Reference: an exact copy of a shell makes S exactly singular in one direction per
+    # component; the copy or its original must go, and nothing else at a mild target.
+    o = gto.basis.load("cc-pvdz", "O")
+    planted = o + [o[3]]  # a second copy of the diffuse p shell [1, [0.2753, 1.0]]
+    mol = gto.M(atom="O 0 0 0; H 0.757 0.586 0; H -0.757 0.586 0",
+                basis={"O": planted, "H": "cc-pvdz"}, verbose=0)
+    ref = gto.M(atom=mol.atom, basis="cc-pvdz", verbose=0)
+    target = 1e-4
+    assert np.linalg.eigvalsh(normalized_overlap(ref))[0] > target  # nothing else to drop
+    S = normalized_overlap(mol)
+    shell, _ = labels(mol)
+    twins = [i for i in range(mol.nbas)
+             if mol.bas_atom(i) == 0 and mol.bas_angular(i) == 1 and mol.bas_nprim(i) == 1]
+    orig, copy = twins  # pyscf orders an atom's shells by l, so locate the pair
+    assert np.allclose(S[np.ix_(shell == orig, shell == copy)], np.eye(3))
+
+    sel = select_for_target(S, target, shell)
+    assert len(sel.dropped_shells) == 1 and sel.dropped_shells[0] in (orig, copy)
+    flat = select_for_target(S, target)
+    assert flat.n_dropped == 3
+    for a, b in zip(np.flatnonzero(shell == orig), np.flatnonzero(shell == copy)):
+        assert (a in flat.dropped) != (b in flat.dropped)
+
+
+def test_even_tempered_set_loses_more_as_ratio_approaches_one():
+    # Reference: s-s overlap closed form (Boys 1950); adjacent overlap of an even-tempered
+    # pair is (2 sqrt(beta)/(1+beta))^(3/2), which tends to 1 as beta -> 1, and the
+    # spectrum degrades (Bardo & Ruedenberg, J. Chem. Phys. 59, 5956 (1973), from memory).
+    target = 1e-5
+    drops, sizes = [], []
+    for beta in (3.0, 2.0, 1.5, 1.3, 1.15):
+        n = int(np.floor(np.log(1e4) / np.log(beta))) + 1  # exponents 0.01 ... 100
+        exps = 0.01 * beta ** np.arange(n)
+        S = s_overlap(exps, np.zeros((n, 3)))
+        adj = (2 * np.sqrt(beta) / (1 + beta)) ** 1.5
+        assert np.allclose(np.diagonal(S, 1), adj)
+        sel = select_for_target(S, target)
+        assert np.linalg.eigvalsh(S[np.ix_(sel.kept, sel.kept)])[0] >= target
+        assert sel.n_dropped >= int(np.sum(np.linalg.eigvalsh(S) < target))  # interlacing
+        drops.append(sel.n_dropped)
+        sizes.append(n)
+    assert drops[0] == 0  # beta = 3 is well conditioned
+    assert all(a <= b for a, b in itertools.pairwise(drops))
+    assert drops[-1] > drops[1]
+    assert sizes[-1] - drops[-1] < sizes[-1] * 0.8  # a dense set keeps a fraction only
+
+
+def test_shell_selection_is_rotation_invariant(dimer):
+    # Reference: real spherical harmonics of one shell rotate by an orthogonal matrix, so a
+    # rotated molecule has S' = R S R^T with block-orthogonal R; the shell criterion
+    # (smallest eigenvalue of a Schur block) is unchanged, so the same shells go.
+    mol, S, shell, _ = dimer
+    rng = np.random.default_rng(7)
+    q, _ = np.linalg.qr(rng.normal(size=(3, 3)))
+    xyz = mol.atom_coords(unit="Angstrom") @ q.T
+    rot = gto.M(atom=[(mol.atom_symbol(i), xyz[i]) for i in range(mol.natm)],
+                basis="d-aug-cc-pvdz", unit="Angstrom", verbose=0)
+    a = select_for_target(S, 1e-3, shell)
+    b = select_for_target(normalized_overlap(rot), 1e-3, labels(rot)[0])
+    assert a.dropped_shells.size > 0
+    assert np.array_equal(a.dropped_shells, b.dropped_shells)
+
+
+def test_lanczos_check_matches_eigvalsh():
+    # Reference: numpy.linalg.eigvalsh of the same matrix.
+    S = random_s_overlap(320, seed=11)
+    res = pivoted_cholesky(S, 1e-6)
+    assert res.rank > 200  # the Lanczos path, not the small-matrix shortcut
+    exact = np.linalg.eigvalsh(S[np.ix_(res.pivots, res.pivots)])[0]
+    assert smallest_from_factor(res.factor) == pytest.approx(exact, rel=1e-7)
+    sel = select_for_target(S, 1e-4, verify="lanczos")
+    assert np.linalg.eigvalsh(S[np.ix_(sel.kept, sel.kept)])[0] >= 1e-4
+
+
+@pytest.mark.parametrize("bad", [0.0, -1e-5, 1.5, float("nan"), float("inf"), "abc"])
+def test_bad_target_is_a_usage_error(bad):
+    with pytest.raises(UsageError, match="target"):
+        select_for_target(np.eye(3), bad)
+
+
+def test_target_one_is_allowed():
+    S = random_s_overlap(20, seed=1)
+    sel = select_for_target(S, 1.0)
+    assert sel.kept.size >= 1
+    assert np.linalg.eigvalsh(S[np.ix_(sel.kept, sel.kept)])[0] >= 1.0 - 1e-12
+
+
+def test_unnormalized_overlap_is_an_input_error():
+    with pytest.raises(InputError, match="unit diagonal"):
+        select_for_target(np.diag([1.0, 2.0]), 1e-3)
+    with pytest.raises(InputError):
+        pivoted_cholesky(np.ones((2, 3)), 1e-3)
+    for bad in (np.nan, np.inf, -np.inf):
+        S = np.eye(3)
+        S[0, 2] = S[2, 0] = bad
+        with pytest.raises(InputError, match="NaN or infinite"):
+            select_for_target(S, 1e-3)
+    S = np.eye(3)
+    S[0, 1], S[1, 0] = np.inf, -np.inf   # opposite infinities: their sum is NaN, still refused
+    with pytest.raises(InputError, match="NaN or infinite"):
+        pivoted_cholesky(S, 1e-3)
+
+
+def test_emptying_an_atom_is_an_error():
+    # Functions 0 and 2 are near copies, each on an atom of its own: one must go.
+    S = np.array([[1.0, 0.1, 0.999999], [0.1, 1.0, 0.1], [0.999999, 0.1, 1.0]])
+    atoms = np.array([0, 1, 2])
+    with pytest.raises(UsageError, match="every basis function of atom [13]"):
+        select_for_target(S, 1e-3, atom_of_function=atoms)
+    sel = select_for_target(S, 1e-3, atom_of_function=atoms, exempt_atoms=(0, 2))
+    assert sel.n_dropped == 1
+    check_atoms_not_emptied(np.array([0, 2]), np.array([0, 0, 1, 1]))
+    with pytest.raises(UsageError, match="atom 2"):
+        check_atoms_not_emptied(np.array([0, 1]), np.array([0, 0, 1, 1]), what="x")
+
+
+def test_shell_order_does_not_depend_on_panel_width(dimer):
+    # Reference: the greedy pivot sequence is defined without blocking; the panel width only
+    # changes when the trailing Schur complement is updated (and the rounding).
+    _, S, shell, _ = dimer
+    a = shell_pivoted_cholesky(S, shell, 1e-4, panel=4)
+    b = shell_pivoted_cholesky(S, shell, 1e-4, panel=192)
+    assert np.array_equal(a.shell_pivots, b.shell_pivots)
+    assert np.allclose(a.factor, b.factor, atol=1e-10)
+
+
+def test_shells_seeded_by_function_selection(dimer):
+    # Reference: Cauchy interlacing (a subset of a set meeting the target meets it too) and
+    # numpy.linalg.eigvalsh; whole shells only, and no dropped shell could be added back.
+    _, S, shell, _ = dimer
+    target = 1e-3
+    fn = select_for_target(S, target)
+    sel = shells_from_functions(S, fn, shell)
+    clean = set(shell[fn.kept]) - set(shell[fn.dropped])
+    assert set(shell[sel.order[: sel.prefix]]) == clean
+    assert set(shell[sel.kept]).isdisjoint(shell[sel.dropped])
+    assert np.linalg.eigvalsh(S[np.ix_(sel.kept, sel.kept)])[0] >= target
+    assert sel.dropped_shells.size > 0
+    for s in sel.dropped_shells:
+        trial = np.concatenate([sel.kept, np.flatnonzero(shell == s)])
+        assert np.linalg.eigvalsh(S[np.ix_(trial, trial)])[0] < target
