@@ -6,15 +6,29 @@ Public API::
     result = auditor.audit("water_dimer.xyz", basis="aug-cc-pvtz", ghost="4-6")
     result.verdict, result.spectrum.smallest, result.recommendation.threshold
 """
+
 __version__ = "0.1.0"
 
 _EXPORTS = {
-    "audit": "pipeline.run", "audit_prepared": "pipeline.run", "load_molecules": "pipeline.run", "make_spec": "pipeline.run",
-    "prepare": "pipeline.run", "prune_prepared": "pipeline.run", "AuditResult": "pipeline.result",
-    "BasisSpec": "inputs.basis", "Molecule": "inputs.geometry", "read_geometry": "inputs.geometry",
-    "load_pruned": "inputs.pruned", "Policy": "diagnosis.verdict", "RemedyOptions": "remedies.plan",
-    "to_json": "report.json_report", "render_markdown": "report.markdown", "render_html": "report.html",
-    "AuditorError": "base.errors", "InputError": "base.errors", "ResourceError": "base.errors",
+    "audit": "pipeline.run",
+    "audit_prepared": "pipeline.run",
+    "load_molecules": "pipeline.run",
+    "make_spec": "pipeline.run",
+    "prepare": "pipeline.run",
+    "prune_prepared": "pipeline.run",
+    "AuditResult": "pipeline.result",
+    "BasisSpec": "inputs.basis",
+    "Molecule": "inputs.geometry",
+    "read_geometry": "inputs.geometry",
+    "load_pruned": "inputs.pruned",
+    "Policy": "diagnosis.verdict",
+    "RemedyOptions": "remedies.plan",
+    "to_json": "report.json_report",
+    "render_markdown": "report.markdown",
+    "render_html": "report.html",
+    "AuditorError": "base.errors",
+    "InputError": "base.errors",
+    "ResourceError": "base.errors",
     "UsageError": "base.errors",
 }
 

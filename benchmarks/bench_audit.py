@@ -6,6 +6,7 @@ our own); the ratio is audit time / bare time, measured in the same process and 
 best of a few repeats. The audit is timed without remedies (the diagnosis) and with
 them (remedies are worked out only when the smallest eigenvalue is below the target).
 """
+
 from __future__ import annotations
 
 import argparse
@@ -33,8 +34,9 @@ def water_cluster(n_waters: int, spacing: float = 3.0, seed: int = 3):
 def bare(atoms, basis):
     from pyscf import gto
 
-    mol = gto.M(atom=[(s, tuple(p)) for s, p in zip(atoms.get_chemical_symbols(), atoms.positions)],
-                basis=basis, verbose=0)
+    mol = gto.M(
+        atom=[(s, tuple(p)) for s, p in zip(atoms.get_chemical_symbols(), atoms.positions)], basis=basis, verbose=0
+    )
     S = mol.intor("int1e_ovlp")
     w, v = np.linalg.eigh(S)
     return w[0]
@@ -61,11 +63,14 @@ def main():
     ap.add_argument("--sizes", type=int, nargs="*", default=[4, 11, 22])  # waters: 368, 1012, 2024 functions
     ap.add_argument("--repeats", type=int, default=3)
     args = ap.parse_args()
-    import auditor  # noqa: F401  (imports are not part of either timing)
     import pyscf.gto  # noqa: F401
 
-    print(f"{'waters':>6} {'functions':>9} {'smallest':>9} {'bare s':>8} {'audit s':>8} {'ratio':>6} "
-          f"{'+remedies s':>11} {'ratio':>6}")
+    import auditor  # noqa: F401  (imports are not part of either timing)
+
+    print(
+        f"{'waters':>6} {'functions':>9} {'smallest':>9} {'bare s':>8} {'audit s':>8} {'ratio':>6} "
+        f"{'+remedies s':>11} {'ratio':>6}"
+    )
     for n in args.sizes:
         atoms = water_cluster(n)
         first = full_audit(atoms, args.basis)  # warm caches (basis parsing) for a fair comparison

@@ -15,6 +15,7 @@ disturbed by others.
 
     python benchmarks/bench_batch.py --n 500 --jobs 2 --basis aug-cc-pvtz --repeat 3
 """
+
 from __future__ import annotations
 
 import argparse
@@ -29,7 +30,7 @@ from pathlib import Path
 
 import numpy as np
 
-NAIVE = r'''
+NAIVE = r"""
 import sys
 from pathlib import Path
 import numpy as np
@@ -43,7 +44,7 @@ for path in sorted(Path(sys.argv[1]).glob("*.xyz")):
     mol = gto.M(atom=atoms, basis=sys.argv[2], spin=sum(Z[a] for a, _ in atoms) % 2, verbose=0)
     smallest.append(np.linalg.eigvalsh(mol.intor("int1e_ovlp"))[0])
 print(len(smallest), min(smallest))
-'''
+"""
 
 
 def build_set(folder: Path, n: int, seed: int = 7) -> list[str]:
@@ -60,7 +61,9 @@ def build_set(folder: Path, n: int, seed: int = 7) -> list[str]:
         pos = (pos - pos.mean(axis=0)) @ Rotation.random(random_state=rng.integers(1 << 31)).as_matrix().T
         pos += rng.uniform(-0.02, 0.02, pos.shape)
         body = "\n".join(f"{s} {x:.6f} {y:.6f} {z:.6f}" for s, (x, y, z) in zip(atoms.get_chemical_symbols(), pos))
-        (folder / f"m{k:04d}_{names[k % len(names)]}.xyz").write_text(f"{len(atoms)}\n{names[k % len(names)]}\n{body}\n")
+        (folder / f"m{k:04d}_{names[k % len(names)]}.xyz").write_text(
+            f"{len(atoms)}\n{names[k % len(names)]}\n{body}\n"
+        )
     return names
 
 
@@ -77,8 +80,11 @@ def main() -> None:
     ap.add_argument("--basis", default="aug-cc-pvtz")
     ap.add_argument("--workdir", type=Path, default=None, help="keep the set and outputs here")
     ap.add_argument("--repeat", type=int, default=3, help="runs of each; the best is reported")
-    ap.add_argument("--single-thread-reference", action="store_true",
-                    help="also time the naive loop with one BLAS/OpenMP thread (for reference)")
+    ap.add_argument(
+        "--single-thread-reference",
+        action="store_true",
+        help="also time the naive loop with one BLAS/OpenMP thread (for reference)",
+    )
     args = ap.parse_args()
 
     work = args.workdir or Path(tempfile.mkdtemp(prefix="auditor-bench-"))
@@ -86,12 +92,28 @@ def main() -> None:
     for p in (geoms, out, cache):
         shutil.rmtree(p, ignore_errors=True)
     names = build_set(geoms, args.n)
-    print(f"{args.n} molecules ({len(names)} distinct G2 species), basis {args.basis}, "
-          f"{os.cpu_count()} cores, load average {os.getloadavg()[0]:.2f}")
+    print(
+        f"{args.n} molecules ({len(names)} distinct G2 species), basis {args.basis}, "
+        f"{os.cpu_count()} cores, load average {os.getloadavg()[0]:.2f}"
+    )
     (work / "naive.py").write_text(NAIVE)
 
-    gate = [sys.executable, "-m", "auditor.cli", "gate", str(geoms), "--basis", args.basis, "--out", str(out),
-            "--cache-dir", str(cache), "--jobs", str(args.jobs), "--quiet"]
+    gate = [
+        sys.executable,
+        "-m",
+        "auditor.cli",
+        "gate",
+        str(geoms),
+        "--basis",
+        args.basis,
+        "--out",
+        str(out),
+        "--cache-dir",
+        str(cache),
+        "--jobs",
+        str(args.jobs),
+        "--quiet",
+    ]
     runs: dict[str, list[float]] = {"naive": [], "cold": [], "warm": []}
     for _ in range(max(1, args.repeat)):
         shutil.rmtree(out, ignore_errors=True)
@@ -108,10 +130,14 @@ def main() -> None:
             if p.returncode not in (0, 1):
                 sys.exit(f"{name} run failed ({p.returncode}): {p.stderr.strip()[-500:]}")
     t_naive, t_cold, t_warm = (min(runs[k]) for k in ("naive", "cold", "warm"))
-    print(f"cold run: {cold_stats['computed']} audited, outcomes {cold_stats['outcomes']}; "
-          f"warm run: {warm_stats['computed']} audited, {warm_stats['cached']} from the cache")
+    print(
+        f"cold run: {cold_stats['computed']} audited, outcomes {cold_stats['outcomes']}; "
+        f"warm run: {warm_stats['computed']} audited, {warm_stats['cached']} from the cache"
+    )
     every = {k: " ".join(f"{t:.2f}" for t in v) for k, v in runs.items()}
-    print(f"naive loop      {t_naive:8.2f} s  {args.n / t_naive:8.1f} items/s   (runs: {every['naive']}; {p_naive.stdout.strip()})")
+    print(
+        f"naive loop      {t_naive:8.2f} s  {args.n / t_naive:8.1f} items/s   (runs: {every['naive']}; {p_naive.stdout.strip()})"
+    )
     print(f"gate cold -j{args.jobs}   {t_cold:8.2f} s  {args.n / t_cold:8.1f} items/s   (runs: {every['cold']})")
     print(f"gate warm -j{args.jobs}   {t_warm:8.2f} s  {args.n / t_warm:8.1f} items/s   (runs: {every['warm']})")
     if args.single_thread_reference:
@@ -119,12 +145,19 @@ def main() -> None:
         t_one, _ = timed([sys.executable, str(work / "naive.py"), str(geoms), args.basis], env=one)
         print(f"naive, 1 thread {t_one:8.2f} s  {args.n / t_one:8.1f} items/s   (reference only)")
     pair = lambda a, b: " ".join(f"{x / y:.2f}" for x, y in zip(runs[a], runs[b]))  # noqa: E731
-    print(f"cold vs naive: {t_naive / t_cold:.2f}x faster, best against best (target >= 2); "
-          f"run by run {pair('naive', 'cold')}")
-    print(f"warm vs cold:  {t_cold / t_warm:.2f}x faster, best against best (target >= 5); "
-          f"run by run {pair('cold', 'warm')}")
-    print(f"load average after: {os.getloadavg()[0]:.2f}; files kept in {work}" if args.workdir else
-          f"load average after: {os.getloadavg()[0]:.2f}")
+    print(
+        f"cold vs naive: {t_naive / t_cold:.2f}x faster, best against best (target >= 2); "
+        f"run by run {pair('naive', 'cold')}"
+    )
+    print(
+        f"warm vs cold:  {t_cold / t_warm:.2f}x faster, best against best (target >= 5); "
+        f"run by run {pair('cold', 'warm')}"
+    )
+    print(
+        f"load average after: {os.getloadavg()[0]:.2f}; files kept in {work}"
+        if args.workdir
+        else f"load average after: {os.getloadavg()[0]:.2f}"
+    )
     if not args.workdir:
         shutil.rmtree(work, ignore_errors=True)
 

@@ -14,6 +14,7 @@ The "large" column times ``auditor.audit_prepared(..., spectrum_method="large",
 remedies=False)`` on a prepared S (spectrum, findings, causes, advice); "eigh" times
 ``numpy.linalg.eigh`` on the same S. Building S (pyscf) is timed separately.
 """
+
 from __future__ import annotations
 
 import argparse
@@ -36,8 +37,7 @@ def water_cluster_xyz(n_waters: int, spacing: float = 3.0, seed: int = 11) -> st
 
     rng = np.random.default_rng(seed)
     r_oh, angle = 0.9572, np.deg2rad(104.52)
-    local = np.array([[0.0, 0.0, 0.0], [r_oh, 0.0, 0.0],
-                      [r_oh * np.cos(angle), r_oh * np.sin(angle), 0.0]])
+    local = np.array([[0.0, 0.0, 0.0], [r_oh, 0.0, 0.0], [r_oh * np.cos(angle), r_oh * np.sin(angle), 0.0]])
     side = int(np.ceil(n_waters ** (1.0 / 3.0)))
     lines = []
     for idx in range(n_waters):
@@ -60,13 +60,12 @@ def _rss_kib() -> int:
 def worker(kind: str, xyz: str, basis: str) -> dict:
     """One measurement in this (fresh) process; returns a JSON-able record."""
     import numpy as np
+    import pyscf.gto  # noqa: F401  (library code is not the audit's memory: load it before the baseline)
+    import scipy.sparse.linalg  # noqa: F401
 
     import auditor
     from auditor import api
     from auditor.pipeline.run import audit_prepared, make_spec, prepare
-
-    import pyscf.gto  # noqa: F401  (library code is not the audit's memory: load it before the baseline)
-    import scipy.sparse.linalg  # noqa: F401
 
     load0 = os.getloadavg()[0]
     mol = auditor.load_molecules(xyz)[0]
@@ -91,8 +90,10 @@ def worker(kind: str, xyz: str, basis: str) -> dict:
         rec["smallest"] = res.spectrum.smallest
         rec["remedies"] = {
             "problems": list(rem.get("problems", [])),
-            "alternatives": [(a.get("kind"), a.get("removed"), a.get("smallest_after"), a.get("reaches_target"))
-                             for a in rem.get("alternatives", [])],
+            "alternatives": [
+                (a.get("kind"), a.get("removed"), a.get("smallest_after"), a.get("reaches_target"))
+                for a in rem.get("alternatives", [])
+            ],
         }
     else:
         from auditor.numerics.factored import large_spectrum
@@ -112,14 +113,13 @@ def worker(kind: str, xyz: str, basis: str) -> dict:
         res = audit_prepared(prep, spectrum_method="large", remedies=False)
         rec["t_work"] = time.perf_counter() - t
         rec["t_spectrum"] = timing.get("spectrum")
-        rec["spectrum_detail"] = {k: (round(float(v), 3) if isinstance(v, float) else v)
-                                  for k, v in detail.items()}
+        rec["spectrum_detail"] = {k: (round(float(v), 3) if isinstance(v, float) else v) for k, v in detail.items()}
         rec["smallest"] = res.spectrum.smallest
         rec["below_1e-05"] = res.spectrum.counts_below.get("1e-05")
         rec["verdict"] = res.verdict
     peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
     rec["peak_over_S"] = (peak - base) * 1024.0 / (8.0 * n * n)
-    rec["peak_gib"] = peak / 1024.0 ** 2
+    rec["peak_gib"] = peak / 1024.0**2
     rec["load"] = [round(load0, 2), round(os.getloadavg()[0], 2)]
     return rec
 
@@ -135,15 +135,23 @@ def run(kind: str, xyz: str, basis: str) -> dict:
 
 def main(argv=None) -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--sizes", type=int, nargs="*", default=[3000, 6000, 12000],
-                    help="approximate numbers of basis functions to compare with eigh")
-    ap.add_argument("--demo", type=int, default=35000,
-                    help="approximate size run on the large path only (0: skip)")
+    ap.add_argument(
+        "--sizes",
+        type=int,
+        nargs="*",
+        default=[3000, 6000, 12000],
+        help="approximate numbers of basis functions to compare with eigh",
+    )
+    ap.add_argument("--demo", type=int, default=35000, help="approximate size run on the large path only (0: skip)")
     ap.add_argument("--basis", default="aug-cc-pvtz")
-    ap.add_argument("--repeat", type=int, default=1,
-                    help="runs per compared size, alternating; the fastest of each is shown")
-    ap.add_argument("--remedies", action="store_true",
-                    help="also time the audit with its pivoted-Cholesky remedies at the compared sizes")
+    ap.add_argument(
+        "--repeat", type=int, default=1, help="runs per compared size, alternating; the fastest of each is shown"
+    )
+    ap.add_argument(
+        "--remedies",
+        action="store_true",
+        help="also time the audit with its pivoted-Cholesky remedies at the compared sizes",
+    )
     ap.add_argument("--worker", choices=["large", "eigh", "remedies"], help=argparse.SUPPRESS)
     ap.add_argument("--xyz", help=argparse.SUPPRESS)
     args = ap.parse_args(argv)
@@ -154,10 +162,14 @@ def main(argv=None) -> None:
     from auditor.base.errors import ResourceError
     from auditor.numerics.memory import check_memory
 
-    print(f"# {time.strftime('%Y-%m-%d %H:%M UTC', time.gmtime())}, {os.cpu_count()} cores, "
-          f"load average at start {os.getloadavg()[0]:.1f}")
-    header = ("| N | build S (s) | eigh (s) | audit, large (s) | of which spectrum (s) | "
-              "eigh / audit | peak eigh / S | peak large / S | lambda_min | below 1e-5 |")
+    print(
+        f"# {time.strftime('%Y-%m-%d %H:%M UTC', time.gmtime())}, {os.cpu_count()} cores, "
+        f"load average at start {os.getloadavg()[0]:.1f}"
+    )
+    header = (
+        "| N | build S (s) | eigh (s) | audit, large (s) | of which spectrum (s) | "
+        "eigh / audit | peak eigh / S | peak large / S | lambda_min | below 1e-5 |"
+    )
     print(header)
     print("|---" * (header.count("|") - 1) + "|")
     with tempfile.TemporaryDirectory() as tmp:
@@ -194,11 +206,16 @@ def main(argv=None) -> None:
                 f"| {large['n']} | {large['t_build']:.1f} | {t_e and f'{t_e:.1f}' or '-'} | "
                 f"{large['t_work']:.1f} | {large['t_spectrum']:.1f} | {ratio} | "
                 f"{ref.get('peak_over_S', float('nan')):.2f} | {large['peak_over_S']:.2f} | "
-                f"{large['smallest']:.3e} | {large['below_1e-05']} |", flush=True)
-            notes = {"load (start, end)": [large.get("load"), ref.get("load")],
-                     "all times (s)": {k: [round(t, 1) for t in v if t] for k, v in times.items()},
-                     "spectrum": large.get("spectrum_detail"),
-                     "eigh lambda_min": ref.get("smallest"), "eigh below 1e-5": ref.get("below_1e-05")}
+                f"{large['smallest']:.3e} | {large['below_1e-05']} |",
+                flush=True,
+            )
+            notes = {
+                "load (start, end)": [large.get("load"), ref.get("load")],
+                "all times (s)": {k: [round(t, 1) for t in v if t] for k, v in times.items()},
+                "spectrum": large.get("spectrum_detail"),
+                "eigh lambda_min": ref.get("smallest"),
+                "eigh below 1e-5": ref.get("below_1e-05"),
+            }
             if "error" in ref:
                 notes["eigh"] = ref["error"]
             print(f"<!-- N={large['n']}: {json.dumps(notes)} -->", flush=True)
@@ -207,8 +224,11 @@ def main(argv=None) -> None:
                 if "error" in rem:
                     print(f"<!-- N={large['n']} with remedies failed: {rem['error']} -->", flush=True)
                 else:
-                    print(f"<!-- N={rem['n']} audit with remedies: {rem['t_work']:.1f} s, peak / S "
-                          f"{rem['peak_over_S']:.2f}; {json.dumps(rem['remedies'])} -->", flush=True)
+                    print(
+                        f"<!-- N={rem['n']} audit with remedies: {rem['t_work']:.1f} s, peak / S "
+                        f"{rem['peak_over_S']:.2f}; {json.dumps(rem['remedies'])} -->",
+                        flush=True,
+                    )
 
 
 if __name__ == "__main__":

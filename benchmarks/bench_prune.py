@@ -10,6 +10,7 @@ aug-cc-pVTZ (92 functions per water). For each size the script times, best of --
 
 Run:  python benchmarks/bench_prune.py --waters 6 12 24 32 --threads 1
 """
+
 from __future__ import annotations
 
 import argparse
@@ -25,8 +26,12 @@ def parse() -> argparse.Namespace:
     ap.add_argument("--target", type=float, default=1e-5)
     ap.add_argument("--repeat", type=int, default=3)
     ap.add_argument("--threads", type=int, default=1, help="BLAS threads (set before numpy loads)")
-    ap.add_argument("--skip-bisection-above", type=int, default=2500,
-                    help="skip the slow tolerance bisection above this many functions")
+    ap.add_argument(
+        "--skip-bisection-above",
+        type=int,
+        default=2500,
+        help="skip the slow tolerance bisection above this many functions",
+    )
     return ap.parse_args()
 
 
@@ -65,10 +70,22 @@ def main() -> None:
     sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), ".."))
     from auditor.remedies.subset import select_for_target
 
-    print(f"# basis {args.basis}, target {args.target:g}, BLAS threads {args.threads}, "
-          f"best of {args.repeat}; times in seconds, ratio = time / eigh")
-    cols = ("waters", "n", "eigh", "fn+eigvalsh", "fn+lanczos", "shell+eigvalsh",
-            "shell+lanczos", "bisect(fn)", "dropped fn/shell", "factorizations")
+    print(
+        f"# basis {args.basis}, target {args.target:g}, BLAS threads {args.threads}, "
+        f"best of {args.repeat}; times in seconds, ratio = time / eigh"
+    )
+    cols = (
+        "waters",
+        "n",
+        "eigh",
+        "fn+eigvalsh",
+        "fn+lanczos",
+        "shell+eigvalsh",
+        "shell+lanczos",
+        "bisect(fn)",
+        "dropped fn/shell",
+        "factorizations",
+    )
     print(" | ".join(cols))
     for count in args.waters:
         mol = gto.M(atom=water_cluster(count), basis=args.basis, unit="Angstrom", verbose=0)
@@ -79,10 +96,15 @@ def main() -> None:
         shell = np.repeat(np.arange(mol.nbas), np.diff(mol.ao_loc_nr()))
         t_eigh, _ = best_of(args.repeat, lambda S=S: np.linalg.eigh(S))
         runs = {}
-        for name, sof, verify in (("fn+eigvalsh", None, "eigvalsh"), ("fn+lanczos", None, "lanczos"),
-                                  ("shell+eigvalsh", shell, "eigvalsh"), ("shell+lanczos", shell, "lanczos")):
-            runs[name] = best_of(args.repeat, lambda S=S, sof=sof, verify=verify:
-                                 select_for_target(S, args.target, sof, verify=verify))
+        for name, sof, verify in (
+            ("fn+eigvalsh", None, "eigvalsh"),
+            ("fn+lanczos", None, "lanczos"),
+            ("shell+eigvalsh", shell, "eigvalsh"),
+            ("shell+lanczos", shell, "lanczos"),
+        ):
+            runs[name] = best_of(
+                args.repeat, lambda S=S, sof=sof, verify=verify: select_for_target(S, args.target, sof, verify=verify)
+            )
         if n <= args.skip_bisection_above:
             runs["bisect(fn)"] = best_of(1, lambda S=S: select_for_target(S, args.target, search="tolerance"))
         cells = [str(count), str(n), f"{t_eigh:.2f}"]

@@ -1,4 +1,5 @@
 import pytest
+
 from helpers import WATER, make_molecule
 
 

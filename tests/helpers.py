@@ -1,4 +1,5 @@
 """Small builders shared by the tests (imported as ``helpers``; tests/ is on the path)."""
+
 from __future__ import annotations
 
 from pathlib import Path

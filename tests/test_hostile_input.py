@@ -1,4 +1,5 @@
 """Hostile input: nothing in a file runs as code, and no file of the user's is lost."""
+
 import json
 import os
 import subprocess
@@ -8,9 +9,8 @@ import pytest
 from typer.testing import CliRunner
 
 import auditor
-from auditor.cli import app
 from auditor.base.errors import InputError
-
+from auditor.cli import app
 from helpers import WATER, write_xyz
 
 runner = CliRunner()
@@ -25,7 +25,8 @@ def _evil_basis(path, canary):
         f"  (__import__('pathlib').Path({str(canary)!r}).touch() or 1.0, 1.0)\n"
         "O    S\n"
         "  1.0 1.0\n"
-        "END\n")
+        "END\n"
+    )
     return path
 
 
@@ -129,9 +130,14 @@ def test_second_gate_run_into_the_same_folder_is_refused(tmp_path, monkeypatch):
     (tmp_path / "out").mkdir()
     fd = os.open(tmp_path / "out" / ".auditor-gate.lock", os.O_RDWR | os.O_CREAT)
     try:
-        fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)   # another run holds the folder
-        res = subprocess.run([sys.executable, "-m", "auditor.cli", "gate", "a.xyz", "-b", "sto-3g", "-o", "out",
-                              "--no-cache"], cwd=tmp_path, capture_output=True, text=True, timeout=120)
+        fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)  # another run holds the folder
+        res = subprocess.run(
+            [sys.executable, "-m", "auditor.cli", "gate", "a.xyz", "-b", "sto-3g", "-o", "out", "--no-cache"],
+            cwd=tmp_path,
+            capture_output=True,
+            text=True,
+            timeout=120,
+        )
     finally:
         os.close(fd)
     assert res.returncode == 2

@@ -1,10 +1,10 @@
 """Element symbols, covalent radii, angular-momentum letters and unit conversion."""
+
 from __future__ import annotations
 
 import numpy as np
 
 from .errors import InputError
-
 
 BOHR_IN_ANGSTROM = 0.529177210903  # CODATA 2018 Bohr radius in ångström
 

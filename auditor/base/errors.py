@@ -1,13 +1,14 @@
 """Errors that end an audit with a one-line message and a documented exit code."""
+
 from __future__ import annotations
 
 #: Exit codes of the command line (documented in the README).
-EXIT_OK = 0          # every geometry passed or earned a caution
-EXIT_FAIL = 1        # at least one geometry failed the policy
-EXIT_USAGE = 2       # bad options or arguments
-EXIT_INPUT = 3       # a geometry or basis that cannot be read or understood
-EXIT_RESOURCE = 4    # the job does not fit on this machine (memory guard)
-EXIT_INTERNAL = 5    # a bug in the auditor: please report it with the input
+EXIT_OK = 0  # every geometry passed or earned a caution
+EXIT_FAIL = 1  # at least one geometry failed the policy
+EXIT_USAGE = 2  # bad options or arguments
+EXIT_INPUT = 3  # a geometry or basis that cannot be read or understood
+EXIT_RESOURCE = 4  # the job does not fit on this machine (memory guard)
+EXIT_INTERNAL = 5  # a bug in the auditor: please report it with the input
 
 
 class AuditorError(Exception):

@@ -1,4 +1,5 @@
 """Writing files safely: whole or not at all, and never over an input of the run."""
+
 from __future__ import annotations
 
 import itertools
@@ -8,7 +9,6 @@ from contextlib import contextmanager
 from pathlib import Path
 
 from .errors import UsageError
-
 
 _serial = itertools.count()
 
@@ -37,8 +37,9 @@ def protect(paths):
 def check_not_input(path: Path) -> None:
     """UsageError when ``path`` is one of the protected inputs."""
     if _PROTECTED and os.path.realpath(path) in _PROTECTED:
-        raise UsageError(f"{path}: refusing to overwrite an input file with a report; "
-                         "choose another output folder (--out)")
+        raise UsageError(
+            f"{path}: refusing to overwrite an input file with a report; choose another output folder (--out)"
+        )
 
 
 def atomic_write(path: Path, data: str | bytes) -> None:

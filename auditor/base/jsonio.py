@@ -1,6 +1,6 @@
 """JSON text of results: plain types only, non-finite numbers as null, fixed key order."""
-from __future__ import annotations
 
+from __future__ import annotations
 
 
 def _clean(x):

@@ -3,6 +3,7 @@ with the line of the first undecodable byte named, and plain ASCII numbers.
 
 Input is data: nothing read here is ever evaluated.
 """
+
 from __future__ import annotations
 
 import os
@@ -50,8 +51,10 @@ def read_bytes(path: str | Path, what: str = "file", limit: int = MAX_INPUT_BYTE
     path = Path(path)
     st = check_regular_file(path, what)
     if st.st_size > limit:
-        raise InputError(f"{path}: {st.st_size / 2**20:.1f} MiB is larger than the limit of "
-                         f"{limit / 2**20:.0f} MiB for a {what} (--max-input-mb raises it)")
+        raise InputError(
+            f"{path}: {st.st_size / 2**20:.1f} MiB is larger than the limit of "
+            f"{limit / 2**20:.0f} MiB for a {what} (--max-input-mb raises it)"
+        )
     try:
         # O_NONBLOCK: if the file was swapped for a FIFO after the check, open does not wait
         fd = os.open(path, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0) | getattr(os, "O_CLOEXEC", 0))
@@ -75,8 +78,9 @@ def decode_text(data: bytes, path: str | Path) -> str:
         return data.decode("utf-8")
     except UnicodeDecodeError as exc:
         line = data.count(b"\n", 0, exc.start) + 1
-        raise InputError(f"{path}:{line}: not UTF-8 text (byte 0x{data[exc.start]:02x}); "
-                         "save the file as UTF-8") from None
+        raise InputError(
+            f"{path}:{line}: not UTF-8 text (byte 0x{data[exc.start]:02x}); save the file as UTF-8"
+        ) from None
 
 
 def read_text(path: str | Path, what: str = "file", limit: int = MAX_INPUT_BYTES) -> str:

@@ -6,6 +6,7 @@ start its worker processes before numpy and pyscf load in this one.
 
 May import everything below it (auditor.gate, auditor.report, auditor.pipeline, ...).
 """
+
 from __future__ import annotations
 
 import os
@@ -41,6 +42,8 @@ def main() -> None:
     except Exception as exc:
         if os.environ.get("AUDITOR_DEBUG"):
             raise
-        err.print(f"[bold red]error:[/] internal error ({type(exc).__name__}: {exc}); "
-                  "set AUDITOR_DEBUG=1 to see the traceback".splitlines()[0])
+        err.print(
+            f"[bold red]error:[/] internal error ({type(exc).__name__}: {exc}); "
+            "set AUDITOR_DEBUG=1 to see the traceback".splitlines()[0]
+        )
         sys.exit(EXIT_INTERNAL)

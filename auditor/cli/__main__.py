@@ -1,4 +1,5 @@
 """python -m auditor.cli"""
+
 from . import main
 
 main()

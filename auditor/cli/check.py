@@ -1,8 +1,9 @@
 """`auditor check`: audit geometries in one basis and write their reports."""
+
 from __future__ import annotations
 
 from pathlib import Path
-from typing import Annotated, List
+from typing import Annotated
 
 import typer
 
@@ -11,17 +12,23 @@ from .console import err, fail, out
 
 
 def check(
-    geometry: Annotated[List[Path], typer.Argument(help="XYZ / extended XYZ files (every frame is audited).")],
+    geometry: Annotated[list[Path], typer.Argument(help="XYZ / extended XYZ files (every frame is audited).")],
     basis: o.Basis,
     basis_for: o.BasisFor = None,
     cartesian: o.Cartesian = False,
     unit: o.Unit = "angstrom",
     ghost: o.Ghost = None,
     out_dir: Annotated[Path, typer.Option("--out", "-o", help="Folder for the reports.")] = Path("audit_reports"),
-    fmt: Annotated[str, typer.Option("--format", "-f", help="json, md (with PNG figures beside it), html "
-                                                           "(self-contained page) or all.")] = "all",
+    fmt: Annotated[
+        str,
+        typer.Option(
+            "--format", "-f", help="json, md (with PNG figures beside it), html (self-contained page) or all."
+        ),
+    ] = "all",
     caution: o.Caution = 1e-5,
-    fail_level: Annotated[float, typer.Option("--fail", help="Smallest eigenvalue below which the verdict is fail.")] = 1e-7,
+    fail_level: Annotated[
+        float, typer.Option("--fail", help="Smallest eigenvalue below which the verdict is fail.")
+    ] = 1e-7,
     spectrum: o.Spectrum = "auto",
     target: o.Target = None,
     trial_scf: o.TrialScf = None,
@@ -34,10 +41,10 @@ def check(
     Exit codes: 0 pass or caution, 1 fail, 2 usage error, 3 unreadable input, 4 too large,
     5 internal error.
     """
-    from ..pipeline.run import make_spec
     from ..base.errors import EXIT_USAGE, AuditorError
     from ..diagnosis.verdict import Policy
     from ..gate.serial import audit_paths
+    from ..pipeline.run import make_spec
     from ..report.terminal import print_remedies, print_summary
     from ..report.writers import FORMATS
 
@@ -52,8 +59,9 @@ def check(
         o.check_spectrum_method(spectrum)
     except AuditorError as exc:
         fail(exc.message, exc.exit_code)
-    outcome = audit_paths(geometry, spec, policy, out_dir, fmt, unit=unit, ghost=ghost, remedies=remedies,
-                          spectrum_method=spectrum)
+    outcome = audit_paths(
+        geometry, spec, policy, out_dir, fmt, unit=unit, ghost=ghost, remedies=remedies, spectrum_method=spectrum
+    )
     for _, message, _ in outcome.errors:
         err.print(f"[bold red]error:[/] {message}")
     if not quiet:

@@ -1,4 +1,5 @@
 """The two consoles of the command line and the one way it ends with an error."""
+
 from __future__ import annotations
 
 import sys

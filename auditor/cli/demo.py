@@ -1,8 +1,9 @@
 """`auditor demo`: audit the bundled examples and write the sample reports."""
+
 from __future__ import annotations
 
 from pathlib import Path
-from typing import Annotated, Optional
+from typing import Annotated
 
 import typer
 
@@ -11,8 +12,9 @@ from .console import fail, out
 
 def demo(
     out_dir: Annotated[Path, typer.Option("--out", "-o", help="Folder for the sample reports.")] = Path("reports"),
-    examples: Annotated[Optional[Path], typer.Option("--examples", help="Folder with examples.toml and the "
-                                                                        "geometries.")] = None,
+    examples: Annotated[
+        Path | None, typer.Option("--examples", help="Folder with examples.toml and the geometries.")
+    ] = None,
 ):
     """Audit the bundled example geometries and write their reports (and an index)."""
     from ..base.errors import AuditorError

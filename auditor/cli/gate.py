@@ -1,8 +1,9 @@
 """`auditor gate`: audit a set of geometries in parallel and gate it."""
+
 from __future__ import annotations
 
 from pathlib import Path
-from typing import Annotated, List, Optional
+from typing import Annotated
 
 import typer
 
@@ -11,46 +12,79 @@ from .console import err, fail, out
 
 
 def gate(
-    paths: Annotated[List[str], typer.Argument(help="Geometry files, folders (searched recursively), glob patterns, "
-                                                    "or @LIST: a text file with one of these a line.")],
+    paths: Annotated[
+        list[str],
+        typer.Argument(
+            help="Geometry files, folders (searched recursively), glob patterns, "
+            "or @LIST: a text file with one of these a line."
+        ),
+    ],
     basis: o.Basis,
-    out_dir: Annotated[Path, typer.Option("--out", "-o", help="Folder for summary.csv/.parquet, junit.xml, run.json "
-                                                              "and items/.")],
+    out_dir: Annotated[
+        Path, typer.Option("--out", "-o", help="Folder for summary.csv/.parquet, junit.xml, run.json and items/.")
+    ],
     basis_for: o.BasisFor = None,
     cartesian: o.Cartesian = False,
     unit: o.Unit = "angstrom",
-    ghost: Annotated[Optional[str], typer.Option("--ghost", help="Atoms (1-based) that carry functions only, "
-                                                                 "in every item.")] = None,
-    jobs: Annotated[Optional[int], typer.Option("--jobs", "-j", help="Worker processes (default: the machine's "
-                                                                     "cores).")] = None,
-    item_timeout: Annotated[Optional[float], typer.Option("--item-timeout", help="Seconds one item may take (local "
-                                                          "engine); its worker is then stopped and the item is an "
-                                                          "error.")] = None,
-    engine: Annotated[str, typer.Option("--engine", help="local (worker processes) or dask (a running Dask "
-                                                         "cluster).")] = "local",
-    scheduler: Annotated[Optional[str], typer.Option("--scheduler", help="Dask scheduler address, e.g. "
-                                                                         "tcp://10.0.0.5:8786.")] = None,
-    policy_file: Annotated[Optional[Path], typer.Option("--policy", help="TOML policy: levels, per-basis levels, "
-                                                                         "allowed failures.")] = None,
-    caution: Annotated[Optional[float], typer.Option("--caution", help="Caution level (overrides the policy "
-                                                                       "file).")] = None,
-    fail_level: Annotated[Optional[float], typer.Option("--fail", help="Fail level (overrides the policy "
-                                                                       "file).")] = None,
-    baseline: Annotated[Optional[Path], typer.Option("--baseline", help="An earlier summary.csv/.parquet: fail only "
-                                                                        "on regressions.")] = None,
-    drop_decades: Annotated[Optional[float], typer.Option("--drop-decades", help="Baseline mode: a drop of the "
-                                                          "smallest eigenvalue by more decades than this regresses "
-                                                          "(default 1).")] = None,
-    cache_dir: Annotated[Optional[Path], typer.Option("--cache-dir", help="Result cache folder (default "
-                                                                          "$XDG_CACHE_HOME/auditor).")] = None,
+    ghost: Annotated[
+        str | None, typer.Option("--ghost", help="Atoms (1-based) that carry functions only, in every item.")
+    ] = None,
+    jobs: Annotated[
+        int | None, typer.Option("--jobs", "-j", help="Worker processes (default: the machine's cores).")
+    ] = None,
+    item_timeout: Annotated[
+        float | None,
+        typer.Option(
+            "--item-timeout",
+            help="Seconds one item may take (local engine); its worker is then stopped and the item is an error.",
+        ),
+    ] = None,
+    engine: Annotated[
+        str, typer.Option("--engine", help="local (worker processes) or dask (a running Dask cluster).")
+    ] = "local",
+    scheduler: Annotated[
+        str | None, typer.Option("--scheduler", help="Dask scheduler address, e.g. tcp://10.0.0.5:8786.")
+    ] = None,
+    policy_file: Annotated[
+        Path | None, typer.Option("--policy", help="TOML policy: levels, per-basis levels, allowed failures.")
+    ] = None,
+    caution: Annotated[
+        float | None, typer.Option("--caution", help="Caution level (overrides the policy file).")
+    ] = None,
+    fail_level: Annotated[float | None, typer.Option("--fail", help="Fail level (overrides the policy file).")] = None,
+    baseline: Annotated[
+        Path | None, typer.Option("--baseline", help="An earlier summary.csv/.parquet: fail only on regressions.")
+    ] = None,
+    drop_decades: Annotated[
+        float | None,
+        typer.Option(
+            "--drop-decades",
+            help="Baseline mode: a drop of the smallest eigenvalue by more decades than this regresses (default 1).",
+        ),
+    ] = None,
+    cache_dir: Annotated[
+        Path | None, typer.Option("--cache-dir", help="Result cache folder (default $XDG_CACHE_HOME/auditor).")
+    ] = None,
     no_cache: Annotated[bool, typer.Option("--no-cache", help="Neither read nor write the result cache.")] = False,
     worst: Annotated[int, typer.Option("--worst", help="Rows in the final table of the worst items.")] = 10,
     spectrum: o.Spectrum = "auto",
-    with_remedies: Annotated[bool, typer.Option("--remedies", help="Also work out the remedies of every item that "
-                                                                   "needs them (slower; `check` and `prune` do it "
-                                                                   "per file).")] = False,
-    fmt: Annotated[str, typer.Option("--format", "-f", help="json (summaries + items/*.json) or html (also "
-                                                            "items/*.html and an index.html overview).")] = "json",
+    with_remedies: Annotated[
+        bool,
+        typer.Option(
+            "--remedies",
+            help="Also work out the remedies of every item that "
+            "needs them (slower; `check` and `prune` do it "
+            "per file).",
+        ),
+    ] = False,
+    fmt: Annotated[
+        str,
+        typer.Option(
+            "--format",
+            "-f",
+            help="json (summaries + items/*.json) or html (also items/*.html and an index.html overview).",
+        ),
+    ] = "json",
     quiet: o.Quiet = False,
 ):
     """Audit a set of geometries in parallel and gate it: summary table, JUnit XML, per-item JSON.
@@ -60,8 +94,27 @@ def gate(
     from ..base.errors import EXIT_USAGE, AuditorError
 
     try:
-        setup = _setup(basis, basis_for, cartesian, unit, ghost, jobs, item_timeout, engine, scheduler, policy_file,
-                       caution, fail_level, baseline, drop_decades, cache_dir, no_cache, spectrum, with_remedies, fmt)
+        setup = _setup(
+            basis,
+            basis_for,
+            cartesian,
+            unit,
+            ghost,
+            jobs,
+            item_timeout,
+            engine,
+            scheduler,
+            policy_file,
+            caution,
+            fail_level,
+            baseline,
+            drop_decades,
+            cache_dir,
+            no_cache,
+            spectrum,
+            with_remedies,
+            fmt,
+        )
     except AuditorError as exc:
         fail(exc.message, EXIT_USAGE)
     options, runner, cache, gate_policy, old = setup
@@ -76,16 +129,35 @@ def gate(
     raise typer.Exit(result.exit_code)
 
 
-def _setup(basis, basis_for, cartesian, unit, ghost, jobs, item_timeout, engine, scheduler, policy_file, caution,
-           fail_level, baseline, drop_decades, cache_dir, no_cache, spectrum, with_remedies, fmt):
+def _setup(
+    basis,
+    basis_for,
+    cartesian,
+    unit,
+    ghost,
+    jobs,
+    item_timeout,
+    engine,
+    scheduler,
+    policy_file,
+    caution,
+    fail_level,
+    baseline,
+    drop_decades,
+    cache_dir,
+    no_cache,
+    spectrum,
+    with_remedies,
+    fmt,
+):
     """Check every option; (GateOptions, engine, cache, gate policy, baseline rows)."""
-    from ..pipeline.run import make_spec
     from ..base.errors import UsageError
     from ..gate.baseline import load_baseline
     from ..gate.cache import ResultCache, default_cache_dir
     from ..gate.engines import DaskEngine, LocalEngine
     from ..gate.items import GateOptions
     from ..gate.policy_file import GatePolicy, load_gate_policy
+    from ..pipeline.run import make_spec
 
     o.check_unit(unit)
     if jobs is not None and jobs < 1:
@@ -101,8 +173,14 @@ def _setup(basis, basis_for, cartesian, unit, ghost, jobs, item_timeout, engine,
     o.check_spectrum_method(spectrum)
     o.check_ghost(ghost)
     gate_policy = load_gate_policy(policy_file) if policy_file else GatePolicy()
-    options = GateOptions(make_spec(basis, basis_for, cartesian), gate_policy.levels_for(basis, caution, fail_level),
-                          unit, ghost, spectrum, with_remedies)
+    options = GateOptions(
+        make_spec(basis, basis_for, cartesian),
+        gate_policy.levels_for(basis, caution, fail_level),
+        unit,
+        ghost,
+        spectrum,
+        with_remedies,
+    )
     old = load_baseline(baseline) if baseline else None
     if engine == "dask":
         if item_timeout:
@@ -121,15 +199,23 @@ def _run(paths, options, out_dir, runner, cache, gate_policy, old, drop_decades,
     from ..gate.run import run_gate
 
     show = not quiet and err.is_terminal
-    with Progress(TextColumn("auditing"), BarColumn(), MofNCompleteColumn(), TimeRemainingColumn(),
-                  console=err, transient=True, disable=not show) as bar:
+    with Progress(
+        TextColumn("auditing"),
+        BarColumn(),
+        MofNCompleteColumn(),
+        TimeRemainingColumn(),
+        console=err,
+        transient=True,
+        disable=not show,
+    ) as bar:
         task = bar.add_task("items", total=None)
 
         def progress(done: int, total: int) -> None:
             bar.update(task, completed=done, total=total)
 
-        return run_gate(paths, options, out_dir, runner, cache, gate_policy, old, drop_decades, progress=progress,
-                        html=html)
+        return run_gate(
+            paths, options, out_dir, runner, cache, gate_policy, old, drop_decades, progress=progress, html=html
+        )
 
 
 def _report(result, cache, out_dir, worst, quiet) -> None:
@@ -140,8 +226,9 @@ def _report(result, cache, out_dir, worst, quiet) -> None:
     rows = result.run.rows
     if cache is not None and cache.failed_writes:
         why = f" ({cache.problem})" if cache.problem else ""
-        err.print(f"note: {cache.failed_writes} result(s) could not be stored in the cache {cache.root}{why}",
-                  markup=False)
+        err.print(
+            f"note: {cache.failed_writes} result(s) could not be stored in the cache {cache.root}{why}", markup=False
+        )
     for r in rows:
         if r["verdict"] == "error":
             err.print(f"error: {r['error']}", highlight=False, markup=False)
@@ -150,9 +237,11 @@ def _report(result, cache, out_dir, worst, quiet) -> None:
     out.print(worst_table(rows, worst))
     for r in result.improvements:
         out.print(f"improved: {item_label(r)} ({r['change']})", markup=False)
-    counts = ", ".join(f"{sum(r['outcome'] == k for r in rows)} {k}"
-                       for k in ("ok", "blocked", "regressed", "allowed", "known")
-                       if any(r["outcome"] == k for r in rows))
+    counts = ", ".join(
+        f"{sum(r['outcome'] == k for r in rows)} {k}"
+        for k in ("ok", "blocked", "regressed", "allowed", "known")
+        if any(r["outcome"] == k for r in rows)
+    )
     out.print(f"{len(rows)} item(s): {counts}; {result.run.computed} audited, {result.run.cached} from the cache")
     top = ", ".join(Path(w).name for w in result.written if Path(w).parent == Path(out_dir))
     out.print(f"wrote {top} in {out_dir}/ and {len(rows)} report(s) in {out_dir}/items/", markup=False)

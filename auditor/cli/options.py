@@ -1,31 +1,48 @@
 """Options that several commands share, declared once."""
+
 from __future__ import annotations
 
-from typing import Annotated, List, Optional
+from typing import Annotated
 
 import typer
 
 Basis = Annotated[str, typer.Option("--basis", "-b", help="Basis name pyscf knows, or a basis file (NWChem format).")]
-BasisFor = Annotated[Optional[List[str]], typer.Option("--basis-for", help="Per-element basis, ELEMENT=BASIS; repeatable.")]
+BasisFor = Annotated[
+    list[str] | None, typer.Option("--basis-for", help="Per-element basis, ELEMENT=BASIS; repeatable.")
+]
 Cartesian = Annotated[bool, typer.Option("--cartesian", help="Cartesian instead of spherical d, f, ... shells.")]
 Unit = Annotated[str, typer.Option("--unit", help="Unit of the coordinates in the files: angstrom or bohr.")]
-Ghost = Annotated[Optional[str], typer.Option("--ghost", help="Atoms (1-based) that carry functions only, e.g. 4-6,9.")]
+Ghost = Annotated[str | None, typer.Option("--ghost", help="Atoms (1-based) that carry functions only, e.g. 4-6,9.")]
 Caution = Annotated[float, typer.Option("--caution", help="Smallest eigenvalue below which the verdict is caution.")]
 Fail = Annotated[float, typer.Option("--fail", help="Smallest eigenvalue below which the verdict is fail.")]
-Spectrum = Annotated[str, typer.Option("--spectrum", help="Eigen step: full (dense), large (factorizations and Lanczos, "
-                                                       "no second copy of S) or auto (large from about 3000 functions).")]
-Target = Annotated[Optional[float], typer.Option("--target", help="Smallest eigenvalue the remedies aim for "
-                                                                  "(default: the caution level).")]
-TrialScf = Annotated[Optional[str], typer.Option("--trial-scf", help="Opt-in trial SCF of the remedies: hf or a "
-                                                                     "functional name pyscf knows.")]
-TrialMaxFunctions = Annotated[int, typer.Option("--trial-max-functions", help="Skip the trial SCF above this many "
-                                                                              "basis functions.")]
-TrialSeconds = Annotated[float, typer.Option("--trial-seconds", help="Stop each trial SCF run after this many seconds.")]
+Spectrum = Annotated[
+    str,
+    typer.Option(
+        "--spectrum",
+        help="Eigen step: full (dense), large (factorizations and Lanczos, "
+        "no second copy of S) or auto (large from about 3000 functions).",
+    ),
+]
+Target = Annotated[
+    float | None,
+    typer.Option("--target", help="Smallest eigenvalue the remedies aim for (default: the caution level)."),
+]
+TrialScf = Annotated[
+    str | None,
+    typer.Option("--trial-scf", help="Opt-in trial SCF of the remedies: hf or a functional name pyscf knows."),
+]
+TrialMaxFunctions = Annotated[
+    int, typer.Option("--trial-max-functions", help="Skip the trial SCF above this many basis functions.")
+]
+TrialSeconds = Annotated[
+    float, typer.Option("--trial-seconds", help="Stop each trial SCF run after this many seconds.")
+]
 Quiet = Annotated[bool, typer.Option("--quiet", "-q", help="Print nothing but errors.")]
 
 
 # Checks of option values that several commands share. The heavy modules are imported
 # inside: the command line starts worker processes before numpy and pyscf load.
+
 
 def check_unit(unit: str) -> None:
     from ..base.errors import UsageError
@@ -61,5 +78,6 @@ def remedy_options(target, trial_scf, trial_max_functions, trial_seconds):
         check_method(trial_scf)
     if trial_max_functions < 1 or not trial_seconds > 0:
         raise UsageError("--trial-max-functions and --trial-seconds must be positive")
-    return RemedyOptions(target=target, trial_scf=trial_scf, trial_max_functions=trial_max_functions,
-                         trial_time_limit=trial_seconds)
+    return RemedyOptions(
+        target=target, trial_scf=trial_scf, trial_max_functions=trial_max_functions, trial_time_limit=trial_seconds
+    )

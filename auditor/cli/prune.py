@@ -1,4 +1,5 @@
 """`auditor prune`: write a shell-pruned basis, the matrix X and an explanation."""
+
 from __future__ import annotations
 
 from pathlib import Path
@@ -13,10 +14,13 @@ from .console import fail, out
 def prune(
     geometry: Annotated[Path, typer.Argument(help="XYZ / extended XYZ file.")],
     basis: o.Basis,
-    out_dir: Annotated[Path, typer.Option("--out", "-o", help="Folder for <stem>.pruned.json, <stem>.X.npy and "
-                                                              "<stem>.prune.md.")],
-    target: Annotated[float | None, typer.Option("--target", help="Smallest eigenvalue the pruned basis must reach "
-                                                                  "(default: the caution level).")] = None,
+    out_dir: Annotated[
+        Path, typer.Option("--out", "-o", help="Folder for <stem>.pruned.json, <stem>.X.npy and <stem>.prune.md.")
+    ],
+    target: Annotated[
+        float | None,
+        typer.Option("--target", help="Smallest eigenvalue the pruned basis must reach (default: the caution level)."),
+    ] = None,
     basis_for: o.BasisFor = None,
     cartesian: o.Cartesian = False,
     unit: o.Unit = "angstrom",
@@ -35,10 +39,10 @@ def prune(
     Exit codes: 0 written, 2 usage error (bad target, a pruning that empties an atom),
     3 unreadable input, 5 internal error.
     """
-    from ..pipeline.run import load_molecules, make_spec, prepare, prune_prepared
     from ..base.errors import AuditorError, UsageError
     from ..base.files import protect
     from ..diagnosis.verdict import Policy
+    from ..pipeline.run import load_molecules, make_spec, prepare, prune_prepared
     from ..report.naming import report_stem
     from ..report.pruned_files import write_prune_outputs
     from ..report.terminal import print_remedies
@@ -60,10 +64,13 @@ def prune(
         fail(exc.message, exc.exit_code)
     if not quiet:
         doc = plan.pruned
-        out.print(f"{geometry.name}: kept {doc['n_functions']} of {doc['n_functions_full']} functions, "
-                  f"dropped {len(doc['dropped_shells'])} shell(s); smallest eigenvalue "
-                  f"{doc['smallest_eigenvalue']:.3e} (target {plan.target:.1e}, full basis "
-                  f"{result.spectrum.smallest:.3e})", markup=False)
+        out.print(
+            f"{geometry.name}: kept {doc['n_functions']} of {doc['n_functions_full']} functions, "
+            f"dropped {len(doc['dropped_shells'])} shell(s); smallest eigenvalue "
+            f"{doc['smallest_eigenvalue']:.3e} (target {plan.target:.1e}, full basis "
+            f"{result.spectrum.smallest:.3e})",
+            markup=False,
+        )
         print_remedies([result], out, always=True)
         out.print("wrote " + ", ".join(str(p) for p in paths), markup=False)
     raise typer.Exit(0)

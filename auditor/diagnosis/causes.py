@@ -1,4 +1,5 @@
 """Causes: the share of the near-null space carried by atoms, shells, angular momenta and diffuse shells."""
+
 from __future__ import annotations
 
 from dataclasses import dataclass
@@ -50,17 +51,20 @@ def attribute_causes(vectors: np.ndarray, table: FunctionTable, below: float) ->
 
     atoms = [
         {"atom": int(a + 1), "element": table.elements[a], "ghost": bool(table.ghost[a]), "weight": r(atom_w[a])}
-        for a in sorted(range(n_atoms), key=lambda a: (-atom_w[a], a)) if atom_w[a] >= 5e-7
+        for a in sorted(range(n_atoms), key=lambda a: (-atom_w[a], a))
+        if atom_w[a] >= 5e-7
     ]
     shells = [
-        {"shell": table.shell_label(s), "atom": int(table.shell_atom[s]),
-         "element": table.elements[table.shell_atom[s] - 1], "l": L_LETTERS[table.shell_l[s]],
-         "exponent": float(table.shell_exponent[s]), "diffuse": bool(table.shell_diffuse[s]),
-         "weight": r(shell_w[s])}
+        {
+            "shell": table.shell_label(s),
+            "atom": int(table.shell_atom[s]),
+            "element": table.elements[table.shell_atom[s] - 1],
+            "l": L_LETTERS[table.shell_l[s]],
+            "exponent": float(table.shell_exponent[s]),
+            "diffuse": bool(table.shell_diffuse[s]),
+            "weight": r(shell_w[s]),
+        }
         for s in sorted(range(table.n_shells), key=lambda s: (-shell_w[s], s))[:MAX_SHELLS_LISTED]
     ]
-    angular = [
-        {"l": L_LETTERS[l], "weight": r(l_w[l])}
-        for l in sorted(range(l_w.size), key=lambda l: (-l_w[l], l))
-    ]
+    angular = [{"l": L_LETTERS[l], "weight": r(l_w[l])} for l in sorted(range(l_w.size), key=lambda l: (-l_w[l], l))]
     return Causes(k, below, atoms, shells, angular, {"diffuse": r(dif_w), "other": r(1.0 - dif_w)})

@@ -2,6 +2,7 @@
 
 Every function here reads arrays (coordinates, S, eigenvalues, the function table) and returns
 plain findings; nothing here builds or diagonalizes S."""
+
 from __future__ import annotations
 
 import math
@@ -14,17 +15,16 @@ from ..inputs.geometry import Molecule
 from ..numerics.overlap import FunctionTable
 from ..numerics.spectrum import SCAN_BYTES, Spectrum
 
-
-COINCIDENT_ANGSTROM = 0.01        # closer than this, two centres are one: S is singular
-
-
-SHORT_CONTACT_RATIO = 0.6         # d < 0.6 (r_i + r_j): far shorter than any bond
+COINCIDENT_ANGSTROM = 0.01  # closer than this, two centres are one: S is singular
 
 
-DUPLICATE_OVERLAP = 0.99          # |S_ij| at which two functions are near-copies
+SHORT_CONTACT_RATIO = 0.6  # d < 0.6 (r_i + r_j): far shorter than any bond
 
 
-CROWDING_OVERLAP = 0.92           # diffuse shells on two atoms that overlap this much
+DUPLICATE_OVERLAP = 0.99  # |S_ij| at which two functions are near-copies
+
+
+CROWDING_OVERLAP = 0.92  # diffuse shells on two atoms that overlap this much
 
 
 MAX_CROWDING_FINDINGS = 8
@@ -69,12 +69,16 @@ def geometry_findings(mol: Molecule) -> list[Finding]:
     tree = cKDTree(xyz)
     for i, j in sorted(tree.query_pairs(COINCIDENT_ANGSTROM)):
         d = float(np.linalg.norm(xyz[i] - xyz[j]))
-        findings.append(Finding(
-            "coincident_atoms", "error", (i + 1, j + 1),
-            f"{_atom_name(mol, i)} and {_atom_name(mol, j)} sit {d:.4f} Å apart: their basis "
-            f"functions coincide and the overlap matrix is singular (a pasted or duplicated atom?).",
-            {"distance_angstrom": round(d, 6)},
-        ))
+        findings.append(
+            Finding(
+                "coincident_atoms",
+                "error",
+                (i + 1, j + 1),
+                f"{_atom_name(mol, i)} and {_atom_name(mol, j)} sit {d:.4f} Å apart: their basis "
+                f"functions coincide and the overlap matrix is singular (a pasted or duplicated atom?).",
+                {"distance_angstrom": round(d, 6)},
+            )
+        )
 
     real = np.flatnonzero(~np.asarray(mol.ghost))
     if real.size < 2:
@@ -87,12 +91,16 @@ def geometry_findings(mol: Molecule) -> list[Finding]:
         limit = rad[a] + rad[b]
         if COINCIDENT_ANGSTROM <= d < SHORT_CONTACT_RATIO * limit:
             i, j = int(real[a]), int(real[b])
-            findings.append(Finding(
-                "short_contact", "warning", (i + 1, j + 1),
-                f"{_atom_name(mol, i)} and {_atom_name(mol, j)} are {d:.3f} Å apart, "
-                f"{d / limit:.0%} of their covalent-radius sum ({limit:.2f} Å): no bond is that short.",
-                {"distance_angstrom": round(d, 6), "ratio_to_covalent_sum": round(d / limit, 4)},
-            ))
+            findings.append(
+                Finding(
+                    "short_contact",
+                    "warning",
+                    (i + 1, j + 1),
+                    f"{_atom_name(mol, i)} and {_atom_name(mol, j)} are {d:.3f} Å apart, "
+                    f"{d / limit:.0%} of their covalent-radius sum ({limit:.2f} Å): no bond is that short.",
+                    {"distance_angstrom": round(d, 6), "ratio_to_covalent_sum": round(d / limit, 4)},
+                )
+            )
     unit = _unit_finding(mol, real, rxyz, rad, rtree)
     if unit:
         findings.append(unit)
@@ -123,14 +131,18 @@ def _unit_finding(mol, real, rxyz, rad, rtree) -> Finding | None:
     details = {"median_ratio_to_covalent_sum": round(median, 4)}
     if bonded < 0.2 and stretched >= 0.6:
         return Finding(
-            "suspect_units", "error", atoms,
+            "suspect_units",
+            "error",
+            atoms,
             f"Every bond is about {median:.2f} times the covalent-radius sum, as if the file "
             f"held bohr read as ångström: check the unit (--unit bohr).",
             details,
         )
     if bonded < 0.2 and shrunk >= 0.6:
         return Finding(
-            "suspect_units", "error", atoms,
+            "suspect_units",
+            "error",
+            atoms,
             f"Every bond is about {median:.2f} times the covalent-radius sum, as if the file "
             f"held ångström read as bohr: check the unit.",
             details,
@@ -172,16 +184,23 @@ def duplicate_findings(S: np.ndarray, table: FunctionTable, block: int | None = 
         best = max(ks, key=lambda k: (pv[k], -pi[k]))
         top = float(pv[best])
         exact = top >= 1.0 - 1e-8
-        where = f"atom {table.elements[a - 1]}{a}" if a == b else \
-            f"atoms {table.elements[a - 1]}{a} and {table.elements[b - 1]}{b}"
-        out.append(Finding(
-            "duplicate_functions", "error" if exact else "warning", (a,) if a == b else (a, b),
-            f"{len(ks)} pair(s) of functions on {where} overlap by at least {DUPLICATE_OVERLAP} "
-            f"(largest {top:.6f}, {table.function_label(int(pi[best]))} with "
-            f"{table.function_label(int(pj[best]))}): "
-            + ("they are copies of each other." if exact else "they are near-copies of each other."),
-            {"n_pairs": len(ks), "largest_overlap": round(top, 8)},
-        ))
+        where = (
+            f"atom {table.elements[a - 1]}{a}"
+            if a == b
+            else f"atoms {table.elements[a - 1]}{a} and {table.elements[b - 1]}{b}"
+        )
+        out.append(
+            Finding(
+                "duplicate_functions",
+                "error" if exact else "warning",
+                (a,) if a == b else (a, b),
+                f"{len(ks)} pair(s) of functions on {where} overlap by at least {DUPLICATE_OVERLAP} "
+                f"(largest {top:.6f}, {table.function_label(int(pi[best]))} with "
+                f"{table.function_label(int(pj[best]))}): "
+                + ("they are copies of each other." if exact else "they are near-copies of each other."),
+                {"n_pairs": len(ks), "largest_overlap": round(top, 8)},
+            )
+        )
     return out
 
 
@@ -191,8 +210,9 @@ def gaussian_s_overlap(a: float, b: float, r_bohr: float) -> float:
     return (2.0 * np.sqrt(a * b) / p) ** 1.5 * np.exp(-a * b * r_bohr**2 / p)
 
 
-def _diffuse_block_maxima(S: np.ndarray, table: FunctionTable, shells: np.ndarray,
-                          chunk_bytes: int | None = None) -> np.ndarray:
+def _diffuse_block_maxima(
+    S: np.ndarray, table: FunctionTable, shells: np.ndarray, chunk_bytes: int | None = None
+) -> np.ndarray:
     """max |S_ij| over the functions of every pair of the given shells, read in row chunks
     of whole shells so that no copy of the diffuse block of S is made."""
     chunk_bytes = chunk_bytes or SCAN_BYTES
@@ -241,22 +261,33 @@ def crowding_findings(S: np.ndarray, mol: Molecule, table: FunctionTable, troubl
         r = float(np.linalg.norm(mol.coords[a - 1] - mol.coords[b - 1])) / BOHR_IN_ANGSTROM
         ea, eb = float(table.shell_exponent[si]), float(table.shell_exponent[sj])
         model = float(gaussian_s_overlap(ea, eb, r))
-        out.append(Finding(
-            "diffuse_crowding", severity, (a, b),
-            f"Diffuse shells {table.shell_label(si)} (exponent {ea:.4g}) and {table.shell_label(sj)} "
-            f"(exponent {eb:.4g}), {r * BOHR_IN_ANGSTROM:.2f} Å apart, overlap by {val:.3f} "
-            f"(s Gaussians of these exponents: {model:.3f}): nearly the same function twice.",
-            {"overlap": round(val, 6), "s_model_overlap": round(model, 6),
-             "distance_angstrom": round(r * BOHR_IN_ANGSTROM, 6)},
-        ))
+        out.append(
+            Finding(
+                "diffuse_crowding",
+                severity,
+                (a, b),
+                f"Diffuse shells {table.shell_label(si)} (exponent {ea:.4g}) and {table.shell_label(sj)} "
+                f"(exponent {eb:.4g}), {r * BOHR_IN_ANGSTROM:.2f} Å apart, overlap by {val:.3f} "
+                f"(s Gaussians of these exponents: {model:.3f}): nearly the same function twice.",
+                {
+                    "overlap": round(val, 6),
+                    "s_model_overlap": round(model, 6),
+                    "distance_angstrom": round(r * BOHR_IN_ANGSTROM, 6),
+                },
+            )
+        )
     if len(ranked) > MAX_CROWDING_FINDINGS:
         rest = ranked[MAX_CROWDING_FINDINGS:]
         atoms = tuple(sorted({x for (k, _) in rest for x in k}))
-        out.append(Finding(
-            "diffuse_crowding", severity, atoms,
-            f"{len(rest)} more atom pairs carry diffuse shells that overlap by at least {CROWDING_OVERLAP}.",
-            {"n_pairs": len(rest)},
-        ))
+        out.append(
+            Finding(
+                "diffuse_crowding",
+                severity,
+                atoms,
+                f"{len(rest)} more atom pairs carry diffuse shells that overlap by at least {CROWDING_OVERLAP}.",
+                {"n_pairs": len(rest)},
+            )
+        )
     return out
 
 
@@ -269,7 +300,9 @@ def near_singular_finding(spec: Spectrum, policy, causes) -> Finding:
     n_caution = spec.count_below(policy.caution)
     count = f"{n_caution} eigenvalue(s) lie below {policy.caution:.0e}" if n_caution is not None else ""
     return Finding(
-        "near_singular", severity, tuple(a["atom"] for a in top),
+        "near_singular",
+        severity,
+        tuple(a["atom"] for a in top),
         f"The smallest overlap eigenvalue is {spec.smallest:.2e} ({lost}); {count}"
         + (f"; the near-null space sits mostly on {who}." if who else "."),
         {"smallest": spec.smallest},

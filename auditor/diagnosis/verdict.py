@@ -1,4 +1,5 @@
 """The policy: levels on the smallest eigenvalue and broken-geometry findings -> verdict."""
+
 from __future__ import annotations
 
 from dataclasses import dataclass
@@ -24,9 +25,7 @@ class Policy:
             if not (0.0 < v < 1.0):
                 raise UsageError(f"the {name} level must lie between 0 and 1, got {v:g}")
         if self.fail > self.caution:
-            raise UsageError(
-                f"the fail level ({self.fail:g}) must not exceed the caution level ({self.caution:g})"
-            )
+            raise UsageError(f"the fail level ({self.fail:g}) must not exceed the caution level ({self.caution:g})")
 
     def as_dict(self) -> dict:
         return {"caution": self.caution, "fail": self.fail}

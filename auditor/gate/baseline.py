@@ -1,4 +1,5 @@
 """The comparison with a baseline summary, and the outcome of every row."""
+
 from __future__ import annotations
 
 import math
@@ -50,8 +51,9 @@ def _log10(x) -> float | None:
     return math.log10(max(x, 1e-300))
 
 
-def judge(rows: list[dict], policy: GatePolicy, baseline: dict | None = None,
-          drop_decades: float | None = None) -> None:
+def judge(
+    rows: list[dict], policy: GatePolicy, baseline: dict | None = None, drop_decades: float | None = None
+) -> None:
     """Set ``outcome``, ``change`` and ``note`` on every summary row.
 
     Outcomes: ok; blocked (fails, no baseline); regressed (baseline mode: a new

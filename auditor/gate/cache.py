@@ -7,6 +7,7 @@ leaves each entry either whole or absent, and the next run resumes. One file ins
 of a file per entry: creating hundreds of small files costs more than the audits of
 small molecules on some file systems.
 """
+
 from __future__ import annotations
 
 import hashlib
@@ -49,7 +50,7 @@ class ResultCache:
         self.root = Path(root)
         self.path = self.root / FILE_NAME
         self.failed_writes = 0
-        self.problem = ""     # why the cache is unusable, when it is
+        self.problem = ""  # why the cache is unusable, when it is
         self._db = None
 
     def _connect(self, create: bool):
@@ -61,12 +62,18 @@ class ResultCache:
 
         try:
             self.root.mkdir(parents=True, exist_ok=True)
-            db = sqlite3.connect(self.path, timeout=30.0, isolation_level=None)  # autocommit: one entry, one transaction
+            db = sqlite3.connect(
+                self.path, timeout=30.0, isolation_level=None
+            )  # autocommit: one entry, one transaction
             db.execute("PRAGMA trusted_schema = OFF")
             db.execute("PRAGMA journal_mode = WAL")
-            db.execute("PRAGMA synchronous = NORMAL")   # survives a killed process; only a power cut may lose the newest entries
-            db.execute("CREATE TABLE IF NOT EXISTS results (key TEXT PRIMARY KEY, format TEXT NOT NULL, "
-                       "brief TEXT NOT NULL, report TEXT NOT NULL)")
+            db.execute(
+                "PRAGMA synchronous = NORMAL"
+            )  # survives a killed process; only a power cut may lose the newest entries
+            db.execute(
+                "CREATE TABLE IF NOT EXISTS results (key TEXT PRIMARY KEY, format TEXT NOT NULL, "
+                "brief TEXT NOT NULL, report TEXT NOT NULL)"
+            )
         except (OSError, sqlite3.Error) as exc:
             self.problem = f"{self.path}: {exc}"
             return None
@@ -103,8 +110,10 @@ class ResultCache:
             self.failed_writes += 1
             return
         try:
-            db.execute("INSERT OR REPLACE INTO results (key, format, brief, report) VALUES (?, ?, ?, ?)",
-                       (key, FORMAT, json.dumps(brief), report))
+            db.execute(
+                "INSERT OR REPLACE INTO results (key, format, brief, report) VALUES (?, ?, ?, ?)",
+                (key, FORMAT, json.dumps(brief), report),
+            )
         except (sqlite3.Error, TypeError, ValueError):
             self.failed_writes += 1
 

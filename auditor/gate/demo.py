@@ -1,13 +1,14 @@
 """The demo: audit the bundled example geometries and write sample reports."""
+
 from __future__ import annotations
 
 import sys
 from pathlib import Path
 
-from ..pipeline.run import make_spec
 from ..base.errors import InputError
 from ..base.files import atomic_write
 from ..diagnosis.verdict import Policy
+from ..pipeline.run import make_spec
 from ..report.naming import report_stem
 from ..report.overview import item_from_result, write_set_index
 from ..report.rows import error_row
@@ -48,32 +49,40 @@ def run_demo(folder: Path, out: Path) -> tuple[RunOutcome, Path]:
     policy = Policy()
     for ex in load_manifest(folder):
         spec = make_spec(ex["basis"], ex.get("basis_for"), bool(ex.get("cartesian", False)))
-        o = audit_paths([folder / ex["file"]], spec, policy, out, "all",
-                        unit=ex.get("unit", "angstrom"), ghost=ex.get("ghost"))
+        o = audit_paths(
+            [folder / ex["file"]], spec, policy, out, "all", unit=ex.get("unit", "angstrom"), ghost=ex.get("ghost")
+        )
         total.results += o.results
         total.errors += o.errors
         total.written += o.written
         for r in o.results:
             stem = report_stem(r.input.path, r.input.frame, r.input.n_frames)
             kinds = sorted({f.kind for f in r.findings if f.severity != "info"})
-            rows.append(f"| [{stem}]({stem}.md) | {r.input.basis} | {r.input.n_functions} | "
-                        f"**{r.verdict}** | {r.spectrum.smallest:.2e} | {', '.join(kinds) or '-'} | {ex.get('note', '')} |")
+            rows.append(
+                f"| [{stem}]({stem}.md) | {r.input.basis} | {r.input.n_functions} | "
+                f"**{r.verdict}** | {r.spectrum.smallest:.2e} | {', '.join(kinds) or '-'} | {ex.get('note', '')} |"
+            )
             items.append({**item_from_result(r, f"{stem}.html"), "path": Path(r.input.path).name})
         for p, msg, _ in o.errors:
             rows.append(f"| {Path(p).name} | {ex['basis']} | | unreadable | | {msg} | {ex.get('note', '')} |")
             items.append({**error_row(Path(p).name, None, "", ex["basis"], msg), "report": ""})
     index = out / "index.md"
-    atomic_write(index, "\n".join([
-        "# Sample reports",
-        "",
-        f"{ORIGIN}. The same reports as self-contained HTML pages: [index.html](index.html).",
-        "",
-        "| report | basis | functions | verdict | smallest eigenvalue | findings | scenario |",
-        "|---|---|---|---|---|---|---|",
-        *rows,
-        "",
-    ]))
-    total.written.append(write_set_index(
-        out, items, title="Sample reports", policy=policy.as_dict(),
-        note=ORIGIN.replace("`", "") + "."))
+    atomic_write(
+        index,
+        "\n".join(
+            [
+                "# Sample reports",
+                "",
+                f"{ORIGIN}. The same reports as self-contained HTML pages: [index.html](index.html).",
+                "",
+                "| report | basis | functions | verdict | smallest eigenvalue | findings | scenario |",
+                "|---|---|---|---|---|---|---|",
+                *rows,
+                "",
+            ]
+        ),
+    )
+    total.written.append(
+        write_set_index(out, items, title="Sample reports", policy=policy.as_dict(), note=ORIGIN.replace("`", "") + ".")
+    )
     return total, index

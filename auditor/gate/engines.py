@@ -1,4 +1,5 @@
 """Where items run: worker processes on this machine, or a Dask cluster (JSON text in and out)."""
+
 from __future__ import annotations
 
 import json
@@ -19,8 +20,9 @@ def _worker_main(conn, task, check=None) -> None:
     audit items until told to stop."""
     signal.signal(signal.SIGINT, signal.SIG_IGN)  # the parent handles Ctrl-C and ends its workers
     try:
-        from ..pipeline import run  # noqa: F401
         import pyscf.gto  # noqa: F401
+
+        from ..pipeline import run  # noqa: F401
 
         problem = _preflight(check)
         conn.send(("unusable", problem) if problem else ("ready", ""))
@@ -45,8 +47,8 @@ class _Worker:
         self.proc.start()
         child.close()
         self.ready = False
-        self.tasks: deque[tuple[str, str]] = deque()   # sent and not answered; the first is running
-        self.started = 0.0                               # when the first of them started
+        self.tasks: deque[tuple[str, str]] = deque()  # sent and not answered; the first is running
+        self.started = 0.0  # when the first of them started
 
     def wants(self) -> bool:
         """Room for another item: none in hand, or one whose successor can wait in the pipe."""
@@ -128,8 +130,7 @@ class LocalEngine:
                 workers.append(start())  # one at a time, so that a failed start leaves none unstopped
             while queue or any(w.tasks for w in workers):
                 feed()
-                wait_any([w.conn for w in workers] + [w.proc.sentinel for w in workers],
-                         self._wait_time(workers))
+                wait_any([w.conn for w in workers] + [w.proc.sentinel for w in workers], self._wait_time(workers))
                 for i, w in enumerate(workers):
                     replies, died = [], False
                     try:
@@ -154,9 +155,11 @@ class LocalEngine:
                         continue
                     w.kill()
                     if w.tasks:
-                        why = (f"took longer than the item timeout ({self.timeout:g} s); the worker was stopped"
-                               if late and not died else
-                               f"the worker process died (exit code {w.proc.exitcode}) while auditing this item")
+                        why = (
+                            f"took longer than the item timeout ({self.timeout:g} s); the worker was stopped"
+                            if late and not died
+                            else f"the worker process died (exit code {w.proc.exitcode}) while auditing this item"
+                        )
                         on_done(w.tasks[0][0], {"error": why}, time.monotonic() - w.started)
                         queue.extendleft(reversed(list(w.tasks)[1:]))  # waiting, never started: run elsewhere
                     elif not w.ready:

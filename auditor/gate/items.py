@@ -1,4 +1,5 @@
 """The items of a run: files, folders, globs and @lists expanded; every frame an item."""
+
 from __future__ import annotations
 
 import glob
@@ -6,13 +7,12 @@ import os
 from dataclasses import dataclass
 from pathlib import Path
 
-from ..pipeline.run import load_molecules
 from ..base.errors import AuditorError, UsageError
 from ..diagnosis.verdict import Policy
 from ..inputs.basis import BasisSpec
 from ..inputs.geometry import Molecule
+from ..pipeline.run import load_molecules
 from ..report.naming import report_stem, unique_name
-
 
 #: file names a directory argument contributes (recursively)
 GEOMETRY_PATTERNS = ("*.xyz", "*.extxyz")
@@ -27,7 +27,7 @@ class GateOptions:
     unit: str = "angstrom"
     ghost: str | None = None
     spectrum_method: str = "auto"
-    remedies: bool = False    # remedies cost several times the audit on small molecules; opt in
+    remedies: bool = False  # remedies cost several times the audit on small molecules; opt in
 
 
 @dataclass
@@ -35,7 +35,7 @@ class Item:
     """One frame of one file. ``name`` is unique in the run: DIR/items/<name>.json."""
 
     path: str
-    frame: int | None            # 1-based; None when the file could not be read
+    frame: int | None  # 1-based; None when the file could not be read
     n_frames: int = 1
     molecule: Molecule | None = None
     error: str = ""
@@ -54,7 +54,9 @@ def _has_magic(s: str) -> bool:
     return any(c in s for c in "*?[")
 
 
-def expand_inputs(args: list[str], patterns=GEOMETRY_PATTERNS, _depth: int = 0) -> tuple[list[Path], list[tuple[str, str]]]:
+def expand_inputs(
+    args: list[str], patterns=GEOMETRY_PATTERNS, _depth: int = 0
+) -> tuple[list[Path], list[tuple[str, str]]]:
     """Files named by ``args`` (files, folders searched recursively, glob patterns, and
     ``@LIST`` text files with one such argument a line, relative to the list file),
     plus (argument, message) for arguments that name nothing."""
@@ -80,8 +82,12 @@ def expand_inputs(args: list[str], patterns=GEOMETRY_PATTERNS, _depth: int = 0) 
             continue
         p = Path(arg)
         if p.is_dir():
-            found = {q for pat in patterns for q in p.rglob(pat)
-                     if q.is_file() and not any(part.startswith(".") for part in q.relative_to(p).parts)}
+            found = {
+                q
+                for pat in patterns
+                for q in p.rglob(pat)
+                if q.is_file() and not any(part.startswith(".") for part in q.relative_to(p).parts)
+            }
             if not found:
                 missing.append((arg, f"{arg}: folder holds no geometry file ({', '.join(patterns)})"))
             files += sorted(found)

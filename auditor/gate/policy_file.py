@@ -15,10 +15,11 @@ Policy file layout (every key optional)::
     frame = 3               # optional: only this frame
     reason = "tracked in issue 12"
 """
+
 from __future__ import annotations
 
-import sys
 import fnmatch
+import sys
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -50,7 +51,7 @@ class Allowance:
 class GatePolicy:
     caution: float | None = None
     fail: float | None = None
-    per_basis: dict = field(default_factory=dict)     # lower-case basis name -> {"caution", "fail"}
+    per_basis: dict = field(default_factory=dict)  # lower-case basis name -> {"caution", "fail"}
     allowed: tuple[Allowance, ...] = ()
     drop_decades: float = DEFAULT_DROP_DECADES
 

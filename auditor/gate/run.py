@@ -1,5 +1,6 @@
 """A gate run: audit the items (cache first), write one report and one summary row per item,
 judge them against the policy and the baseline, and write the summaries."""
+
 from __future__ import annotations
 
 import hashlib
@@ -19,10 +20,9 @@ from ..report.rows import BLOCKING, error_row, result_row
 from ..report.summary_files import prefetch_libraries, write_summary
 from .baseline import improvements, judge
 from .cache import ResultCache, file_digest
-from .policy_file import GatePolicy
 from .items import GEOMETRY_PATTERNS, GateOptions, Item, collect_items
+from .policy_file import GatePolicy
 from .tasks import _geometry, item_key, item_payload, run_context
-
 
 ITEMS_DIR = "items"
 
@@ -30,12 +30,12 @@ ITEMS_DIR = "items"
 @dataclass
 class BatchRun:
     rows: list[dict]
-    seconds: dict = field(default_factory=dict)   # item -> seconds spent on it in this run
+    seconds: dict = field(default_factory=dict)  # item -> seconds spent on it in this run
     computed: int = 0
     cached: int = 0
     errors: int = 0
-    inputs: list[str] = field(default_factory=list)   # the input files (never overwritten)
-    files: list[str] = field(default_factory=list)    # the item files written, relative to items/
+    inputs: list[str] = field(default_factory=list)  # the input files (never overwritten)
+    files: list[str] = field(default_factory=list)  # the item files written, relative to items/
 
 
 def _same_text(path: Path, text: str) -> bool:
@@ -49,8 +49,15 @@ def _with_path(message: str, path: str) -> str:
     return message if path in message else f"{path}: {message}"
 
 
-def run_batch(args: list[str], options: GateOptions, out: Path, engine, cache: ResultCache | None = None,
-              patterns=GEOMETRY_PATTERNS, progress=None) -> BatchRun:
+def run_batch(
+    args: list[str],
+    options: GateOptions,
+    out: Path,
+    engine,
+    cache: ResultCache | None = None,
+    patterns=GEOMETRY_PATTERNS,
+    progress=None,
+) -> BatchRun:
     """Audit every item named by ``args``; write out/items/<item>.json as each finishes.
 
     Cached results are used as they are; fresh ones are stored. ``progress(done, total)``
@@ -62,7 +69,7 @@ def run_batch(args: list[str], options: GateOptions, out: Path, engine, cache: R
     except OSError as exc:
         raise UsageError(f"{out}: cannot create the output folder ({exc.strerror})") from None
     if hasattr(engine, "warm_up") and (cache is None or not cache.path.exists()):
-        engine.warm_up()   # nothing can come from the cache: start the workers' imports at once
+        engine.warm_up()  # nothing can come from the cache: start the workers' imports at once
     items = collect_items(args, options, patterns)
     with protect([it.path for it in items] + options.spec.files()):
         return _audit_items(items, options, items_dir, engine, cache, progress)
@@ -86,8 +93,12 @@ def _audit_items(items: list[Item], options: GateOptions, items_dir: Path, engin
     def fail(it: Item, message: str) -> None:
         message = _with_path(message, it.path)
         run.errors += 1
-        report = json.dumps({"schema": "auditor-item-error/1", "path": it.path, "frame": it.frame,
-                             "error": message}, indent=2) + "\n"
+        report = (
+            json.dumps(
+                {"schema": "auditor-item-error/1", "path": it.path, "frame": it.frame, "error": message}, indent=2
+            )
+            + "\n"
+        )
         done(it, error_row(it.path, it.frame, it.name, basis, message), report)
 
     def finish(it: Item, text: str, short: dict) -> None:
@@ -100,7 +111,7 @@ def _audit_items(items: list[Item], options: GateOptions, items_dir: Path, engin
             text = dumps_result(result, compact=True)
         done(it, result_row(it.path, it.frame, it.name, short), text)
 
-    twins: dict[str, list[Item]] = {}   # items with the geometry of one being audited
+    twins: dict[str, list[Item]] = {}  # items with the geometry of one being audited
 
     def on_done(name: str, reply: dict, seconds: float) -> None:
         it = by_name[name]
@@ -189,8 +200,9 @@ def output_lock(out: Path):
         except ImportError:  # pragma: no cover - not POSIX: no lock
             pass
         except OSError:
-            raise UsageError(f"{out}: another auditor gate run is writing to this folder; "
-                             "wait for it to end or choose another --out") from None
+            raise UsageError(
+                f"{out}: another auditor gate run is writing to this folder; wait for it to end or choose another --out"
+            ) from None
         yield
     finally:
         os.close(fd)
@@ -213,8 +225,7 @@ def _remove_stale(items_dir: Path, previous: set[str], current: set[str]) -> Non
     ours = previous | current
     stale = [items_dir / n for n in sorted(previous - current)]
     try:
-        stale += [p for p in items_dir.iterdir()
-                  if (m := TEMP_NAME.match(p.name)) and m.group("target") in ours]
+        stale += [p for p in items_dir.iterdir() if (m := TEMP_NAME.match(p.name)) and m.group("target") in ours]
     except OSError:
         pass
     for path in stale:
@@ -234,9 +245,19 @@ class GateOutcome:
     written: list
 
 
-def run_gate(args: list[str], options: GateOptions, out: Path, engine, cache: ResultCache | None,
-             gate_policy=None, baseline: dict | None = None, drop_decades: float | None = None,
-             patterns=GEOMETRY_PATTERNS, progress=None, html: bool = False) -> GateOutcome:
+def run_gate(
+    args: list[str],
+    options: GateOptions,
+    out: Path,
+    engine,
+    cache: ResultCache | None,
+    gate_policy=None,
+    baseline: dict | None = None,
+    drop_decades: float | None = None,
+    patterns=GEOMETRY_PATTERNS,
+    progress=None,
+    html: bool = False,
+) -> GateOutcome:
     """Audit the set, judge every item against the policy (and baseline), write
     summary.csv, summary.parquet, junit.xml and run.json under ``out``; with ``html``
     also items/<item>.html and the set overview index.html. Only files this run or an
@@ -264,18 +285,31 @@ def _finish_gate(run, options, out, cache, gate_policy, baseline, drop_decades, 
         pages = write_item_pages(out, run.rows)
         written += pages
         run.files += [p.name for p in pages]
-        written.append(write_set_index(out, link_reports(out, run.rows),
-                                       title=f"Gate: {options.spec.describe()}", policy=options.policy.as_dict()))
+        written.append(
+            write_set_index(
+                out,
+                link_reports(out, run.rows),
+                title=f"Gate: {options.spec.describe()}",
+                policy=options.policy.as_dict(),
+            )
+        )
     code = EXIT_FAIL if any(r["outcome"] in BLOCKING for r in run.rows) else EXIT_OK
     outcomes: dict[str, int] = {}
     for r in run.rows:
         outcomes[r["outcome"]] = outcomes.get(r["outcome"], 0) + 1
     stats = {
-        "items": len(run.rows), "computed": run.computed, "cached": run.cached, "errors": run.errors,
-        "outcomes": outcomes, "exit_code": code, "seconds": round(time.monotonic() - t0, 3),
-        "basis": options.spec.describe(), "policy": options.policy.as_dict(),
+        "items": len(run.rows),
+        "computed": run.computed,
+        "cached": run.cached,
+        "errors": run.errors,
+        "outcomes": outcomes,
+        "exit_code": code,
+        "seconds": round(time.monotonic() - t0, 3),
+        "basis": options.spec.describe(),
+        "policy": options.policy.as_dict(),
         "cache": str(cache.root) if cache is not None else None,
-        "cache_write_errors": cache.failed_writes if cache is not None else 0, "version": __version__,
+        "cache_write_errors": cache.failed_writes if cache is not None else 0,
+        "version": __version__,
         "summary_stamps": stamps,
         "item_files": sorted(run.files),
     }

@@ -1,16 +1,17 @@
 """Audit a list of geometry files one after another and write one report per frame.
 
 Shared by ``auditor check`` and ``auditor demo``: one bad file never stops the others."""
+
 from __future__ import annotations
 
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from ..pipeline.run import audit_prepared, load_molecules, prepare
 from ..base.errors import EXIT_FAIL, EXIT_OK, AuditorError, failure
 from ..base.files import protect
 from ..diagnosis.verdict import Policy
 from ..inputs.basis import BasisSpec
+from ..pipeline.run import audit_prepared, load_molecules, prepare
 from ..report.naming import report_stem, unique_name
 from ..report.writers import write_reports
 
@@ -18,7 +19,7 @@ from ..report.writers import write_reports
 @dataclass
 class RunOutcome:
     results: list = field(default_factory=list)
-    errors: list = field(default_factory=list)      # (path, message, exit code)
+    errors: list = field(default_factory=list)  # (path, message, exit code)
     written: list = field(default_factory=list)
 
     @property

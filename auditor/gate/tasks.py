@@ -1,4 +1,5 @@
 """One item as a task: its cache key, the JSON payload a worker receives, and the audit it runs."""
+
 from __future__ import annotations
 
 import json
@@ -62,11 +63,19 @@ def item_key(geometry: dict, context: dict) -> str:
 def item_payload(item: Item, geometry: dict, context: dict) -> str:
     """JSON text that a worker needs to audit ``item`` (``context``: ``run_context``)."""
     mol = item.molecule
-    return json.dumps({
-        "geometry": geometry, "source": item.path, "frame": mol.frame, "n_frames": mol.n_frames,
-        "basis": context["basis"], "policy": context["policy"], "spectrum_method": context["spectrum_method"],
-        "remedies": context["remedies"], "versions": context["versions"],
-    })
+    return json.dumps(
+        {
+            "geometry": geometry,
+            "source": item.path,
+            "frame": mol.frame,
+            "n_frames": mol.n_frames,
+            "basis": context["basis"],
+            "policy": context["policy"],
+            "spectrum_method": context["spectrum_method"],
+            "remedies": context["remedies"],
+            "versions": context["versions"],
+        }
+    )
 
 
 def run_item(payload: str) -> str:
@@ -80,14 +89,31 @@ def run_item(payload: str) -> str:
     t0 = time.perf_counter()
     try:
         g = p["geometry"]
-        mol = Molecule(tuple(g["symbols"]), np.asarray(g["coords"], dtype=float), tuple(g["ghost"]),
-                       charge=g["charge"], multiplicity=g["multiplicity"], source=p["source"],
-                       frame=p["frame"], n_frames=p["n_frames"])
+        mol = Molecule(
+            tuple(g["symbols"]),
+            np.asarray(g["coords"], dtype=float),
+            tuple(g["ghost"]),
+            charge=g["charge"],
+            multiplicity=g["multiplicity"],
+            source=p["source"],
+            frame=p["frame"],
+            n_frames=p["n_frames"],
+        )
         spec = BasisSpec(p["basis"]["default"], dict(p["basis"]["per_element"]), bool(p["basis"]["cartesian"]))
-        result = audit_prepared(prepare(mol, spec, p["spectrum_method"]), Policy(**p["policy"]),
-                                p["spectrum_method"], remedies=bool(p.get("remedies", False))).as_dict()
-        return json.dumps({"seconds": round(time.perf_counter() - t0, 6), "report": dumps_result(result, compact=True),
-                           "brief": brief(result), "versions": _versions()})
+        result = audit_prepared(
+            prepare(mol, spec, p["spectrum_method"]),
+            Policy(**p["policy"]),
+            p["spectrum_method"],
+            remedies=bool(p.get("remedies", False)),
+        ).as_dict()
+        return json.dumps(
+            {
+                "seconds": round(time.perf_counter() - t0, 6),
+                "report": dumps_result(result, compact=True),
+                "brief": brief(result),
+                "versions": _versions(),
+            }
+        )
     except Exception as exc:  # an item must never take the run down; report it as that item's error
         return json.dumps({"error": failure(exc)[0]})
 

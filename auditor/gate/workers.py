@@ -3,6 +3,7 @@
 Standard library only, so that the command line can start the fork server before it
 imports numpy, pyscf or its own argument parser.
 """
+
 from __future__ import annotations
 
 import multiprocessing as mp
@@ -11,8 +12,13 @@ from contextlib import contextmanager
 from pathlib import Path
 
 #: thread pools of BLAS/OpenMP libraries, pinned in worker processes
-THREAD_VARS = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS",
-               "VECLIB_MAXIMUM_THREADS", "NUMEXPR_NUM_THREADS")
+THREAD_VARS = (
+    "OMP_NUM_THREADS",
+    "OPENBLAS_NUM_THREADS",
+    "MKL_NUM_THREADS",
+    "VECLIB_MAXIMUM_THREADS",
+    "NUMEXPR_NUM_THREADS",
+)
 #: glibc malloc tunables for worker processes (see worker_env)
 MALLOC_VARS = {"MALLOC_MMAP_THRESHOLD_": str(64 << 20), "MALLOC_TRIM_THRESHOLD_": str(256 << 20)}
 #: what the fork server imports once for all workers
@@ -74,8 +80,11 @@ def start_early(argv: list[str]) -> None:
     when they show a local ``gate`` run that cannot be served from the cache: pyscf then
     loads in the server while this process reads the inputs. (Anything unusual, such as a
     Dask engine or help, is left to the normal path.)"""
-    if not argv or argv[0] != "gate" or any(a in ("--help", "-h", "--engine") or a.startswith("--engine=")
-                                           for a in argv):
+    if (
+        not argv
+        or argv[0] != "gate"
+        or any(a in ("--help", "-h", "--engine") or a.startswith("--engine=") for a in argv)
+    ):
         return
     if "--no-cache" not in argv:
         from .cache import FILE_NAME, default_cache_dir

@@ -1,10 +1,11 @@
 """Basis names and files -> per-element shells, and shell metadata (exponent, diffuse)."""
+
 from __future__ import annotations
 
 import difflib
 import re
 from dataclasses import dataclass, field
-from functools import lru_cache
+from functools import cache, lru_cache
 from pathlib import Path
 
 from ..base.elements import element_symbol
@@ -73,14 +74,14 @@ def _canon(name: str) -> str:
     return pbasis._format_basis_name(name)
 
 
-@lru_cache(maxsize=None)
+@cache
 def _known_names() -> tuple[str, ...]:
     from pyscf.gto import basis as pbasis
 
     return tuple(sorted(pbasis.ALIAS))
 
 
-@lru_cache(maxsize=None)
+@cache
 def _exchange_names() -> frozenset:
     """Basis names of basis_set_exchange, which pyscf consults for names it does not hold."""
     try:
@@ -94,7 +95,7 @@ def _in_exchange(name: str) -> bool:
     return name.strip().lower() in _exchange_names()
 
 
-@lru_cache(maxsize=None)
+@cache
 def _display_names() -> dict[str, str]:
     """pyscf's canonical name -> a name as people write it (basis_set_exchange's, if any)."""
     shown = {k: k for k in _known_names()}
@@ -167,8 +168,9 @@ def read_basis_file(path: str) -> dict[str, tuple[str, ...]]:
             try:
                 symbol = element_symbol(tokens[0], f"{path}:{k}")
             except InputError:
-                raise InputError(f"{path}:{k}: expected an element and a shell type (e.g. 'H S'), "
-                                 f"found {line[:40]!r}") from None
+                raise InputError(
+                    f"{path}:{k}: expected an element and a shell type (e.g. 'H S'), found {line[:40]!r}"
+                ) from None
             current = None if in_ecp else blocks.setdefault(symbol, [])
         elif not all(NUMBER.fullmatch(t) for t in tokens):
             bad = next(t for t in tokens if not NUMBER.fullmatch(t))
@@ -178,8 +180,9 @@ def read_basis_file(path: str) -> dict[str, tuple[str, ...]]:
         if current is not None:
             current.append(line)
     if not blocks:
-        raise InputError(f"{path}: no basis data in NWChem format (lines such as 'H S' followed by "
-                         "exponents and coefficients)")
+        raise InputError(
+            f"{path}: no basis data in NWChem format (lines such as 'H S' followed by exponents and coefficients)"
+        )
     return {el: tuple(lines) for el, lines in blocks.items()}
 
 
@@ -189,16 +192,19 @@ def _file_shells(path: str, element: str) -> list:
 
     blocks = read_basis_file(path)
     if element not in blocks:
-        raise InputError(f"basis file {path} has no functions for element {element} "
-                         f"(it has {', '.join(sorted(blocks))})")
+        raise InputError(
+            f"basis file {path} has no functions for element {element} (it has {', '.join(sorted(blocks))})"
+        )
     try:  # only this element's lines: pyscf alone would fall back to the whole file
         return parse_nwchem.parse("\n".join(blocks[element]), optimize=pbasis.OPTIMIZE_CONTRACTION)
     except Exception as exc:  # pyscf raises BasisNotFoundError, ValueError, IndexError, ...
-        raise InputError(f"basis file {path}: cannot read the shells of {element} "
-                         f"({exc.__class__.__name__}: {str(exc).strip().splitlines()[0] if str(exc).strip() else ''})") from None
+        raise InputError(
+            f"basis file {path}: cannot read the shells of {element} "
+            f"({exc.__class__.__name__}: {str(exc).strip().splitlines()[0] if str(exc).strip() else ''})"
+        ) from None
 
 
-@lru_cache(maxsize=None)
+@cache
 def load_shells(name: str, element: str) -> tuple:
     """Shells of ``element`` in basis ``name`` (pyscf's internal list format).
 
@@ -224,8 +230,10 @@ def load_shells(name: str, element: str) -> tuple:
         raise InputError(f"{where} has no functions for element {element}")
     bad = _bad_exponent(shells)
     if bad is not None:
-        raise InputError(f"basis {name!r}: element {element} has a shell with exponent {bad!r}; "
-                         "exponents must be positive and finite")
+        raise InputError(
+            f"basis {name!r}: element {element} has a shell with exponent {bad!r}; "
+            "exponents must be positive and finite"
+        )
     return tuple(_freeze(s) for s in shells)
 
 
@@ -286,7 +294,7 @@ def _min_exponent_by_l(shells) -> dict[int, float]:
     return out
 
 
-@lru_cache(maxsize=None)
+@cache
 def diffuse_rule(name: str, element: str) -> tuple[str, dict[int, float], float]:
     """How shells of ``element`` in basis ``name`` are judged diffuse.
 

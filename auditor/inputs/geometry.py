@@ -1,4 +1,5 @@
 """Geometry files -> Molecule (atoms in ångström, ghost flags, charge, multiplicity)."""
+
 from __future__ import annotations
 
 import math
@@ -40,14 +41,12 @@ class Molecule:
         nelec = sum(ELEMENTS.index(s) + 1 for s, g in zip(self.symbols, self.ghost) if not g) - int(self.charge)
         return nelec % 2
 
-    def with_ghosts(self, numbers: list[int]) -> "Molecule":
+    def with_ghosts(self, numbers: list[int]) -> Molecule:
         """Mark 1-based atom ``numbers`` as ghost atoms."""
         ghost = list(self.ghost)
         for k in numbers:
             if not 1 <= k <= self.n_atoms:
-                raise UsageError(
-                    f"--ghost names atom {k}, but {self.source} has {self.n_atoms} atoms"
-                )
+                raise UsageError(f"--ghost names atom {k}, but {self.source} has {self.n_atoms} atoms")
             ghost[k - 1] = True
         return replace(self, ghost=tuple(ghost))
 
@@ -103,9 +102,7 @@ def _read_plain_xyz(path: Path, text: str, scale: float) -> list[Molecule]:
             if n < 1 or len(head) > 1:
                 raise ValueError
         except ValueError:
-            raise InputError(
-                f"{name}:{i + 1}: expected an atom count, found {lines[i].strip()[:40]!r}"
-            ) from None
+            raise InputError(f"{name}:{i + 1}: expected an atom count, found {lines[i].strip()[:40]!r}") from None
         if i + 2 + n > len(lines):
             raise InputError(
                 f"{name}:{i + 1}: the header announces {n} atoms but only "
@@ -148,6 +145,7 @@ def _read_with_ase(path: Path, scale: float) -> list[Molecule]:
     """Extended XYZ and other formats that ASE reads."""
     try:
         from ase.io import read
+
         images = read(str(path), index=":")
     except Exception as exc:  # ASE raises many types; the message is what matters
         msg = str(exc).splitlines()[0] if str(exc) else type(exc).__name__

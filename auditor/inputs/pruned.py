@@ -1,4 +1,5 @@
 """The pruned-basis document (format ``auditor-pruned-basis/1``) read back as a pyscf Mole."""
+
 from __future__ import annotations
 
 import json
@@ -6,7 +7,6 @@ from pathlib import Path
 
 from ..base.errors import InputError
 from .basis import eval_off
-
 
 PRUNED_FORMAT = "auditor-pruned-basis/1"
 
@@ -18,9 +18,15 @@ def load_pruned_doc(doc: dict, **overrides):
     eval_off()  # the document is user data: pyscf must not evaluate text in it
 
     try:
-        kw = {"atom": doc["atoms"], "basis": doc["basis"], "unit": doc.get("unit", "angstrom"),
-              "cart": bool(doc.get("cartesian", False)), "charge": int(doc.get("charge", 0)),
-              "spin": int(doc.get("spin", 0)), "verbose": 0}
+        kw = {
+            "atom": doc["atoms"],
+            "basis": doc["basis"],
+            "unit": doc.get("unit", "angstrom"),
+            "cart": bool(doc.get("cartesian", False)),
+            "charge": int(doc.get("charge", 0)),
+            "spin": int(doc.get("spin", 0)),
+            "verbose": 0,
+        }
     except (KeyError, TypeError, ValueError) as exc:
         raise InputError(f"not a pruned-basis document ({exc.__class__.__name__}: {exc})") from None
     kw.update(overrides)

@@ -1,6 +1,7 @@
 """Pivoted Cholesky of the normalized overlap matrix (Lehtola, J. Chem. Phys. 151, 241102 (2019)):
 the pivot order picks a numerically independent subset of functions. Pure functions on numpy arrays;
 ``S`` is the overlap matrix scaled to unit diagonal."""
+
 from __future__ import annotations
 
 from dataclasses import dataclass
@@ -11,7 +12,6 @@ import scipy.sparse.linalg
 from scipy.linalg import lapack
 
 from ..base.errors import InputError, UsageError
-
 
 #: Largest deviation of a diagonal element from 1 that is accepted as "unit diagonal".
 UNIT_DIAGONAL_SLACK = 1e-8
@@ -56,9 +56,7 @@ def check_overlap(S: np.ndarray) -> np.ndarray:
         raise InputError("overlap matrix contains NaN or infinite elements")
     worst = float(np.max(np.abs(np.diagonal(S) - 1.0)))
     if worst > UNIT_DIAGONAL_SLACK:
-        raise InputError(
-            f"overlap matrix must be normalized to unit diagonal (largest deviation {worst:.1e})"
-        )
+        raise InputError(f"overlap matrix must be normalized to unit diagonal (largest deviation {worst:.1e})")
     return S
 
 
@@ -105,7 +103,7 @@ def _pstrf(S: np.ndarray, tol: float) -> tuple[np.ndarray, np.ndarray]:
     rank = int(rank) if info == 1 else n
     factor = c[:rank, :rank]
     for j in range(1, rank):  # zero the strict upper triangle in place (np.tril would copy);
-        factor[:j, j] = 0.0   # columns are contiguous in LAPACK's Fortran order
+        factor[:j, j] = 0.0  # columns are contiguous in LAPACK's Fortran order
     return (np.asarray(piv[:rank], dtype=np.intp) - 1), factor
 
 
@@ -136,9 +134,7 @@ def _schur_block(A: np.ndarray, P: np.ndarray, j: int, f: np.ndarray) -> np.ndar
     return A[np.ix_(f, f)] - P[f, :j] @ P[f, :j].T
 
 
-def shell_pivoted_cholesky(
-    S: np.ndarray, shell_of_function, tol: float, panel: int = 192
-) -> CholeskyResult:
+def shell_pivoted_cholesky(S: np.ndarray, shell_of_function, tol: float, panel: int = 192) -> CholeskyResult:
     """Pivoted Cholesky that keeps or drops whole shells.
 
     At each step it takes the shell whose smallest "new fraction" is largest: the least
@@ -163,12 +159,12 @@ def shell_pivoted_cholesky(
     starts = np.cumsum([0] + [f.size for f in shells[:-1]])
     widest = max(f.size for f in shells)
 
-    G = np.zeros((n, n))          # factor columns, rows by global function index
-    rem = np.arange(n)            # functions left in the Schur complement A
-    loc = np.arange(n)            # global index -> row of A (valid for remaining functions)
-    A = S.copy()                  # Schur complement of the remaining functions at panel start
+    G = np.zeros((n, n))  # factor columns, rows by global function index
+    rem = np.arange(n)  # functions left in the Schur complement A
+    loc = np.arange(n)  # global index -> row of A (valid for remaining functions)
+    A = S.copy()  # Schur complement of the remaining functions at panel start
     diag = np.diagonal(A).copy()  # current Schur diagonal of the remaining functions
-    cached = np.ones(m)           # Schur blocks only shrink, so old values are upper bounds
+    cached = np.ones(m)  # Schur blocks only shrink, so old values are upper bounds
     # Rank of each shell among ties (lower wins); by default the shell index.
     ids = np.arange(m)  # ties go to the lower shell index
     taken = np.zeros(m, dtype=bool)
@@ -290,9 +286,7 @@ def smallest_from_factor(factor: np.ndarray, rtol: float = 1e-10) -> float:
         return scipy.linalg.solve_triangular(T, y, lower=lower, trans="T" if lower else "N", check_finite=False)
 
     op = scipy.sparse.linalg.LinearOperator((k, k), matvec=apply, dtype=np.float64)
-    top = scipy.sparse.linalg.eigsh(
-        op, k=1, which="LA", tol=rtol, v0=np.ones(k), return_eigenvectors=False
-    )[0]
+    top = scipy.sparse.linalg.eigsh(op, k=1, which="LA", tol=rtol, v0=np.ones(k), return_eigenvectors=False)[0]
     return float(1.0 / top)
 
 

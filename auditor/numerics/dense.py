@@ -1,11 +1,18 @@
 """The full spectrum: every eigenvalue, and only the eigenvectors the audit needs."""
+
 from __future__ import annotations
 
 import numpy as np
 
-from .spectrum import (COUNT_LEVELS, GROWTH_LEVEL, Spectrum, gershgorin_lower_bound, level_key,
-                       max_transform_element, select_null_vectors)
-
+from .spectrum import (
+    COUNT_LEVELS,
+    GROWTH_LEVEL,
+    Spectrum,
+    gershgorin_lower_bound,
+    level_key,
+    max_transform_element,
+    select_null_vectors,
+)
 
 #: below this size one dense eigendecomposition costs no more than the selective path
 _SELECTIVE_FROM = 160

@@ -1,4 +1,5 @@
 """The spectrum step: choose the dense or the factored path for S and run it."""
+
 from __future__ import annotations
 
 import numpy as np
@@ -9,9 +10,7 @@ from .memory import check_memory, resolve_method
 from .spectrum import Spectrum
 
 
-def compute_spectrum(
-    S: np.ndarray, vector_level: float, min_vectors: int = 3, method: str = "full"
-) -> Spectrum:
+def compute_spectrum(S: np.ndarray, vector_level: float, min_vectors: int = 3, method: str = "full") -> Spectrum:
     """Spectrum of the unit-diagonal overlap matrix ``S``.
 
     ``method``: "full" (dense eigendecomposition), "large" (factorizations and

@@ -11,6 +11,7 @@ second copy:
   through a Cholesky factor (BLAS-3 solves), gives the smallest eigenpairs;
 * Lanczos (ARPACK) on S gives the largest eigenvalue.
 """
+
 from __future__ import annotations
 
 import time
@@ -82,14 +83,13 @@ def large_spectrum(
         info["shift"] = factored_shift
         k = min(n, max(min(below_tau, max_vectors), min_vectors))
         t1 = time.perf_counter()
-        values, vectors = _smallest_eigenpairs(
-            tri.A, factored_shift, k, tol, maxiter, seed, info
-        )
+        values, vectors = _smallest_eigenpairs(tri.A, factored_shift, k, tol, maxiter, seed, info)
         info["t_eigenpairs"] = time.perf_counter() - t1
         if not info["residual"] <= tol:  # unconverged Ritz pairs would be reported as eigenpairs
             raise ResourceError(
                 f"the large spectrum path did not converge in {maxiter} iterations for {n} basis functions "
-                f"(residual {info['residual']:.1e} > {tol:.0e}); --spectrum full computes every eigenvalue if S fits")
+                f"(residual {info['residual']:.1e} > {tol:.0e}); --spectrum full computes every eigenvalue if S fits"
+            )
         order = np.argsort(values, kind="stable")
         if np.any(order != np.arange(order.size)):  # usually sorted already: no copy then
             values, vectors = values[order], vectors[:, order]

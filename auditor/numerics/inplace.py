@@ -1,4 +1,5 @@
 """Factorizations of S - shift*I in one triangle of S while the other keeps S (no second N x N array)."""
+
 from __future__ import annotations
 
 import ctypes
@@ -94,19 +95,32 @@ def _cholesky(A: np.ndarray, block: int = 384) -> int:
         if k0 > 0:
             done = c.c_int(k0)
             # A11 -= L10 L10^T ; A21 -= L20 L10^T (columns left of the panel)
-            syrk(ref(L), ref(N), ref(kb), ref(done), ref(minus), at(k0, 0), ref(ld),
-                 ref(one), at(k0, k0), ref(ld))
+            syrk(ref(L), ref(N), ref(kb), ref(done), ref(minus), at(k0, 0), ref(ld), ref(one), at(k0, k0), ref(ld))
             if n > k1:
-                gemm(ref(N), ref(T), ref(below), ref(kb), ref(done), ref(minus), at(k1, 0),
-                     ref(ld), at(k0, 0), ref(ld), ref(one), at(k1, k0), ref(ld))
+                gemm(
+                    ref(N),
+                    ref(T),
+                    ref(below),
+                    ref(kb),
+                    ref(done),
+                    ref(minus),
+                    at(k1, 0),
+                    ref(ld),
+                    at(k0, 0),
+                    ref(ld),
+                    ref(one),
+                    at(k1, k0),
+                    ref(ld),
+                )
         potrf(ref(L), ref(kb), at(k0, k0), ref(ld), ref(info))
         if info.value != 0:
             if info.value < 0:
                 raise RuntimeError(f"dpotrf argument error {info.value}")
             return k0 + info.value
         if n > k1:  # L21 = A21 L11^-T
-            trsm(ref(R), ref(L), ref(T), ref(N), ref(below), ref(kb), ref(one), at(k0, k0),
-                 ref(ld), at(k1, k0), ref(ld))
+            trsm(
+                ref(R), ref(L), ref(T), ref(N), ref(below), ref(kb), ref(one), at(k0, k0), ref(ld), at(k1, k0), ref(ld)
+            )
     return 0
 
 

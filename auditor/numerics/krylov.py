@@ -1,4 +1,5 @@
 """Extreme eigenpairs without a full eigendecomposition: block Krylov on the inverse, Lanczos for the largest."""
+
 from __future__ import annotations
 
 import numpy as np
@@ -52,7 +53,7 @@ def _times_in_place(X: np.ndarray, U: np.ndarray, rows: int = 4096) -> None:
     c = U.shape[1]
     Uf = np.asfortranarray(U)
     for r0 in range(0, X.shape[0], rows):
-        X[r0:r0 + rows, :c] = X[r0:r0 + rows] @ Uf
+        X[r0 : r0 + rows, :c] = X[r0 : r0 + rows] @ Uf
 
 
 def _smallest_eigenpairs(
@@ -75,9 +76,9 @@ def _smallest_eigenpairs(
     depth = KRYLOV_DEPTH if KRYLOV_DEPTH * p <= n // 2 else 1
     m = depth * p
     rng = np.random.default_rng(seed)
-    Q = np.empty((n, m), order="F")   # orthonormal Krylov basis
-    W = np.empty((n, p), order="F")   # A applied to the newest block
-    H = np.zeros((m, m), order="F")   # Q^T A Q, upper block triangle as computed
+    Q = np.empty((n, m), order="F")  # orthonormal Krylov basis
+    W = np.empty((n, p), order="F")  # A applied to the newest block
+    H = np.zeros((m, m), order="F")  # Q^T A Q, upper block triangle as computed
     Q[:, :p] = rng.standard_normal((n, p))
     _orthonormalize(Q[:, :p])
     worst = np.inf
@@ -90,14 +91,13 @@ def _smallest_eigenpairs(
             if status != 0:
                 raise RuntimeError(f"dpotrs failed ({status})")
             solves += p
-            done = Q[:, :(j + 1) * p]
-            H[:(j + 1) * p, blk] = blas.dgemm(1.0, done, W, trans_a=1)
+            done = Q[:, : (j + 1) * p]
+            H[: (j + 1) * p, blk] = blas.dgemm(1.0, done, W, trans_a=1)
             if j + 1 < depth:
-                nxt = Q[:, (j + 1) * p:(j + 2) * p]
+                nxt = Q[:, (j + 1) * p : (j + 2) * p]
                 nxt[...] = W
                 for _ in range(2):  # classical Gram-Schmidt, twice, in place
-                    out = blas.dgemm(-1.0, done, blas.dgemm(1.0, done, nxt, trans_a=1), beta=1.0, c=nxt,
-                                     overwrite_c=1)
+                    out = blas.dgemm(-1.0, done, blas.dgemm(1.0, done, nxt, trans_a=1), beta=1.0, c=nxt, overwrite_c=1)
                     if not np.shares_memory(out, nxt):
                         nxt[...] = out
                 _orthonormalize(nxt)
@@ -105,8 +105,9 @@ def _smallest_eigenpairs(
         HW = H[:, last].copy()  # Q^T W, for the residuals
         # the p largest Ritz values of A (the smallest eigenvalues of S), in place on H,
         # whose upper triangle is complete
-        theta, U = scipy.linalg.eigh(H, lower=False, overwrite_a=True, check_finite=False,
-                                     subset_by_index=[m - p, m - 1], driver="evr")
+        theta, U = scipy.linalg.eigh(
+            H, lower=False, overwrite_a=True, check_finite=False, subset_by_index=[m - p, m - 1], driver="evr"
+        )
         theta, U = theta[::-1], np.asfortranarray(U[:, ::-1])
         worst = _worst_residual(Q, W, HW, U[last, :k], theta[:k])
         if worst <= tol or it == maxiter or m >= n:
@@ -126,13 +127,12 @@ def _smallest_eigenpairs(
     return values, vectors
 
 
-def _worst_residual(Q: np.ndarray, W: np.ndarray, HW: np.ndarray, U_last: np.ndarray,
-                    theta: np.ndarray) -> float:
+def _worst_residual(Q: np.ndarray, W: np.ndarray, HW: np.ndarray, U_last: np.ndarray, theta: np.ndarray) -> float:
     """max_i ||(W - Q HW) u_i|| / theta_i with HW = Q^T W, in column chunks (bounded memory)."""
     worst = 0.0
     for c0 in range(0, U_last.shape[1], 64):
-        Uc = np.asfortranarray(U_last[:, c0:c0 + 64])
+        Uc = np.asfortranarray(U_last[:, c0 : c0 + 64])
         R = blas.dgemm(1.0, W, Uc)
         R = blas.dgemm(-1.0, Q, HW @ Uc, beta=1.0, c=R, overwrite_c=1)
-        worst = max(worst, float((np.linalg.norm(R, axis=0) / theta[c0:c0 + 64]).max()))
+        worst = max(worst, float((np.linalg.norm(R, axis=0) / theta[c0 : c0 + 64]).max()))
     return worst

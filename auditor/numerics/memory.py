@@ -1,11 +1,11 @@
 """The memory guard: what an audit of N functions needs, what the machine has, and which spectrum path fits."""
+
 from __future__ import annotations
 
 import os
 
 from ..base.errors import ResourceError, UsageError
 from .spectrum import SCAN_BYTES
-
 
 #: method="auto" uses the large path from this many basis functions on. Measured on this
 #: 2-core machine (water clusters in aug-cc-pVTZ, spectrum step only, 2 December 2026):
@@ -24,15 +24,15 @@ DEFAULT_MAX_VECTORS = 400
 METHODS = ("full", "large", "auto")
 
 
-_GIB = 1024.0 ** 3
+_GIB = 1024.0**3
 
 
 #: Headroom kept free for Python, pyscf and the rest of the audit.
-_HEADROOM_BYTES = 512 * 1024 ** 2
+_HEADROOM_BYTES = 512 * 1024**2
 
 
 #: audits estimated below this size skip the memory check (it reads /proc/meminfo)
-_SMALL_BYTES = 64 * 1024 ** 2
+_SMALL_BYTES = 64 * 1024**2
 
 
 #: Temporary share of S the findings step takes on top (they read S in SCAN_BYTES row
@@ -49,9 +49,7 @@ def _block_size(k: int, n: int) -> int:
     return min(n, k + max(8, k // 8))
 
 
-def estimate_bytes(
-    n_functions: int, method: str, max_vectors: int = DEFAULT_MAX_VECTORS, min_vectors: int = 3
-) -> int:
+def estimate_bytes(n_functions: int, method: str, max_vectors: int = DEFAULT_MAX_VECTORS, min_vectors: int = 3) -> int:
     """Bytes an audit of ``n_functions`` needs for S plus its spectrum step.
 
     "full": S, the copy LAPACK overwrites, the divide-and-conquer workspace of about
@@ -94,9 +92,7 @@ def _extra_bytes(n_functions: int, method: str, max_vectors: int, s_built: bool)
     return need - 8 * n_functions * n_functions if s_built else need
 
 
-def resolve_method(
-    n_functions: int, method: str, available: int | None = None, s_built: bool = False
-) -> str:
+def resolve_method(n_functions: int, method: str, available: int | None = None, s_built: bool = False) -> str:
     """Turn "auto" into "full" or "large": large from CROSSOVER_N on or when full does not fit."""
     if method not in METHODS:
         raise UsageError(f"unknown spectrum method {method!r}; choose one of {', '.join(METHODS)}")

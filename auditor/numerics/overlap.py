@@ -1,4 +1,5 @@
 """The unit-diagonal overlap matrix and the table of its functions, via pyscf."""
+
 from __future__ import annotations
 
 from dataclasses import dataclass
@@ -20,16 +21,16 @@ class FunctionTable:
     basis function in pyscf's AO order. Atom numbers are 1-based.
     """
 
-    shell_atom: np.ndarray      # (n_shells,) 1-based atom number
-    shell_l: np.ndarray         # (n_shells,) angular momentum
+    shell_atom: np.ndarray  # (n_shells,) 1-based atom number
+    shell_l: np.ndarray  # (n_shells,) angular momentum
     shell_exponent: np.ndarray  # (n_shells,) smallest exponent with a non-negligible coefficient
-    shell_diffuse: np.ndarray   # (n_shells,) bool
+    shell_diffuse: np.ndarray  # (n_shells,) bool
     shell_name: tuple[str, ...]  # e.g. "3p" (numbered per atom and l, like 1s 2s 2p 3d)
-    shell_first: np.ndarray     # (n_shells,) index of its first function
-    func_shell: np.ndarray      # (n_functions,) shell index of each function
+    shell_first: np.ndarray  # (n_shells,) index of its first function
+    func_shell: np.ndarray  # (n_functions,) shell index of each function
     func_component: tuple[str, ...]  # e.g. "px", "dxy", "f-1"
-    elements: tuple[str, ...]   # element per atom (index atom-1)
-    ghost: tuple[bool, ...]     # ghost flag per atom
+    elements: tuple[str, ...]  # element per atom (index atom-1)
+    ghost: tuple[bool, ...]  # ghost flag per atom
 
     @property
     def n_functions(self) -> int:

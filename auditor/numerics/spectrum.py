@@ -1,10 +1,10 @@
 """What the audit knows about the eigenvalues of the normalized S, whichever path computed them."""
+
 from __future__ import annotations
 
 from dataclasses import dataclass
 
 import numpy as np
-
 
 #: size of the row blocks in which scans over S (bounds, findings) read it: a small,
 #: fixed extra beside S whatever its size
@@ -12,7 +12,7 @@ SCAN_BYTES = 8 << 20
 
 
 #: Decades at which eigenvalues are counted ("1e-03" ... "1e-10").
-COUNT_LEVELS: tuple[float, ...] = tuple(10.0 ** -k for k in range(3, 11))
+COUNT_LEVELS: tuple[float, ...] = tuple(10.0**-k for k in range(3, 11))
 
 
 def level_key(level: float) -> str:
@@ -71,8 +71,8 @@ def gershgorin_lower_bound(S: np.ndarray) -> float:
     block = max(16, SCAN_BYTES // max(1, 8 * n))
     worst = 0.0
     for start in range(0, n, block):
-        rows = np.abs(S[start:start + block])
-        off = rows.sum(axis=1) - np.abs(np.diagonal(S)[start:start + block])
+        rows = np.abs(S[start : start + block])
+        off = rows.sum(axis=1) - np.abs(np.diagonal(S)[start : start + block])
         worst = max(worst, float(off.max(initial=0.0)))
     return 1.0 - worst
 
@@ -90,8 +90,13 @@ def select_null_vectors(values: np.ndarray, level: float, min_vectors: int) -> i
 GROWTH_LEVEL = 1e-4
 
 
-def max_transform_element(values: np.ndarray, column_max: np.ndarray | None, n_removed: int,
-                          n_total: int | None = None, beyond: float | None = None) -> float | None:
+def max_transform_element(
+    values: np.ndarray,
+    column_max: np.ndarray | None,
+    n_removed: int,
+    n_total: int | None = None,
+    beyond: float | None = None,
+) -> float | None:
     """max |X_ij| of X = U_kept diag(lambda_kept)^-1/2 when the ``n_removed`` smallest
     directions go, or None when the computed columns cannot certify it.
 

@@ -1,4 +1,5 @@
 """The one result object that every writer reads."""
+
 from __future__ import annotations
 
 from dataclasses import dataclass, field
@@ -22,17 +23,17 @@ CAVEATS = (
 @dataclass(frozen=True)
 class InputInfo:
     path: str
-    frame: int            # 1-based
+    frame: int  # 1-based
     n_frames: int
-    basis: str            # BasisSpec.describe()
-    basis_spec: dict      # BasisSpec.as_dict()
+    basis: str  # BasisSpec.describe()
+    basis_spec: dict  # BasisSpec.as_dict()
     n_atoms: int
     n_functions: int
     n_shells: int
     ghost_atoms: tuple[int, ...]
     charge: int
     multiplicity: int | None
-    atoms: tuple[dict, ...]   # {"atom", "element", "ghost", "xyz"} with xyz in ångström
+    atoms: tuple[dict, ...]  # {"atom", "element", "ghost", "xyz"} with xyz in ångström
 
     def as_dict(self) -> dict:
         return {
@@ -60,7 +61,7 @@ class SpectrumInfo:
     counts_below: dict
     gershgorin_bound: float
     method: str
-    eigenvalues: tuple[float, ...]   # ascending; all on the full path
+    eigenvalues: tuple[float, ...]  # ascending; all on the full path
 
     def as_dict(self) -> dict:
         return {

@@ -1,4 +1,5 @@
 """The Python API: audit a geometry (path, ASE Atoms, pyscf Mole or Molecule)."""
+
 from __future__ import annotations
 
 import math
@@ -12,8 +13,14 @@ from .. import __version__
 from ..base.elements import element_symbol
 from ..base.errors import InputError, ResourceError, UsageError
 from ..diagnosis.causes import attribute_causes
-from ..diagnosis.findings import (SEVERITY_ORDER, Finding, crowding_findings, duplicate_findings, geometry_findings,
-                                  near_singular_finding)
+from ..diagnosis.findings import (
+    SEVERITY_ORDER,
+    Finding,
+    crowding_findings,
+    duplicate_findings,
+    geometry_findings,
+    near_singular_finding,
+)
 from ..diagnosis.verdict import Policy, decide
 from ..inputs.basis import BasisSpec, check_basis_name, parse_overrides
 from ..inputs.geometry import Molecule, molecule_from_atoms, parse_atom_numbers, read_geometry
@@ -83,13 +90,20 @@ def _from_mole(pm) -> tuple[Molecule, BasisSpec]:
         spec = BasisSpec("custom", over, bool(pm.cart))
     else:
         spec = BasisSpec("custom", {}, bool(pm.cart))
-    mol = Molecule(tuple(symbols), np.asarray(coords), tuple(ghost), charge=int(pm.charge),
-                   multiplicity=int(pm.spin) + 1, source="<pyscf Mole>")
+    mol = Molecule(
+        tuple(symbols),
+        np.asarray(coords),
+        tuple(ghost),
+        charge=int(pm.charge),
+        multiplicity=int(pm.spin) + 1,
+        source="<pyscf Mole>",
+    )
     return mol, spec
 
 
-def audit_prepared(prep: Prepared, policy: Policy | None = None, spectrum_method: str = "auto",
-                   remedies=True) -> AuditResult:
+def audit_prepared(
+    prep: Prepared, policy: Policy | None = None, spectrum_method: str = "auto", remedies=True
+) -> AuditResult:
     """Run the whole audit on a prepared geometry + basis.
 
     ``remedies``: True (default options), a ``prune.RemedyOptions``, or False to skip them.
@@ -199,8 +213,9 @@ def audit(
         if basis is None:
             check_memory(source.nao, spectrum_method)  # before S is built, as in prepare
             table = mole_function_table(source, mol, mole_spec)
-            return audit_prepared(Prepared(mol, mole_spec, source, table, normalized_overlap(source)),
-                                  policy, spectrum_method, remedies)
+            return audit_prepared(
+                Prepared(mol, mole_spec, source, table, normalized_overlap(source)), policy, spectrum_method, remedies
+            )
     elif isinstance(source, Molecule):
         mol = source
     elif hasattr(source, "get_positions") and hasattr(source, "get_chemical_symbols"):

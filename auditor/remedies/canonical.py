@@ -1,4 +1,5 @@
 """Canonical-orthogonalization advice from the spectrum of the normalized S."""
+
 from __future__ import annotations
 
 from dataclasses import dataclass
@@ -7,8 +8,8 @@ import numpy as np
 
 from ..numerics.spectrum import Spectrum
 
-CANDIDATES: tuple[float, ...] = tuple(10.0 ** -k for k in range(4, 10))  # 1e-4 ... 1e-9
-MIN_GAP_DECADES = 1.0   # a gap this wide in log10(lambda) is a natural cut
+CANDIDATES: tuple[float, ...] = tuple(10.0**-k for k in range(4, 10))  # 1e-4 ... 1e-9
+MIN_GAP_DECADES = 1.0  # a gap this wide in log10(lambda) is a natural cut
 GAP_WINDOW = (1e-9, 1e-4)
 
 
@@ -52,8 +53,7 @@ class Recommendation:
         }
 
 
-def find_gap(values: np.ndarray, window=GAP_WINDOW, min_decades: float = MIN_GAP_DECADES,
-             min_kept: float = 0.0):
+def find_gap(values: np.ndarray, window=GAP_WINDOW, min_decades: float = MIN_GAP_DECADES, min_kept: float = 0.0):
     """Widest gap in log10 of the ascending ``values`` whose midpoint lies in ``window``
     and whose upper edge (the smallest eigenvalue kept) is at least ``min_kept``.
 
@@ -75,7 +75,7 @@ def find_gap(values: np.ndarray, window=GAP_WINDOW, min_decades: float = MIN_GAP
         mid = 0.5 * (lo + hi)
         ok = width >= min_decades and lo_w <= mid <= hi_w and hi >= np.log10(max(min_kept, 1e-300))
         if ok and (best is None or width > best[3]):
-            best = (10.0 ** mid, 10.0 ** lo, 10.0 ** hi, width)
+            best = (10.0**mid, 10.0**lo, 10.0**hi, width)
     return best
 
 
@@ -101,12 +101,16 @@ def advise(spec: Spectrum, default_threshold: float, min_kept: float = 0.0) -> R
     gap = find_gap(spec.values, min_kept=min_kept)
     if gap is not None:
         tau = float(f"{gap[0]:.1e}")
-        reason = (f"the spectrum has a gap of {gap[3]:.1f} decades between {gap[1]:.2e} and "
-                  f"{gap[2]:.2e}; the threshold sits in its middle")
+        reason = (
+            f"the spectrum has a gap of {gap[3]:.1f} decades between {gap[1]:.2e} and "
+            f"{gap[2]:.2e}; the threshold sits in its middle"
+        )
     else:
         tau = default_threshold
-        reason = (f"no clear gap in the spectrum between {GAP_WINDOW[0]:.0e} and {GAP_WINDOW[1]:.0e}; "
-                  f"the policy default {default_threshold:.0e} is used")
+        reason = (
+            f"no clear gap in the spectrum between {GAP_WINDOW[0]:.0e} and {GAP_WINDOW[1]:.0e}; "
+            f"the policy default {default_threshold:.0e} is used"
+        )
     chosen = candidate(spec, tau)
     if chosen.n_removed == 0:
         reason += "; nothing falls below it, so no function needs removing"

@@ -1,5 +1,6 @@
 """Remedies a chemist can apply, ranked: canonical orthogonalization, a pivoted-Cholesky
 subset of functions, a shell-pruned per-atom basis, and dropping one element's diffuse shells."""
+
 from __future__ import annotations
 
 from dataclasses import dataclass, field
@@ -9,10 +10,9 @@ import numpy as np
 from ..base.errors import UsageError
 from ..numerics.cholesky import smallest_eigenvalue, verify_mode
 from ..numerics.memory import available_bytes
-from .trial_scf import check_method, trial_scf
 from .pruned_basis import function_record, pruned_basis, shell_record
 from .subset import Selection, check_atoms_not_emptied, check_target, select_for_target, shells_from_functions
-
+from .trial_scf import check_method, trial_scf
 
 #: Peak number of N x N arrays the remedies hold beside S, rounded up (measured: 2.07 at
 #: N = 11960, audit with remedies on the large path: the pivoted factor, then the shifted
@@ -34,14 +34,16 @@ def diffuse_element_options(S: np.ndarray, table, target: float) -> list[dict]:
             continue
         low = smallest_eigenvalue(S, kept)
         shells = np.unique(table.func_shell[drop])
-        out.append({
-            "element": str(el),
-            "removed": int(drop.sum()),
-            "shells": len(shells),
-            "shell_names": sorted({table.shell_name[s][-1] + f" {table.shell_exponent[s]:.4g}" for s in shells}),
-            "smallest_after": low,
-            "reaches_target": bool(low >= target),
-        })
+        out.append(
+            {
+                "element": str(el),
+                "removed": int(drop.sum()),
+                "shells": len(shells),
+                "shell_names": sorted({table.shell_name[s][-1] + f" {table.shell_exponent[s]:.4g}" for s in shells}),
+                "smallest_after": low,
+                "reaches_target": bool(low >= target),
+            }
+        )
     return out
 
 
@@ -80,8 +82,11 @@ class RemedyPlan:
         if self.shells is not None and table is not None:
             s = self.shells
             out["cholesky_shells"] = {
-                "chosen_by": ("shell pivoting" if s.search != "from-functions"
-                              else "shells the function-level subset leaves whole"),
+                "chosen_by": (
+                    "shell pivoting"
+                    if s.search != "from-functions"
+                    else "shells the function-level subset leaves whole"
+                ),
                 "tolerance": s.tolerance,
                 "smallest_kept": s.smallest_kept,
                 "factorizations": s.factorizations,
@@ -96,8 +101,9 @@ class RemedyPlan:
         return out
 
 
-def _best_shell_selection(S, table, target, functions, atoms, mode, problems,
-                          shell_pivoting: bool = True) -> Selection | None:
+def _best_shell_selection(
+    S, table, target, functions, atoms, mode, problems, shell_pivoting: bool = True
+) -> Selection | None:
     """The whole-shell kept set that drops fewer functions: shell pivoting, or the shells the
     function-level subset leaves untouched (both followed by the add-back pass).
 
@@ -127,13 +133,21 @@ def _best_shell_selection(S, table, target, functions, atoms, mode, problems,
 
 
 def _alt(kind, title, removed, unit, smallest, target, how, **extra) -> dict:
-    return {"kind": kind, "title": title, "removed": removed, "unit": unit,
-            "smallest_after": smallest, "reaches_target": bool(smallest is not None and smallest >= target),
-            "how": how, **extra}
+    return {
+        "kind": kind,
+        "title": title,
+        "removed": removed,
+        "unit": unit,
+        "smallest_after": smallest,
+        "reaches_target": bool(smallest is not None and smallest >= target),
+        "how": how,
+        **extra,
+    }
 
 
-def plan_remedies(prep, recommendation, smallest: float, target: float, force: bool = False,
-                  shell_pivoting: bool = True) -> RemedyPlan:
+def plan_remedies(
+    prep, recommendation, smallest: float, target: float, force: bool = False, shell_pivoting: bool = True
+) -> RemedyPlan:
     """Work out every remedy for a prepared geometry and rank them.
 
     ``smallest`` is the full basis's smallest eigenvalue; when it already meets the
@@ -150,55 +164,94 @@ def plan_remedies(prep, recommendation, smallest: float, target: float, force: b
     need = REMEDY_COPIES * 8 * n * n
     free = available_bytes()
     if need > free:
-        plan.problems.append(f"remedies skipped: about {need / 1024 ** 3:.1f} GiB would be needed beside S, "
-                             f"{free / 1024 ** 3:.1f} GiB is available")
+        plan.problems.append(
+            f"remedies skipped: about {need / 1024**3:.1f} GiB would be needed beside S, "
+            f"{free / 1024**3:.1f} GiB is available"
+        )
         return plan
     mode = verify_mode(n)
     atoms = table.func_atom - 1
 
     rec = recommendation
-    plan.alternatives.append(_alt(
-        "canonical_orthogonalization", f"canonical orthogonalization at {rec.threshold:.1e}",
-        rec.n_removed, "directions", rec.smallest_kept, target,
-        "keep the basis; drop eigenvectors of S below the threshold (canonical orthogonalization section)",
-        threshold=rec.threshold))
+    plan.alternatives.append(
+        _alt(
+            "canonical_orthogonalization",
+            f"canonical orthogonalization at {rec.threshold:.1e}",
+            rec.n_removed,
+            "directions",
+            rec.smallest_kept,
+            target,
+            "keep the basis; drop eigenvectors of S below the threshold (canonical orthogonalization section)",
+            threshold=rec.threshold,
+        )
+    )
     try:
         plan.functions = select_for_target(S, target, atom_of_function=atoms, verify=mode)
         f = plan.functions
-        plan.alternatives.append(_alt(
-            "cholesky_functions", "pivoted-Cholesky subset of functions", f.n_dropped, "functions",
-            f.smallest_kept, target, "drop single functions (not rotationally invariant)",
-            tolerance=f.tolerance))
+        plan.alternatives.append(
+            _alt(
+                "cholesky_functions",
+                "pivoted-Cholesky subset of functions",
+                f.n_dropped,
+                "functions",
+                f.smallest_kept,
+                target,
+                "drop single functions (not rotationally invariant)",
+                tolerance=f.tolerance,
+            )
+        )
     except UsageError as exc:
         plan.problems.append(f"pivoted-Cholesky subset: {exc.message}")
-    plan.shells = _best_shell_selection(S, table, target, plan.functions, atoms, mode, plan.problems,
-                                        shell_pivoting)
+    plan.shells = _best_shell_selection(S, table, target, plan.functions, atoms, mode, plan.problems, shell_pivoting)
     if plan.shells is not None:
         s = plan.shells
         try:
             plan.pruned = pruned_basis(prep, s.kept_shells, target, s.smallest_kept)
-            plan.alternatives.append(_alt(
-                "cholesky_shells", "shell-pruned basis (whole shells, pivoted Cholesky)", s.n_dropped,
-                "functions", s.smallest_kept, target,
-                "auditor prune writes it as a pyscf basis (JSON)",
-                tolerance=s.tolerance, shells_removed=len(s.dropped_shells)))
+            plan.alternatives.append(
+                _alt(
+                    "cholesky_shells",
+                    "shell-pruned basis (whole shells, pivoted Cholesky)",
+                    s.n_dropped,
+                    "functions",
+                    s.smallest_kept,
+                    target,
+                    "auditor prune writes it as a pyscf basis (JSON)",
+                    tolerance=s.tolerance,
+                    shells_removed=len(s.dropped_shells),
+                )
+            )
         except UsageError as exc:
             plan.problems.append(f"shell-pruned basis: {exc.message}")
     plan.diffuse = diffuse_element_options(S, table, target)
     for opt in plan.diffuse:
         if opt["reaches_target"]:
-            plan.alternatives.append(_alt(
-                "drop_diffuse_element", f"drop the diffuse shells of {opt['element']} everywhere",
-                opt["removed"], "functions", opt["smallest_after"], target,
-                f"use the parent basis without augmentation for {opt['element']} (e.g. --basis-for)",
-                element=opt["element"]))
+            plan.alternatives.append(
+                _alt(
+                    "drop_diffuse_element",
+                    f"drop the diffuse shells of {opt['element']} everywhere",
+                    opt["removed"],
+                    "functions",
+                    opt["smallest_after"],
+                    target,
+                    f"use the parent basis without augmentation for {opt['element']} (e.g. --basis-for)",
+                    element=opt["element"],
+                )
+            )
     # Ties: the larger smallest eigenvalue (to 3 digits), then whole-shell remedies first.
-    prefer = {"cholesky_shells": 0, "drop_diffuse_element": 1, "cholesky_functions": 2,
-              "canonical_orthogonalization": 3}
-    plan.alternatives.sort(key=lambda a: (not a["reaches_target"],
-                                          a["removed"] if a["removed"] is not None else n,
-                                          -float(f"{a['smallest_after'] or 0.0:.2e}"),
-                                          prefer[a["kind"]]))
+    prefer = {
+        "cholesky_shells": 0,
+        "drop_diffuse_element": 1,
+        "cholesky_functions": 2,
+        "canonical_orthogonalization": 3,
+    }
+    plan.alternatives.sort(
+        key=lambda a: (
+            not a["reaches_target"],
+            a["removed"] if a["removed"] is not None else n,
+            -float(f"{a['smallest_after'] or 0.0:.2e}"),
+            prefer[a["kind"]],
+        )
+    )
     for k, a in enumerate(plan.alternatives, 1):
         a["rank"] = k
     return plan
@@ -222,16 +275,25 @@ class RemedyOptions:
 def make_plan(prep, recommendation, smallest: float, options: RemedyOptions, caution: float) -> RemedyPlan:
     """`plan_remedies` plus the opt-in trial SCF."""
     target = caution if options.target is None else options.target
-    plan = plan_remedies(prep, recommendation, smallest, target, force=options.force,
-                         shell_pivoting=options.shell_pivoting)
+    plan = plan_remedies(
+        prep, recommendation, smallest, target, force=options.force, shell_pivoting=options.shell_pivoting
+    )
     if options.trial_scf:
         if plan.needed or options.force:
-            plan.trial_scf = trial_scf(prep, options.trial_scf, recommendation.threshold, plan.pruned,
-                                       options.trial_max_functions, options.trial_time_limit)
+            plan.trial_scf = trial_scf(
+                prep,
+                options.trial_scf,
+                recommendation.threshold,
+                plan.pruned,
+                options.trial_max_functions,
+                options.trial_time_limit,
+            )
         else:
-            plan.trial_scf = {"method": check_method(options.trial_scf), "runs": [],
-                              "skipped": "trial SCF skipped: the basis already meets the target, "
-                                         "no remedy to compare"}
+            plan.trial_scf = {
+                "method": check_method(options.trial_scf),
+                "runs": [],
+                "skipped": "trial SCF skipped: the basis already meets the target, no remedy to compare",
+            }
     return plan
 
 

@@ -1,4 +1,5 @@
 """The pruned basis: a pyscf-ready document that keeps only some whole shells."""
+
 from __future__ import annotations
 
 import json
@@ -69,8 +70,7 @@ def pruned_basis(prep, kept_shells, target: float | None = None, smallest: float
     mol, table = prep.molecule, prep.table
     keep = np.zeros(table.n_shells, dtype=bool)
     keep[np.asarray(list(kept_shells), dtype=int)] = True
-    check_atoms_not_emptied(np.flatnonzero(keep[table.func_shell]), table.func_atom - 1,
-                            what="this pruning")
+    check_atoms_not_emptied(np.flatnonzero(keep[table.func_shell]), table.func_atom - 1, what="this pruning")
     entries = _shell_entries(prep.mole)
     if len(entries) != table.n_shells:
         raise InputError("pyscf shells and the function table disagree; cannot write a pruned basis")

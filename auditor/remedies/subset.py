@@ -14,6 +14,7 @@ Two facts drive the target search:
   one is the leading block of ``S[p, p] - target * I`` that is positive definite, which one
   ordinary Cholesky factorization finds (LAPACK reports the first leading minor that fails).
 """
+
 from __future__ import annotations
 
 import dataclasses
@@ -24,9 +25,15 @@ import scipy.linalg
 from scipy.linalg import lapack
 
 from ..base.errors import UsageError
-from ..numerics.cholesky import (CholeskyResult, _shell_index_lists, _smallest, check_overlap, pivoted_cholesky,
-                                 shell_pivoted_cholesky, smallest_from_factor)
-
+from ..numerics.cholesky import (
+    CholeskyResult,
+    _shell_index_lists,
+    _smallest,
+    check_overlap,
+    pivoted_cholesky,
+    shell_pivoted_cholesky,
+    smallest_from_factor,
+)
 
 #: Relative rounding allowance at the target: lambda_min >= target * (1 - slack) passes.
 #: Without it a target of exactly 1 would fail on diagonals of 1 - 1e-16.
@@ -72,9 +79,7 @@ def check_target(target: float) -> float:
     except (TypeError, ValueError):
         raise UsageError(f"target smallest eigenvalue must be a number, got {target!r}") from None
     if not np.isfinite(value) or value <= 0.0 or value > 1.0:
-        raise UsageError(
-            f"target smallest eigenvalue must lie in (0, 1] for a unit-diagonal overlap, got {target!r}"
-        )
+        raise UsageError(f"target smallest eigenvalue must lie in (0, 1] for a unit-diagonal overlap, got {target!r}")
     return value
 
 
@@ -215,8 +220,9 @@ def select_for_target(
         # The add-back pass works on the factor of S[order, order] - goal*I, and a prefix of
         # its result serves every check below: release the N x N pivoted factor first.
         res = dataclasses.replace(res, factor=None)
-        order, blocks, factor = _add_back(S, order, _leftover_groups(res, k, shells, n), goal,
-                                          prefix_factor if search == "shifted" else None)
+        order, blocks, factor = _add_back(
+            S, order, _leftover_groups(res, k, shells, n), goal, prefix_factor if search == "shifted" else None
+        )
         facts += 1
     pivoted = res.factor
     if mode != "none" and not (checked and not blocks):
@@ -337,8 +343,7 @@ def _leftover_groups(res: CholeskyResult, k: int, shells, n: int) -> list[np.nda
     return [groups[s] for s in later + never]
 
 
-def _add_back(S: np.ndarray, order: np.ndarray, groups: list[np.ndarray], goal: float,
-              L: np.ndarray | None = None):
+def _add_back(S: np.ndarray, order: np.ndarray, groups: list[np.ndarray], goal: float, L: np.ndarray | None = None):
     """Greedily append each group (in turn) while ``S[kept, kept] - goal*I`` stays positive
     definite, by extending its Cholesky factor (``L``, lower, when the caller has it). A
     group that fails once can never fit later (adding functions only lowers the smallest

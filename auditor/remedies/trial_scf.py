@@ -6,10 +6,10 @@ removed. Both are variational in a subspace of the full basis, so both energies 
 above the full-basis energy; the difference between them is what choosing one remedy over
 the other costs. Guarded by a size limit and a per-run time limit.
 """
+
 from __future__ import annotations
 
 import time
-
 
 from ..base.errors import UsageError
 from ..inputs.pruned import load_pruned_doc
@@ -38,8 +38,7 @@ def check_method(method: str) -> str:
     return name
 
 
-def run_scf(mol, method: str, threshold: float, time_limit: float = TIME_LIMIT,
-            conv_tol: float = 1e-9) -> dict:
+def run_scf(mol, method: str, threshold: float, time_limit: float = TIME_LIMIT, conv_tol: float = 1e-9) -> dict:
     """One SCF on pyscf Mole ``mol`` with canonical orthogonalization at ``threshold``
     (0 keeps every direction). Returns convergence, cycles, energy and timing."""
     from pyscf import dft, scf
@@ -60,16 +59,28 @@ def run_scf(mol, method: str, threshold: float, time_limit: float = TIME_LIMIT,
             raise _OutOfTime
 
     mf.callback = watch
-    out = {"n_functions": int(mol.nao), "directions_removed": int(mol.nao - X.shape[1]),
-           "threshold": threshold}
+    out = {"n_functions": int(mol.nao), "directions_removed": int(mol.nao - X.shape[1]), "threshold": threshold}
     try:
         energy = mf.kernel()
     except _OutOfTime:
-        return {**out, "status": "stopped", "converged": False, "cycles": getattr(mf, "cycles", None),
-                "energy": None, "seconds": round(time.perf_counter() - start, 2),
-                "note": f"stopped after the time limit of {time_limit:g} s"}
-    return {**out, "status": "done", "converged": bool(mf.converged), "cycles": getattr(mf, "cycles", None),
-            "energy": float(energy), "seconds": round(time.perf_counter() - start, 2), "note": ""}
+        return {
+            **out,
+            "status": "stopped",
+            "converged": False,
+            "cycles": getattr(mf, "cycles", None),
+            "energy": None,
+            "seconds": round(time.perf_counter() - start, 2),
+            "note": f"stopped after the time limit of {time_limit:g} s",
+        }
+    return {
+        **out,
+        "status": "done",
+        "converged": bool(mf.converged),
+        "cycles": getattr(mf, "cycles", None),
+        "energy": float(energy),
+        "seconds": round(time.perf_counter() - start, 2),
+        "note": "",
+    }
 
 
 def scf_mole(prep):
@@ -81,19 +92,32 @@ def scf_mole(prep):
     return m
 
 
-def trial_scf(prep, method: str, threshold: float, pruned_doc: dict | None,
-              max_functions: int = MAX_FUNCTIONS, time_limit: float = TIME_LIMIT) -> dict:
+def trial_scf(
+    prep,
+    method: str,
+    threshold: float,
+    pruned_doc: dict | None,
+    max_functions: int = MAX_FUNCTIONS,
+    time_limit: float = TIME_LIMIT,
+) -> dict:
     """Full basis at ``threshold`` versus the pruned basis; energies in hartree and the
     difference in microhartree. Skipped, with the reason, above ``max_functions``."""
     method = check_method(method)
     n = prep.table.n_functions
-    out = {"method": method, "max_functions": max_functions, "time_limit_seconds": time_limit,
-           "runs": [], "difference_microhartree": None,
-           "reminder": "Removing directions changes total energies, and thresholds are judgement calls: "
-                       "compare energies only between runs that removed the same directions."}
+    out = {
+        "method": method,
+        "max_functions": max_functions,
+        "time_limit_seconds": time_limit,
+        "runs": [],
+        "difference_microhartree": None,
+        "reminder": "Removing directions changes total energies, and thresholds are judgement calls: "
+        "compare energies only between runs that removed the same directions.",
+    }
     if n > max_functions:
-        out["skipped"] = (f"trial SCF skipped: {n} basis functions exceed the limit of {max_functions} "
-                          "(raise it with --trial-max-functions)")
+        out["skipped"] = (
+            f"trial SCF skipped: {n} basis functions exceed the limit of {max_functions} "
+            "(raise it with --trial-max-functions)"
+        )
         return out
     out["skipped"] = None
     try:

@@ -5,6 +5,7 @@ Every number shown comes from the result; each carries its full value and its pl
 the JSON report (``data-key``, ``data-value``) so that the two can be checked against
 each other.
 """
+
 from __future__ import annotations
 
 import base64
@@ -20,8 +21,9 @@ from ..diagnosis.findings import SEVERITY_ORDER
 from .style import PAGE_CSS
 from .text import vectors_note
 
-
-CSS = PAGE_CSS + """
+CSS = (
+    PAGE_CSS
+    + """
 main { max-width: 1080px; margin: 0 auto; padding: 20px 28px 40px; }
 h2 { font-size: 1.2em; margin: 1.8em 0 0.5em; padding-bottom: 4px; border-bottom: 2px solid var(--line); }
 h3 { font-size: 1.0em; margin: 1.2em 0 0.4em; }
@@ -52,6 +54,7 @@ ul.caveats li { margin-bottom: 4px; }
 details summary { cursor: pointer; color: var(--accent); margin: 4px 0; }
 @media print { nav { display: none; } main { max-width: none; } h2 { break-after: avoid; } figure { break-inside: avoid; } }
 """
+)
 
 
 def _d(result) -> dict:
@@ -64,24 +67,25 @@ def _value_attr(value) -> str:
     return json.dumps(value)
 
 
-
-
 def num(key: str, value, spec: str = ".3e", none: str = "not computed") -> str:
     """A number as shown, tagged with its JSON path and full value."""
     if value is None or (isinstance(value, float) and not math.isfinite(value)):
         shown = none
     else:
         shown = format(value, spec)
-    return (f'<span class="num" data-key="{escape(key)}" data-value="{escape(_value_attr(value))}">'
-            f"{escape(shown)}</span>")
+    return (
+        f'<span class="num" data-key="{escape(key)}" data-value="{escape(_value_attr(value))}">{escape(shown)}</span>'
+    )
 
 
 def _img(png: bytes | None, alt: str, caption: str) -> str:
     if not png:
         return ""
     data = base64.b64encode(png).decode("ascii")
-    return (f'<figure><img src="data:image/png;base64,{data}" alt="{escape(alt)}">'
-            f"<figcaption>{caption}</figcaption></figure>")
+    return (
+        f'<figure><img src="data:image/png;base64,{data}" alt="{escape(alt)}">'
+        f"<figcaption>{caption}</figcaption></figure>"
+    )
 
 
 def _atoms_text(atoms, limit: int = 12) -> str:
@@ -94,32 +98,46 @@ def explanation(d: dict) -> str:
     sp, c, rec, inp = d["spectrum"], d["causes"], d["recommendation"], d["input"]
     parts = [escape(d["verdict_reason"][:1].upper() + d["verdict_reason"][1:]) + "."]
     lc = sp["log10_condition"]
-    smallest = ("" if "smallest eigenvalue" in d["verdict_reason"] else
-                f" (smallest eigenvalue {num('spectrum.smallest', sp['smallest'])})")
+    smallest = (
+        ""
+        if "smallest eigenvalue" in d["verdict_reason"]
+        else f" (smallest eigenvalue {num('spectrum.smallest', sp['smallest'])})"
+    )
     if lc is None:
-        parts.append(f"The unit-diagonal overlap matrix is singular to rounding{smallest}: some basis "
-                     "functions are exact combinations of others.")
+        parts.append(
+            f"The unit-diagonal overlap matrix is singular to rounding{smallest}: some basis "
+            "functions are exact combinations of others."
+        )
     else:
-        parts.append(f"Log10 of the condition number of the unit-diagonal overlap matrix is "
-                     f"{num('spectrum.log10_condition', lc, '.1f')}{smallest}: roughly that many decimal "
-                     "digits are lost when the basis is orthogonalized.")
+        parts.append(
+            f"Log10 of the condition number of the unit-diagonal overlap matrix is "
+            f"{num('spectrum.log10_condition', lc, '.1f')}{smallest}: roughly that many decimal "
+            "digits are lost when the basis is orthogonalized."
+        )
     errors = [f for f in d["findings"] if f["severity"] == "error" and f["kind"] != "near_singular"]
     if errors:
         parts.append("The geometry itself needs attention first: " + escape(errors[0]["message"]))
     top = [(i, a) for i, a in enumerate(c["atoms"][:3]) if a["weight"] >= 0.05]
     if top:
-        who = ", ".join(f"{escape(a['element'])}{a['atom']} ({num(f'causes.atoms.{i}.weight', a['weight'], '.0%')})"
-                        for i, a in top)
-        parts.append(f"The near-null space sits mostly on {who}; diffuse shells carry "
-                     f"{num('causes.diffuse.diffuse', c['diffuse']['diffuse'], '.0%')} of it.")
+        who = ", ".join(
+            f"{escape(a['element'])}{a['atom']} ({num(f'causes.atoms.{i}.weight', a['weight'], '.0%')})" for i, a in top
+        )
+        parts.append(
+            f"The near-null space sits mostly on {who}; diffuse shells carry "
+            f"{num('causes.diffuse.diffuse', c['diffuse']['diffuse'], '.0%')} of it."
+        )
     if rec["n_removed"]:
-        parts.append(f"Canonical orthogonalization with threshold "
-                     f"{num('recommendation.threshold', rec['threshold'], '.1e')} removes "
-                     f"{num('recommendation.n_removed', rec['n_removed'], 'd')} of "
-                     f"{num('input.n_functions', inp['n_functions'], 'd')} functions.")
+        parts.append(
+            f"Canonical orthogonalization with threshold "
+            f"{num('recommendation.threshold', rec['threshold'], '.1e')} removes "
+            f"{num('recommendation.n_removed', rec['n_removed'], 'd')} of "
+            f"{num('input.n_functions', inp['n_functions'], 'd')} functions."
+        )
     elif rec["n_removed"] == 0:
-        parts.append(f"At the advised threshold {num('recommendation.threshold', rec['threshold'], '.1e')} "
-                     "no function would be removed.")
+        parts.append(
+            f"At the advised threshold {num('recommendation.threshold', rec['threshold'], '.1e')} "
+            "no function would be removed."
+        )
     return " ".join(parts)
 
 
@@ -156,8 +174,9 @@ def _spectrum_tables(d: dict) -> str:
     counts = "".join(
         f'<tr><td class="n">{escape(k)}</td><td class="n">'
         f"{num(f'spectrum.counts_below.{k}', v, 'd', 'not counted')}</td></tr>"
-        for k, v in sp["counts_below"].items())
-    right = ('<table><tr><th class="n">below</th><th class="n">eigenvalues</th></tr>' + counts + "</table>")
+        for k, v in sp["counts_below"].items()
+    )
+    right = '<table><tr><th class="n">below</th><th class="n">eigenvalues</th></tr>' + counts + "</table>"
     return f'<div class="grid"><div>{left}</div><div>{right}</div></div>'
 
 
@@ -166,16 +185,19 @@ def _causes_tables(d: dict, limit: int = 12) -> str:
     arows = "".join(
         f"<tr><td>{a['atom']}</td><td>{escape(a['element'])}</td><td>{'ghost' if a['ghost'] else ''}</td>"
         f'<td class="n">{num(f"causes.atoms.{i}.weight", a["weight"], ".3f")}</td></tr>'
-        for i, a in enumerate(c["atoms"][:limit]))
+        for i, a in enumerate(c["atoms"][:limit])
+    )
     srows = "".join(
         f"<tr><td>{escape(s['shell'])}</td><td>{escape(str(s['l']))}</td>"
         f'<td class="n">{num(f"causes.shells.{i}.exponent", s["exponent"], ".4g")}</td>'
         f"<td>{'yes' if s['diffuse'] else ''}</td>"
         f'<td class="n">{num(f"causes.shells.{i}.weight", s["weight"], ".3f")}</td></tr>'
-        for i, s in enumerate(c["shells"][:limit]))
+        for i, s in enumerate(c["shells"][:limit])
+    )
     lrows = "".join(
-        f"<tr><td>{escape(str(x['l']))}</td><td class=\"n\">{num(f'causes.angular.{i}.weight', x['weight'], '.3f')}</td></tr>"
-        for i, x in enumerate(c["angular"]))
+        f'<tr><td>{escape(str(x["l"]))}</td><td class="n">{num(f"causes.angular.{i}.weight", x["weight"], ".3f")}</td></tr>'
+        for i, x in enumerate(c["angular"])
+    )
     return (
         '<div class="grid">'
         '<div><h3>Atoms</h3><table><tr><th>atom</th><th>element</th><th></th><th class="n">share</th></tr>'
@@ -195,20 +217,22 @@ def _findings(d: dict) -> str:
         f'<tr><td><span class="sev sev-{escape(f["severity"])}">{escape(f["severity"])}</span></td>'
         f"<td><code>{escape(f['kind'])}</code></td><td>{escape(_atoms_text(f['atoms']))}</td>"
         f"<td>{escape(f['message'])}</td></tr>"
-        for _, f in fs)
-    return ("<table><tr><th>severity</th><th>kind</th><th>atoms</th><th>what it means</th></tr>"
-            f"{rows}</table>")
+        for _, f in fs
+    )
+    return f"<table><tr><th>severity</th><th>kind</th><th>atoms</th><th>what it means</th></tr>{rows}</table>"
 
 
 def _advice(d: dict) -> str:
     rec, n = d["recommendation"], d["input"]["n_functions"]
-    head = (f"<p>Advised threshold <strong>τ = {num('recommendation.threshold', rec['threshold'], '.1e')}</strong>: "
-            f"{escape(rec['reason'])}. Eigenvectors of S with eigenvalue below τ are dropped and the rest are "
-            f"scaled, X = U<sub>k</sub> Λ<sub>k</sub><sup>-1/2</sup>. This removes "
-            f"{num('recommendation.n_removed', rec['n_removed'], 'd')} of "
-            f"{num('input.n_functions', n, 'd')} functions; the smallest kept eigenvalue is "
-            f"{num('recommendation.smallest_kept', rec['smallest_kept'])} and the largest element of X is "
-            f"{num('recommendation.max_transform_element', rec['max_transform_element'], '.1f')}.</p>")
+    head = (
+        f"<p>Advised threshold <strong>τ = {num('recommendation.threshold', rec['threshold'], '.1e')}</strong>: "
+        f"{escape(rec['reason'])}. Eigenvectors of S with eigenvalue below τ are dropped and the rest are "
+        f"scaled, X = U<sub>k</sub> Λ<sub>k</sub><sup>-1/2</sup>. This removes "
+        f"{num('recommendation.n_removed', rec['n_removed'], 'd')} of "
+        f"{num('input.n_functions', n, 'd')} functions; the smallest kept eigenvalue is "
+        f"{num('recommendation.smallest_kept', rec['smallest_kept'])} and the largest element of X is "
+        f"{num('recommendation.max_transform_element', rec['max_transform_element'], '.1f')}.</p>"
+    )
     rows = []
     for i, c in enumerate(rec["candidates"]):
         chosen = ' class="chosen"' if c["threshold"] == rec["threshold"] else ""
@@ -217,10 +241,14 @@ def _advice(d: dict) -> str:
             f'<tr{chosen}><td class="n">{num(k + ".threshold", c["threshold"], ".0e")}</td>'
             f'<td class="n">{num(k + ".n_removed", c["n_removed"], "d")}</td>'
             f'<td class="n">{num(k + ".smallest_kept", c["smallest_kept"])}</td>'
-            f'<td class="n">{num(k + ".max_transform_element", c["max_transform_element"], ".1f")}</td></tr>')
-    table = ('<table><tr><th class="n">threshold τ</th><th class="n">functions removed</th>'
-             '<th class="n">smallest kept eigenvalue</th><th class="n">largest element of X</th></tr>'
-             + "".join(rows) + "</table>")
+            f'<td class="n">{num(k + ".max_transform_element", c["max_transform_element"], ".1f")}</td></tr>'
+        )
+    table = (
+        '<table><tr><th class="n">threshold τ</th><th class="n">functions removed</th>'
+        '<th class="n">smallest kept eigenvalue</th><th class="n">largest element of X</th></tr>'
+        + "".join(rows)
+        + "</table>"
+    )
     how = f"<h3>Applying it in pyscf</h3><pre><code>{escape(rec['how_to'])}</code></pre>"
     return head + table + how
 
@@ -243,8 +271,9 @@ def _generic(value, key: str, depth: int = 0) -> str:
             return f"<pre><code>{escape(value)}</code></pre>"
         return escape(value)
     if isinstance(value, dict):
-        rows = "".join(f"<tr><th>{_label(k)}</th><td>{_generic(v, f'{key}.{k}', depth + 1)}</td></tr>"
-                       for k, v in value.items())
+        rows = "".join(
+            f"<tr><th>{_label(k)}</th><td>{_generic(v, f'{key}.{k}', depth + 1)}</td></tr>" for k, v in value.items()
+        )
         return f"<table>{rows}</table>"
     if isinstance(value, (list, tuple)):
         if not value:
@@ -255,17 +284,27 @@ def _generic(value, key: str, depth: int = 0) -> str:
                 cols += [k for k in v if k not in cols]
             head = "".join(f"<th>{_label(k)}</th>" for k in cols)
             body = "".join(
-                "<tr>" + "".join(f"<td>{_generic(v[k], f'{key}.{i}.{k}', depth + 1) if k in v else ''}</td>"
-                                 for k in cols) + "</tr>"
-                for i, v in enumerate(value))
+                "<tr>"
+                + "".join(f"<td>{_generic(v[k], f'{key}.{i}.{k}', depth + 1) if k in v else ''}</td>" for k in cols)
+                + "</tr>"
+                for i, v in enumerate(value)
+            )
             return f"<table><tr>{head}</tr>{body}</table>"
         return ", ".join(_generic(v, f"{key}.{i}", depth + 1) for i, v in enumerate(value))
     return escape(str(value))
 
 
 MAX_REMEDY_ROWS = 40
-_KNOWN_REMEDY_KEYS = {"target", "needed", "alternatives", "problems", "cholesky_shells", "cholesky_functions",
-                      "diffuse_by_element", "trial_scf"}
+_KNOWN_REMEDY_KEYS = {
+    "target",
+    "needed",
+    "alternatives",
+    "problems",
+    "cholesky_shells",
+    "cholesky_functions",
+    "diffuse_by_element",
+    "trial_scf",
+}
 
 
 def _yes(flag) -> str:
@@ -275,8 +314,11 @@ def _yes(flag) -> str:
 def _capped_table(n_all: int, what: str, heads: list[str], rows: str) -> str:
     """A folded table of the first MAX_REMEDY_ROWS rows, with a last row saying how many
     more the JSON report holds."""
-    more = (f'<tr><td colspan="{len(heads)}">… {n_all - MAX_REMEDY_ROWS} more in the JSON report</td></tr>'
-            if n_all > MAX_REMEDY_ROWS else "")
+    more = (
+        f'<tr><td colspan="{len(heads)}">… {n_all - MAX_REMEDY_ROWS} more in the JSON report</td></tr>'
+        if n_all > MAX_REMEDY_ROWS
+        else ""
+    )
     return _fold(n_all, what, f"<table><tr>{''.join(heads)}</tr>{rows}{more}</table>")
 
 
@@ -307,8 +349,10 @@ def _remedies(d: dict) -> str:
     if not rem.get("needed") and not alts:
         out.append(f"<p>The smallest eigenvalue already reaches the target {target}; nothing needs removing.</p>")
     else:
-        out.append(f"<p>Each remedy below is judged by whether the smallest eigenvalue of what it keeps reaches "
-                   f"the target {target}; those that do come first, then those that remove least.</p>")
+        out.append(
+            f"<p>Each remedy below is judged by whether the smallest eigenvalue of what it keeps reaches "
+            f"the target {target}; those that do come first, then those that remove least.</p>"
+        )
         rows = "".join(
             f'<tr><td class="n">{num(f"remedies.alternatives.{i}.rank", a.get("rank"), "d", "")}</td>'
             f"<td>{escape(str(a.get('title', a.get('kind', ''))))}</td>"
@@ -316,49 +360,84 @@ def _remedies(d: dict) -> str:
             f"{escape(str(a.get('unit', '')))}</td>"
             f'<td class="n">{num(f"remedies.alternatives.{i}.smallest_after", a.get("smallest_after"))}</td>'
             f"<td>{_yes(a.get('reaches_target'))}</td><td>{escape(str(a.get('how', '')))}</td></tr>"
-            for i, a in enumerate(alts))
-        out.append('<table><tr><th class="n">rank</th><th>remedy</th>'
-                   f'<th class="n">removes (of {n})</th><th class="n">smallest eigenvalue after</th>'
-                   f"<th>reaches target</th><th>how</th></tr>{rows}</table>")
+            for i, a in enumerate(alts)
+        )
+        out.append(
+            '<table><tr><th class="n">rank</th><th>remedy</th>'
+            f'<th class="n">removes (of {n})</th><th class="n">smallest eigenvalue after</th>'
+            f"<th>reaches target</th><th>how</th></tr>{rows}</table>"
+        )
     for prob in rem.get("problems") or []:
         out.append(f"<p>Not available: {escape(str(prob))}.</p>")
     sh = rem.get("cholesky_shells")
     if sh:
-        how = ("Pivoted Cholesky over whole shells" if sh.get("chosen_by") == "shell pivoting"
-               else "Keeping the shells that the pivoted-Cholesky subset of functions leaves whole")
-        out.append(f"<h3>Shell-pruned basis</h3><p>{how} (tolerance "
-                   f"{num('remedies.cholesky_shells.tolerance', sh.get('tolerance'), '.2e')}) keeps "
-                   f"{num('remedies.cholesky_shells.kept', sh.get('kept'), 'd')} of {n} functions; the smallest "
-                   f"eigenvalue of the kept set is "
-                   f"{num('remedies.cholesky_shells.smallest_kept', sh.get('smallest_kept'))}. Shells dropped:</p>")
+        how = (
+            "Pivoted Cholesky over whole shells"
+            if sh.get("chosen_by") == "shell pivoting"
+            else "Keeping the shells that the pivoted-Cholesky subset of functions leaves whole"
+        )
+        out.append(
+            f"<h3>Shell-pruned basis</h3><p>{how} (tolerance "
+            f"{num('remedies.cholesky_shells.tolerance', sh.get('tolerance'), '.2e')}) keeps "
+            f"{num('remedies.cholesky_shells.kept', sh.get('kept'), 'd')} of {n} functions; the smallest "
+            f"eigenvalue of the kept set is "
+            f"{num('remedies.cholesky_shells.smallest_kept', sh.get('smallest_kept'))}. Shells dropped:</p>"
+        )
         dropped = sh.get("dropped_shells") or []
         rows = "".join(
             f"<tr><td>{_where(x)}</td><td>{escape(_l(x['l']))}</td>"
             f'<td class="n">{num(f"remedies.cholesky_shells.dropped_shells.{i}.exponent", x["exponent"], ".4g")}</td>'
             f"<td>{'yes' if x.get('diffuse') else ''}</td>"
             f'<td class="n">{num(f"remedies.cholesky_shells.dropped_shells.{i}.functions", x["functions"], "d")}</td></tr>'
-            for i, x in enumerate(dropped[:MAX_REMEDY_ROWS]))
-        out.append(_capped_table(len(dropped), "shells dropped",
-                                 ["<th>atom and shell</th>", "<th>l</th>", '<th class="n">smallest exponent</th>',
-                                  "<th>diffuse</th>", '<th class="n">functions</th>'], rows))
+            for i, x in enumerate(dropped[:MAX_REMEDY_ROWS])
+        )
+        out.append(
+            _capped_table(
+                len(dropped),
+                "shells dropped",
+                [
+                    "<th>atom and shell</th>",
+                    "<th>l</th>",
+                    '<th class="n">smallest exponent</th>',
+                    "<th>diffuse</th>",
+                    '<th class="n">functions</th>',
+                ],
+                rows,
+            )
+        )
     fn = rem.get("cholesky_functions")
     if fn:
-        out.append(f"<h3>Pivoted-Cholesky subset of functions</h3><p>Tolerance "
-                   f"{num('remedies.cholesky_functions.tolerance', fn.get('tolerance'), '.2e')}, found in "
-                   f"{num('remedies.cholesky_functions.factorizations', fn.get('factorizations'), 'd')} "
-                   f"factorization(s); keeps {num('remedies.cholesky_functions.kept', fn.get('kept'), 'd')} of "
-                   f"{n} functions. Single functions are dropped, so the basis is no longer rotationally "
-                   "invariant. Functions dropped:</p>")
+        out.append(
+            f"<h3>Pivoted-Cholesky subset of functions</h3><p>Tolerance "
+            f"{num('remedies.cholesky_functions.tolerance', fn.get('tolerance'), '.2e')}, found in "
+            f"{num('remedies.cholesky_functions.factorizations', fn.get('factorizations'), 'd')} "
+            f"factorization(s); keeps {num('remedies.cholesky_functions.kept', fn.get('kept'), 'd')} of "
+            f"{n} functions. Single functions are dropped, so the basis is no longer rotationally "
+            "invariant. Functions dropped:</p>"
+        )
         dropped = fn.get("dropped") or []
         rows = "".join(
             f'<tr><td class="n">{x["function"]}</td><td>{_where(x)}</td><td>{escape(str(x["component"]))}</td>'
             f'<td class="n">{num(f"remedies.cholesky_functions.dropped.{i}.exponent", x["exponent"], ".4g")}</td></tr>'
-            for i, x in enumerate(dropped[:MAX_REMEDY_ROWS]))
-        out.append(_capped_table(len(dropped), "functions dropped",
-                                 ['<th class="n">function</th>', "<th>atom and shell</th>", "<th>component</th>",
-                                  '<th class="n">smallest exponent</th>'], rows))
+            for i, x in enumerate(dropped[:MAX_REMEDY_ROWS])
+        )
+        out.append(
+            _capped_table(
+                len(dropped),
+                "functions dropped",
+                [
+                    '<th class="n">function</th>',
+                    "<th>atom and shell</th>",
+                    "<th>component</th>",
+                    '<th class="n">smallest exponent</th>',
+                ],
+                rows,
+            )
+        )
     if rem.get("diffuse_by_element"):
-        out.append("<h3>Diffuse shells by element</h3>" + _generic(rem["diffuse_by_element"], "remedies.diffuse_by_element"))
+        out.append(
+            "<h3>Diffuse shells by element</h3>" + _generic(rem["diffuse_by_element"], "remedies.diffuse_by_element")
+        )
     tri = rem.get("trial_scf")
     if tri:
         out.append('<h3 id="trial-scf">Trial SCF</h3>')
@@ -375,14 +454,19 @@ def _remedies(d: dict) -> str:
                 f'<td class="n">{num(f"remedies.trial_scf.runs.{i}.energy", r.get("energy"), ".8f", "none")}</td>'
                 f'<td class="n">{num(f"remedies.trial_scf.runs.{i}.seconds", r.get("seconds"), ".1f", "")}</td>'
                 f"<td>{escape(str(r.get('note') or ''))}</td></tr>"
-                for i, r in enumerate(tri.get("runs") or []))
-            out.append('<table><tr><th>basis</th><th class="n">functions</th><th class="n">directions removed</th>'
-                       '<th>converged</th><th class="n">cycles</th><th class="n">energy (hartree)</th>'
-                       f'<th class="n">time (s)</th><th>note</th></tr>{rows}</table>')
+                for i, r in enumerate(tri.get("runs") or [])
+            )
+            out.append(
+                '<table><tr><th>basis</th><th class="n">functions</th><th class="n">directions removed</th>'
+                '<th>converged</th><th class="n">cycles</th><th class="n">energy (hartree)</th>'
+                f'<th class="n">time (s)</th><th>note</th></tr>{rows}</table>'
+            )
             diff = tri.get("difference_microhartree")
             if diff is not None:
-                out.append(f"<p>Pruned basis minus canonical orthogonalization: "
-                           f"{num('remedies.trial_scf.difference_microhartree', diff, '+.1f')} microhartree.</p>")
+                out.append(
+                    f"<p>Pruned basis minus canonical orthogonalization: "
+                    f"{num('remedies.trial_scf.difference_microhartree', diff, '+.1f')} microhartree.</p>"
+                )
             if tri.get("reminder"):
                 out.append(f"<p>{escape(str(tri['reminder']))}</p>")
     for k, v in rem.items():
@@ -412,33 +496,46 @@ def render_html(result, images: dict[str, bytes] | None = None) -> str:
         f"<title>{escape(title)}</title>",
         f"<style>{CSS}</style></head><body><main>",
         f"<h1>{escape(title)}</h1>",
-        (f'<p class="sub">Basis {escape(inp["basis"])}; {inp["n_atoms"]} atoms{ghosts}; '
-         f'{inp["n_functions"]} basis functions in {inp["n_shells"]} shells.</p>'),
-        ('<nav><a href="#spectrum">Spectrum</a><a href="#causes">Causes</a><a href="#geometry">Geometry</a>'
-         '<a href="#findings">Findings</a><a href="#advice">Orthogonalization</a>'
-         + ('<a href="#remedies">Remedies</a>' if d.get("remedies") else "")
-         + ('<a href="#trial-scf">Trial SCF</a>' if (d.get("remedies") or {}).get("trial_scf") else "")
-         + '<a href="#caveats">Read before acting</a></nav>'),
-        (f'<section class="verdict v-{escape(verdict)}" id="verdict"><span class="word" data-key="verdict" '
-         f'data-value="{escape(json.dumps(verdict))}">{escape(verdict.upper())}</span>'
-         f"<p>{explanation(d)}</p></section>"),
+        (
+            f'<p class="sub">Basis {escape(inp["basis"])}; {inp["n_atoms"]} atoms{ghosts}; '
+            f"{inp['n_functions']} basis functions in {inp['n_shells']} shells.</p>"
+        ),
+        (
+            '<nav><a href="#spectrum">Spectrum</a><a href="#causes">Causes</a><a href="#geometry">Geometry</a>'
+            '<a href="#findings">Findings</a><a href="#advice">Orthogonalization</a>'
+            + ('<a href="#remedies">Remedies</a>' if d.get("remedies") else "")
+            + ('<a href="#trial-scf">Trial SCF</a>' if (d.get("remedies") or {}).get("trial_scf") else "")
+            + '<a href="#caveats">Read before acting</a></nav>'
+        ),
+        (
+            f'<section class="verdict v-{escape(verdict)}" id="verdict"><span class="word" data-key="verdict" '
+            f'data-value="{escape(json.dumps(verdict))}">{escape(verdict.upper())}</span>'
+            f"<p>{explanation(d)}</p></section>"
+        ),
         '<h2 id="spectrum">Spectrum of the normalized overlap matrix</h2>',
-        _img(images.get("spectrum"), "Overlap eigenvalues on a log axis, smallest first, with the caution "
-             "and fail levels and the advised threshold",
-             "Eigenvalues of D<sup>-1/2</sup> S D<sup>-1/2</sup> (unit diagonal), smallest first, on a log axis. "
-             "Open circles are the directions the advised threshold removes."),
+        _img(
+            images.get("spectrum"),
+            "Overlap eigenvalues on a log axis, smallest first, with the caution "
+            "and fail levels and the advised threshold",
+            "Eigenvalues of D<sup>-1/2</sup> S D<sup>-1/2</sup> (unit diagonal), smallest first, on a log axis. "
+            "Open circles are the directions the advised threshold removes.",
+        ),
         _spectrum_tables(d),
         '<h2 id="causes">Where the near-null space sits</h2>',
-        _img(images.get("causes"), "Bar charts of the near-null-space share per atom, per angular momentum "
-             "and for diffuse shells",
-             f"Share of each atom, angular momentum and shell kind in {escape(vec_note)}; each chart adds up to 1."),
+        _img(
+            images.get("causes"),
+            "Bar charts of the near-null-space share per atom, per angular momentum and for diffuse shells",
+            f"Share of each atom, angular momentum and shell kind in {escape(vec_note)}; each chart adds up to 1.",
+        ),
         _causes_tables(d),
         '<h2 id="geometry">Geometry</h2>',
-        _img(images.get("molecule"), "The molecule projected onto its principal plane, atoms shaded by their "
-             "near-null-space share",
-             "Atoms on the plane of the two largest principal axes of the coordinates, shaded by their share "
-             "of the near-null space. Grey lines are bonds (distance below 1.2 times the covalent-radius sum); "
-             "red dashed lines or rings mark coincident atoms and short contacts from the findings."),
+        _img(
+            images.get("molecule"),
+            "The molecule projected onto its principal plane, atoms shaded by their near-null-space share",
+            "Atoms on the plane of the two largest principal axes of the coordinates, shaded by their share "
+            "of the near-null space. Grey lines are bonds (distance below 1.2 times the covalent-radius sum); "
+            "red dashed lines or rings mark coincident atoms and short contacts from the findings.",
+        ),
         _input_table(d),
         '<h2 id="findings">Findings</h2>',
         _findings(d),
@@ -447,8 +544,10 @@ def render_html(result, images: dict[str, bytes] | None = None) -> str:
         _remedies(d),
         '<h2 id="caveats">Read before acting</h2>',
         '<ul class="caveats">' + "".join(f"<li>{escape(x)}</li>" for x in d["caveats"]) + "</ul>",
-        (f"<footer>auditor {escape(str(d['version']))}, report schema {escape(str(d['schema']))}. "
-         "This page is self-contained: the figures are embedded and nothing is fetched from the network.</footer>"),
+        (
+            f"<footer>auditor {escape(str(d['version']))}, report schema {escape(str(d['schema']))}. "
+            "This page is self-contained: the figures are embedded and nothing is fetched from the network.</footer>"
+        ),
         "</main></body></html>",
         "",
     ]

@@ -1,4 +1,5 @@
 """JSON report (schema ``auditor-report/1``, documented in docs/json.md)."""
+
 from __future__ import annotations
 
 import json

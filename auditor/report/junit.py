@@ -1,4 +1,5 @@
 """JUnit XML of a gate run: one test case per item, read by CI systems."""
+
 from __future__ import annotations
 
 import math
@@ -34,8 +35,9 @@ def junit_xml(rows: list[dict], suite: str = "auditor gate", seconds: dict | Non
     counts = {"failures": 0, "errors": 0, "skipped": 0}
     cases = []
     for r in rows:
-        case = ET.Element("testcase", classname=r["path"], name=item_label(r),
-                          time=f"{seconds.get(r['item'], 0.0):.3f}")
+        case = ET.Element(
+            "testcase", classname=r["path"], name=item_label(r), time=f"{seconds.get(r['item'], 0.0):.3f}"
+        )
         outcome = r.get("outcome", "ok")
         if outcome in BLOCKING:
             if r["verdict"] == "error":
@@ -44,7 +46,9 @@ def junit_xml(rows: list[dict], suite: str = "auditor gate", seconds: dict | Non
             else:
                 tag, counts["failures"] = "failure", counts["failures"] + 1
                 message = (f"{r['change']}: " if outcome == "regressed" and r.get("change") else "") + r["reason"]
-            ET.SubElement(case, tag, message=message, type=outcome if outcome == "regressed" else r["verdict"]).text = _details(r)
+            ET.SubElement(
+                case, tag, message=message, type=outcome if outcome == "regressed" else r["verdict"]
+            ).text = _details(r)
         elif outcome in ("allowed", "known"):
             counts["skipped"] += 1
             why = f"allowed to fail: {r['note']}" if outcome == "allowed" else "fails in the baseline too"
@@ -53,10 +57,17 @@ def junit_xml(rows: list[dict], suite: str = "auditor gate", seconds: dict | Non
             ET.SubElement(case, "system-out").text = _details(r)
         cases.append(case)
     total = sum(seconds.values())
-    root = ET.Element("testsuites", name=suite, tests=str(len(rows)), time=f"{total:.3f}",
-                      **{k: str(v) for k, v in counts.items()})
-    ts = ET.SubElement(root, "testsuite", name=suite, tests=str(len(rows)), time=f"{total:.3f}",
-                       **{k: str(v) for k, v in counts.items()})
+    root = ET.Element(
+        "testsuites", name=suite, tests=str(len(rows)), time=f"{total:.3f}", **{k: str(v) for k, v in counts.items()}
+    )
+    ts = ET.SubElement(
+        root,
+        "testsuite",
+        name=suite,
+        tests=str(len(rows)),
+        time=f"{total:.3f}",
+        **{k: str(v) for k, v in counts.items()},
+    )
     ts.extend(cases)
     ET.indent(root)
     return ET.tostring(root, encoding="unicode", xml_declaration=True) + "\n"

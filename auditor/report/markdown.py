@@ -1,4 +1,5 @@
 """Markdown report for one audit result."""
+
 from __future__ import annotations
 
 from pathlib import Path
@@ -73,7 +74,9 @@ def render_markdown(r, extra_sections: list[str] | None = None) -> str:
         lines.append(f"| {a['atom']} | {a['element']} | {'yes' if a['ghost'] else ''} | {a['weight']:.3f} |")
     lines += ["", "| shell | l | smallest exponent | diffuse | share |", "|---|---|---|---|---|"]
     for s in c["shells"][:MAX_ROWS]:
-        lines.append(f"| {s['shell']} | {s['l']} | {s['exponent']:.4g} | {'yes' if s['diffuse'] else ''} | {s['weight']:.3f} |")
+        lines.append(
+            f"| {s['shell']} | {s['l']} | {s['exponent']:.4g} | {'yes' if s['diffuse'] else ''} | {s['weight']:.3f} |"
+        )
     lines += ["", "By angular momentum: " + ", ".join(f"{x['l']} {x['weight']:.3f}" for x in c["angular"]) + "."]
     lines += [
         "",
@@ -88,8 +91,10 @@ def render_markdown(r, extra_sections: list[str] | None = None) -> str:
         "|---|---|---|---|",
     ]
     for cand in rec["candidates"]:
-        lines.append(f"| {cand['threshold']:.0e} | {_fmt(cand['n_removed'], 'd')} | "
-                     f"{_fmt(cand['smallest_kept'])} | {_fmt(cand['max_transform_element'], '.1f')} |")
+        lines.append(
+            f"| {cand['threshold']:.0e} | {_fmt(cand['n_removed'], 'd')} | "
+            f"{_fmt(cand['smallest_kept'])} | {_fmt(cand['max_transform_element'], '.1f')} |"
+        )
     lines += ["", "To apply it in pyscf:", "", "```python", rec["how_to"], "```", ""]
     lines += remedies_lines(d.get("remedies"), inp["n_functions"])
     lines += extra_sections or []
@@ -109,8 +114,10 @@ def remedies_lines(rem: dict | None, n_functions: int) -> list[str]:
         return []
     lines = ["## Remedies", ""]
     if not rem["needed"] and not rem["alternatives"]:
-        return lines + [f"The smallest eigenvalue already meets the target {rem['target']:.1e}; "
-                        "nothing needs removing.", ""]
+        return lines + [
+            f"The smallest eigenvalue already meets the target {rem['target']:.1e}; nothing needs removing.",
+            "",
+        ]
     lines += [
         f"Ranked by whether they reach the target smallest eigenvalue {rem['target']:.1e}, then by how "
         "little they remove.",
@@ -120,30 +127,44 @@ def remedies_lines(rem: dict | None, n_functions: int) -> list[str]:
     ]
     for a in rem["alternatives"]:
         removed = "?" if a["removed"] is None else f"{a['removed']} {a['unit']}"
-        lines.append(f"| {a['rank']} | {a['title']} | {removed} of {n_functions} | "
-                     f"{_fmt(a['smallest_after'])} | {'yes' if a['reaches_target'] else 'no'} | {a['how']} |")
+        lines.append(
+            f"| {a['rank']} | {a['title']} | {removed} of {n_functions} | "
+            f"{_fmt(a['smallest_after'])} | {'yes' if a['reaches_target'] else 'no'} | {a['how']} |"
+        )
     lines.append("")
     for p in rem.get("problems", []):
         lines += [f"Not available: {p}.", ""]
     sh = rem.get("cholesky_shells")
     if sh:
-        how = ("pivoted Cholesky over whole shells" if sh.get("chosen_by") == "shell pivoting"
-               else "shells the pivoted-Cholesky subset of functions leaves whole")
-        lines += [f"Shells the pruned basis drops ({how}, tolerance {sh['tolerance']:.2e}, then "
-                  f"{sh['added_back']} function(s) offered back; {sh['kept']} functions kept):", "",
-                  "| atom shell | l | smallest exponent | diffuse | functions |", "|---|---|---|---|---|"]
-        for s in sh["dropped_shells"][:MAX_ROWS * 2]:
-            lines.append(f"| {_where(s)} | {s['l']} | {s['exponent']:.4g} | {'yes' if s['diffuse'] else ''} "
-                         f"| {s['functions']} |")
+        how = (
+            "pivoted Cholesky over whole shells"
+            if sh.get("chosen_by") == "shell pivoting"
+            else "shells the pivoted-Cholesky subset of functions leaves whole"
+        )
+        lines += [
+            f"Shells the pruned basis drops ({how}, tolerance {sh['tolerance']:.2e}, then "
+            f"{sh['added_back']} function(s) offered back; {sh['kept']} functions kept):",
+            "",
+            "| atom shell | l | smallest exponent | diffuse | functions |",
+            "|---|---|---|---|---|",
+        ]
+        for s in sh["dropped_shells"][: MAX_ROWS * 2]:
+            lines.append(
+                f"| {_where(s)} | {s['l']} | {s['exponent']:.4g} | {'yes' if s['diffuse'] else ''} | {s['functions']} |"
+            )
         if len(sh["dropped_shells"]) > MAX_ROWS * 2:
             lines.append(f"| ... {len(sh['dropped_shells']) - MAX_ROWS * 2} more (see the JSON report) | | | | |")
         lines.append("")
     fn = rem.get("cholesky_functions")
     if fn:
-        lines += [f"Functions the pivoted-Cholesky subset drops (tolerance {fn['tolerance']:.2e}, then "
-                  f"{fn['added_back']} offered back; {fn['factorizations']} Cholesky factorizations):", "",
-                  "| function | atom shell | component | l | smallest exponent |", "|---|---|---|---|---|"]
-        for f in fn["dropped"][:MAX_ROWS * 2]:
+        lines += [
+            f"Functions the pivoted-Cholesky subset drops (tolerance {fn['tolerance']:.2e}, then "
+            f"{fn['added_back']} offered back; {fn['factorizations']} Cholesky factorizations):",
+            "",
+            "| function | atom shell | component | l | smallest exponent |",
+            "|---|---|---|---|---|",
+        ]
+        for f in fn["dropped"][: MAX_ROWS * 2]:
             lines.append(f"| {f['function']} | {_where(f)} | {f['component']} | {f['l']} | {f['exponent']:.4g} |")
         if len(fn["dropped"]) > MAX_ROWS * 2:
             lines.append(f"| ... {len(fn['dropped']) - MAX_ROWS * 2} more (see the JSON report) | | | | |")
@@ -154,19 +175,27 @@ def remedies_lines(rem: dict | None, n_functions: int) -> list[str]:
         if tri.get("skipped"):
             lines += [tri["skipped"] + ".", ""]
         else:
-            lines += [f"Method {tri['method']}; energies in hartree.", "",
-                      "| basis | functions | directions removed | converged | cycles | energy |",
-                      "|---|---|---|---|---|---|"]
+            lines += [
+                f"Method {tri['method']}; energies in hartree.",
+                "",
+                "| basis | functions | directions removed | converged | cycles | energy |",
+                "|---|---|---|---|---|---|",
+            ]
             for run in tri["runs"]:
                 energy = _fmt(run["energy"], ".8f", run.get("note") or "none")
-                lines.append(f"| {run['basis']} | {run['n_functions']} | {run['directions_removed']} | "
-                             f"{'yes' if run['converged'] else 'no'} | {run['cycles']} | {energy} |")
+                lines.append(
+                    f"| {run['basis']} | {run['n_functions']} | {run['directions_removed']} | "
+                    f"{'yes' if run['converged'] else 'no'} | {run['cycles']} | {energy} |"
+                )
             diff = tri.get("difference_microhartree")
             if diff is not None:
                 lines += ["", f"Pruned minus canonically orthogonalized: {diff:+.1f} microhartree."]
             lines.append("")
-    lines += ["Removing functions or directions changes total energies, and the target and thresholds are "
-              "judgement calls (see below).", ""]
+    lines += [
+        "Removing functions or directions changes total energies, and the target and thresholds are "
+        "judgement calls (see below).",
+        "",
+    ]
     return lines
 
 

@@ -1,4 +1,5 @@
 """File names of reports."""
+
 from __future__ import annotations
 
 from pathlib import Path

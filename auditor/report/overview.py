@@ -6,6 +6,7 @@ Items are plain dicts (summary rows) with at least ``path``, ``frame``, ``verdic
 ``error`` (message, or empty). Optional: ``basis``, ``n_atoms``, ``condition_number``,
 ``top_atom``, ``threshold``, ``n_removed``, ``outcome``, ``reason``, ``item``.
 """
+
 from __future__ import annotations
 
 import base64
@@ -18,13 +19,14 @@ from urllib.parse import quote
 from ..base.files import atomic_write
 from .html import write_html
 from .plots import set_histogram_png
-from .rows import (OUTCOME_RANK, VERDICT_RANK, _int, _number, _text, _verdict, item_label, rank_key,
-                   result_row)
+from .rows import OUTCOME_RANK, VERDICT_RANK, _int, _number, _text, _verdict, item_label, rank_key, result_row
 from .style import PAGE_CSS
 
 WORST_SHOWN = 10
 
-CSS = PAGE_CSS + """
+CSS = (
+    PAGE_CSS
+    + """
 main { max-width: 1400px; margin: 0 auto; padding: 20px 28px 40px; }
 h2 { font-size: 1.2em; margin: 1.6em 0 0.5em; padding-bottom: 4px; border-bottom: 2px solid var(--line); }
 .tiles { display: flex; gap: 12px; flex-wrap: wrap; margin: 12px 0; }
@@ -49,6 +51,7 @@ td.item { overflow-wrap: anywhere; min-width: 12em; }
 a { color: var(--accent); }
 figcaption { color: var(--muted); font-size: 0.88em; }
 """
+)
 
 # Sorts the rows of every table.sortable by the data-sort value of the clicked column:
 # numbers numerically, text alphabetically, empty cells last in either direction.
@@ -78,20 +81,10 @@ document.querySelectorAll("table.sortable").forEach(function (table) {
 """
 
 
-
-
-
-
-
-
 def _why(item: dict) -> str:
     if _text(item.get("error")):
         return _text(item.get("error"))
     return "; ".join(x for x in (_text(item.get(k)) for k in ("change", "note", "reason")) if x)
-
-
-
-
 
 
 def _label(item: dict) -> str:
@@ -128,18 +121,24 @@ def _row(rank: int, it: dict, has: set) -> str:
     cells = [
         _cell(rank, str(rank), True),
         f'<td class="item" data-sort="{escape(_label(it))}">{_link(it, _label(it))}</td>',
-        (f'<td data-sort="{VERDICT_RANK.get(v, 9)}"><span class="badge v-{escape(v if v in VERDICT_RANK else "other")}">'
-         f"{escape(v)}</span></td>"),
+        (
+            f'<td data-sort="{VERDICT_RANK.get(v, 9)}"><span class="badge v-{escape(v if v in VERDICT_RANK else "other")}">'
+            f"{escape(v)}</span></td>"
+        ),
     ]
     if "outcome" in has:
         o = _text(it.get("outcome"))
         cells.append(f'<td data-sort="{OUTCOME_RANK.get(o, 9)}">{escape(o)}</td>')
     cells.append(
         f'<td class="n" data-sort="{"" if lam is None else escape(repr(lam))}" data-key="smallest_eigenvalue" '
-        f'data-value="{escape(json.dumps(lam))}">{escape(_fmt(lam, ".3e"))}</td>')
+        f'data-value="{escape(json.dumps(lam))}">{escape(_fmt(lam, ".3e"))}</td>'
+    )
     if "condition_number" in has:
-        cells.append(_cell(None if log_cond is None else (1e308 if math.isinf(log_cond) else log_cond),
-                           _fmt(log_cond, ".1f"), True))
+        cells.append(
+            _cell(
+                None if log_cond is None else (1e308 if math.isinf(log_cond) else log_cond), _fmt(log_cond, ".1f"), True
+            )
+        )
     cells.append(_cell(_int(it.get("n_functions")), _fmt(_number(it.get("n_functions")), ".0f"), True))
     if "n_atoms" in has:
         cells.append(_cell(_int(it.get("n_atoms")), _fmt(_number(it.get("n_atoms")), ".0f"), True))
@@ -181,16 +180,22 @@ def _header(has: set) -> str:
     ths = "".join(
         f'<th data-type="{t}"{right if t == "num" and name not in ("verdict", "gate") else ""}'
         f'{first if name == "#" else ""}><button type="button">{escape(name)}</button></th>'
-        for name, t in cols)
+        for name, t in cols
+    )
     return f"<thead><tr>{ths}</tr></thead>"
 
 
-def render_set_index(items: list[dict], title: str = "Audit of a set of geometries",
-                     policy: dict | None = None, note: str = "") -> str:
+def render_set_index(
+    items: list[dict], title: str = "Audit of a set of geometries", policy: dict | None = None, note: str = ""
+) -> str:
     """The HTML text of the set index (see the module docstring for ``items``)."""
     items = sorted(items, key=rank_key)
-    has = {k for it in items for k in ("outcome", "condition_number", "n_atoms", "basis", "top_atom",
-                                        "threshold", "n_removed") if _text(it.get(k))}
+    has = {
+        k
+        for it in items
+        for k in ("outcome", "condition_number", "n_atoms", "basis", "top_atom", "threshold", "n_removed")
+        if _text(it.get(k))
+    }
     # a column with one value for every item says it once, above the table
     shared = []
     for key, label in (("basis", "basis"), ("threshold", "advised threshold")):
@@ -209,54 +214,72 @@ def render_set_index(items: list[dict], title: str = "Audit of a set of geometri
     tiles = "".join(
         f'<div class="tile v-{escape(v if v in VERDICT_RANK else "other")}" data-key="count.{escape(v)}" '
         f'data-value="{counts[v]}"><div class="count">{counts[v]}</div><div class="label">{escape(v)}</div></div>'
-        for v in order)
+        for v in order
+    )
     audited = [it for it in items if _number(it.get("smallest_eigenvalue")) is not None]
     fig = ""
     if audited:
-        png = set_histogram_png([_number(it.get("smallest_eigenvalue")) for it in audited],
-                                [_verdict(it) for it in audited], policy)
-        fig = (f'<figure><img src="data:image/png;base64,{base64.b64encode(png).decode("ascii")}" '
-               'alt="Histogram of log10 of the smallest overlap eigenvalue over the set, coloured by verdict">'
-               "<figcaption>Each item counted once, coloured by its verdict; the vertical lines are the "
-               "caution and fail levels.</figcaption></figure>")
+        png = set_histogram_png(
+            [_number(it.get("smallest_eigenvalue")) for it in audited], [_verdict(it) for it in audited], policy
+        )
+        fig = (
+            f'<figure><img src="data:image/png;base64,{base64.b64encode(png).decode("ascii")}" '
+            'alt="Histogram of log10 of the smallest overlap eigenvalue over the set, coloured by verdict">'
+            "<figcaption>Each item counted once, coloured by its verdict; the vertical lines are the "
+            "caution and fail levels.</figcaption></figure>"
+        )
     worst = [it for it in items if _verdict(it) != "pass"][:WORST_SHOWN]
     worst_html = ""
     if worst:
         lis = "".join(
-            f"<li>{_link(it, _label(it))}: <span class=\"badge v-"
-            f"{escape(_verdict(it) if _verdict(it) in VERDICT_RANK else 'other')}\">{escape(_verdict(it))}</span> "
-            + (f"smallest eigenvalue {_fmt(_number(it.get('smallest_eigenvalue')), '.2e')}; "
-               if _number(it.get("smallest_eigenvalue")) is not None and "eigenvalue" not in _why(it) else "")
+            f'<li>{_link(it, _label(it))}: <span class="badge v-'
+            f'{escape(_verdict(it) if _verdict(it) in VERDICT_RANK else "other")}">{escape(_verdict(it))}</span> '
+            + (
+                f"smallest eigenvalue {_fmt(_number(it.get('smallest_eigenvalue')), '.2e')}; "
+                if _number(it.get("smallest_eigenvalue")) is not None and "eigenvalue" not in _why(it)
+                else ""
+            )
             + f"{escape(_why(it))}</li>"
-            for it in worst)
+            for it in worst
+        )
         worst_html = f'<h2 id="worst">Worst items</h2><ol class="worst">{lis}</ol>'
     levels = ""
     if policy:
-        levels = (f" Levels: caution below {policy.get('caution', float('nan')):.0e}, "
-                  f"fail below {policy.get('fail', float('nan')):.0e}.")
+        levels = (
+            f" Levels: caution below {policy.get('caution', float('nan')):.0e}, "
+            f"fail below {policy.get('fail', float('nan')):.0e}."
+        )
     rows = "".join(_row(i + 1, it, has) for i, it in enumerate(items))
-    return "\n".join([
-        "<!DOCTYPE html>",
-        '<html lang="en"><head><meta charset="utf-8">',
-        '<meta name="viewport" content="width=device-width, initial-scale=1">',
-        f"<title>{escape(title)}</title><style>{CSS}</style></head><body><main>",
-        f"<h1>{escape(title)}</h1>",
-        f'<p class="sub">{len(items)} item(s).{escape(levels)} {escape(note)}</p>',
-        f'<div class="tiles">{tiles}</div>',
-        fig,
-        worst_html,
-        '<h2 id="items">All items</h2>',
-        '<p class="sub">Worst first; click a column heading to sort by it.</p>',
-        f'<div class="scroll"><table class="sortable">{_header(has)}<tbody>{rows}</tbody></table></div>',
-        "<footer>Self-contained page: the figure is embedded and nothing is fetched from the network.</footer>",
-        f"<script>{SORT_JS}</script>",
-        "</main></body></html>",
-        "",
-    ])
+    return "\n".join(
+        [
+            "<!DOCTYPE html>",
+            '<html lang="en"><head><meta charset="utf-8">',
+            '<meta name="viewport" content="width=device-width, initial-scale=1">',
+            f"<title>{escape(title)}</title><style>{CSS}</style></head><body><main>",
+            f"<h1>{escape(title)}</h1>",
+            f'<p class="sub">{len(items)} item(s).{escape(levels)} {escape(note)}</p>',
+            f'<div class="tiles">{tiles}</div>',
+            fig,
+            worst_html,
+            '<h2 id="items">All items</h2>',
+            '<p class="sub">Worst first; click a column heading to sort by it.</p>',
+            f'<div class="scroll"><table class="sortable">{_header(has)}<tbody>{rows}</tbody></table></div>',
+            "<footer>Self-contained page: the figure is embedded and nothing is fetched from the network.</footer>",
+            f"<script>{SORT_JS}</script>",
+            "</main></body></html>",
+            "",
+        ]
+    )
 
 
-def write_set_index(out_dir: Path, items: list[dict], title: str = "Audit of a set of geometries",
-                    policy: dict | None = None, note: str = "", filename: str = "index.html") -> Path:
+def write_set_index(
+    out_dir: Path,
+    items: list[dict],
+    title: str = "Audit of a set of geometries",
+    policy: dict | None = None,
+    note: str = "",
+    filename: str = "index.html",
+) -> Path:
     """Write ``out_dir/index.html`` for ``items`` (summary rows plus a relative ``report`` link)."""
     path = Path(out_dir) / filename
     atomic_write(path, render_set_index(items, title, policy, note))
@@ -267,8 +290,7 @@ def item_from_result(result, report: str = "") -> dict:
     """An index item read from one AuditResult (or its dict): its summary row and link."""
     d = result if isinstance(result, dict) else result.as_dict()
     inp = d["input"]
-    return {**result_row(inp["path"], inp["frame"] if inp.get("n_frames", 1) > 1 else None, "", d),
-            "report": report}
+    return {**result_row(inp["path"], inp["frame"] if inp.get("n_frames", 1) > 1 else None, "", d), "report": report}
 
 
 def link_reports(out_dir: Path, rows: list[dict], items_dir: str = "items") -> list[dict]:
@@ -286,8 +308,9 @@ def link_reports(out_dir: Path, rows: list[dict], items_dir: str = "items") -> l
     return linked
 
 
-def write_item_pages(out_dir: Path, rows: list[dict], items_dir: str = "items",
-                     verdicts: tuple[str, ...] | None = None) -> list[Path]:
+def write_item_pages(
+    out_dir: Path, rows: list[dict], items_dir: str = "items", verdicts: tuple[str, ...] | None = None
+) -> list[Path]:
     """Write items/<item>.html beside each items/<item>.json that holds an audit result
     (item errors have no page); ``verdicts`` limits the pages to those verdicts."""
     written = []

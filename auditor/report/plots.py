@@ -4,6 +4,7 @@ The figures are drawn on matplotlib's Agg canvas directly (no pyplot, no global 
 switch), so they work headless, inside worker processes and beside an interactive session.
 Same input, same bytes: fixed size and resolution, and no timestamp or software tag in the PNG.
 """
+
 from __future__ import annotations
 
 import io
@@ -20,7 +21,6 @@ from matplotlib.lines import Line2D
 from ..base.files import atomic_write
 from .style import BLUE, GREEN, GREY, INK, ORANGE, SKY, VERDICT_COLOURS, VERMILION, WEIGHT_CMAP
 from .text import vectors_note
-
 
 DPI = 110
 
@@ -54,8 +54,7 @@ def _new(width: float, height: float, ncols: int = 1, **kw):
 
 def _png(fig) -> bytes:
     buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=DPI, facecolor="white",
-                metadata={"Software": None})
+    fig.savefig(buf, format="png", dpi=DPI, facecolor="white", metadata={"Software": None})
     return buf.getvalue()
 
 
@@ -64,6 +63,7 @@ def _d(result) -> dict:
 
 
 # ---------------------------------------------------------------- spectrum
+
 
 def spectrum_png(result) -> bytes:
     """log10 of the overlap eigenvalues against their rank, with the policy levels and
@@ -97,13 +97,19 @@ def _spectrum_figure(d: dict):
             ax.plot(idx[~clipped], shown[~clipped], "o", ms=2.6, color=BLUE, zorder=4)
         below = ev < rec["threshold"]
         if below.any():
-            ax.plot(idx[below & ~clipped], shown[below & ~clipped], "o", ms=4, mfc="white",
-                    mec=VERMILION, mew=1.2, zorder=5)
+            ax.plot(
+                idx[below & ~clipped], shown[below & ~clipped], "o", ms=4, mfc="white", mec=VERMILION, mew=1.2, zorder=5
+            )
         if clipped.any():
             ax.plot(idx[clipped], shown[clipped], "v", ms=7, color=VERMILION, zorder=6)
-            ax.annotate(f"{int(clipped.sum())} eigenvalue(s) ≤ {floor:.0e} (singular), drawn at the floor",
-                        xy=(idx[clipped][-1], floor), xytext=(12, 10), textcoords="offset points",
-                        fontsize=8.5, color=VERMILION)
+            ax.annotate(
+                f"{int(clipped.sum())} eigenvalue(s) ≤ {floor:.0e} (singular), drawn at the floor",
+                xy=(idx[clipped][-1], floor),
+                xytext=(12, 10),
+                textcoords="offset points",
+                fontsize=8.5,
+                color=VERMILION,
+            )
         top = max(1.0, float(ev.max())) * 3
         ax.set_ylim(floor / 2, top)
         ax.set_xlim(0.5, ev.size + 0.5)
@@ -115,18 +121,21 @@ def _spectrum_figure(d: dict):
         ax.axhline(value, color=colour, ls=style, lw=1.3, zorder=2)
     handles = [Line2D([], [], color=BLUE, lw=1.2, marker="o", ms=2.6, label="eigenvalue")]
     if ev.size and (ev < rec["threshold"]).any():
-        handles.append(Line2D([], [], color=VERMILION, lw=0, marker="o", mfc="white", mew=1.2, ms=4,
-                              label="removed at τ"))
+        handles.append(
+            Line2D([], [], color=VERMILION, lw=0, marker="o", mfc="white", mew=1.2, ms=4, label="removed at τ")
+        )
     handles += [
         Line2D([], [], color=ORANGE, ls=(0, (5, 3)), lw=1.3, label=f"caution level {pol['caution']:.0e}"),
         Line2D([], [], color=VERMILION, ls="-", lw=1.3, label=f"fail level {pol['fail']:.0e}"),
-        Line2D([], [], color=BLUE, ls=(0, (6, 2, 1.5, 2)), lw=1.3,
-               label=f"advised threshold τ = {rec['threshold']:.1e}"),
+        Line2D(
+            [], [], color=BLUE, ls=(0, (6, 2, 1.5, 2)), lw=1.3, label=f"advised threshold τ = {rec['threshold']:.1e}"
+        ),
     ]
     ax.legend(handles=handles, loc="upper left", bbox_to_anchor=(1.02, 1.0), borderaxespad=0)
     partial = ev.size < n_total
-    ax.set_xlabel("eigenvalue rank, smallest first (dimensionless)"
-                  + (f"; {ev.size} smallest of {n_total}" if partial else ""))
+    ax.set_xlabel(
+        "eigenvalue rank, smallest first (dimensionless)" + (f"; {ev.size} smallest of {n_total}" if partial else "")
+    )
     ax.set_ylabel("eigenvalue of unit-diagonal S")
     ax.set_title(f"Overlap spectrum: {n_total} functions, smallest {sp['smallest']:.2e}", loc="left")
     return fig
@@ -146,8 +155,7 @@ def causes_png(result) -> bytes:
 
 def _causes_figure(d: dict):
     c = d["causes"]
-    fig, (ax_a, ax_l, ax_d) = _new(
-        9.0, 4.0, ncols=3, gridspec_kw={"width_ratios": [3.2, 1.4, 1.0], "wspace": 0.42})
+    fig, (ax_a, ax_l, ax_d) = _new(9.0, 4.0, ncols=3, gridspec_kw={"width_ratios": [3.2, 1.4, 1.0], "wspace": 0.42})
     fig.subplots_adjust(left=0.07, right=0.98, top=0.82, bottom=0.25)
     atoms = c["atoms"][:MAX_ATOM_BARS]
     labels = [f"{a['element']}{a['atom']}" for a in atoms]
@@ -157,17 +165,25 @@ def _causes_figure(d: dict):
     for bar, a in zip(bars, atoms):
         if a["ghost"]:
             bar.set_hatch("///")
-    ax_a.set_xticks(range(len(atoms)), labels, rotation=60 if len(atoms) > 8 else 0,
-                    ha="right" if len(atoms) > 8 else "center", fontsize=8.5)
+    ax_a.set_xticks(
+        range(len(atoms)),
+        labels,
+        rotation=60 if len(atoms) > 8 else 0,
+        ha="right" if len(atoms) > 8 else "center",
+        fontsize=8.5,
+    )
     ax_a.set_ylabel("share of near-null space (fraction)")
     ax_a.set_xlabel("atom (element and 1-based number)")
     more = len(c["atoms"]) - len(atoms)
     ax_a.set_title("By atom" + (f" (largest {len(atoms)}; {more} more)" if more > 0 else ""), loc="left")
     if any(a["ghost"] for a in atoms):
-        ax_a.legend(handles=[
-            Line2D([], [], lw=0, marker="s", ms=8, color=BLUE, label="atom"),
-            Line2D([], [], lw=0, marker="s", ms=8, color=SKY, label="ghost atom"),
-        ], loc="upper right")
+        ax_a.legend(
+            handles=[
+                Line2D([], [], lw=0, marker="s", ms=8, color=BLUE, label="atom"),
+                Line2D([], [], lw=0, marker="s", ms=8, color=SKY, label="ghost atom"),
+            ],
+            loc="upper right",
+        )
 
     rank = {l: i for i, l in enumerate("spdfghiklm")}
     ang = sorted(c["angular"], key=lambda x: rank.get(str(x["l"]), 99))
@@ -177,22 +193,29 @@ def _causes_figure(d: dict):
     ax_l.set_ylabel("share (fraction)")
 
     dif = c["diffuse"]
-    ax_d.bar(["diffuse", "other"], [dif.get("diffuse", 0.0), dif.get("other", 0.0)],
-             color=[ORANGE, GREY], edgecolor=INK, lw=0.5, zorder=3)
+    ax_d.bar(
+        ["diffuse", "other"],
+        [dif.get("diffuse", 0.0), dif.get("other", 0.0)],
+        color=[ORANGE, GREY],
+        edgecolor=INK,
+        lw=0.5,
+        zorder=3,
+    )
     ax_d.set_title("Diffuse shells", loc="left")
     ax_d.set_xlabel("shell kind")
     ax_d.set_ylabel("share (fraction)")
     for ax in (ax_a, ax_l, ax_d):
         ax.set_ylim(0, 1.05 * max([0.05] + [p.get_height() for p in ax.patches]) + 0.02)
         ax.grid(axis="x", visible=False)
-    fig.suptitle(f"Where the near-null space sits: {vectors_note(d)}", x=0.07, ha="left",
-                 fontsize=10.5, fontweight="bold")
+    fig.suptitle(
+        f"Where the near-null space sits: {vectors_note(d)}", x=0.07, ha="left", fontsize=10.5, fontweight="bold"
+    )
     return fig
 
 
 # ---------------------------------------------------------------- molecule
 
-BOND_FACTOR = 1.2            # drawn as a bond when d < 1.2 (r_i + r_j)
+BOND_FACTOR = 1.2  # drawn as a bond when d < 1.2 (r_i + r_j)
 MAX_LABELS = 40
 PAIR_KINDS = {"coincident_atoms": VERMILION, "short_contact": VERMILION}
 
@@ -251,7 +274,7 @@ def _molecule_figure(d: dict):
             weight[a["atom"] - 1] = a["weight"]
     p = principal_projection(xyz) if n else np.zeros((0, 2))
     cov = _radii(el) if n else np.zeros(0)
-    disc = 0.08 + 0.22 * np.clip(cov, 0.25, 2.0)      # drawn radius in Å
+    disc = 0.08 + 0.22 * np.clip(cov, 0.25, 2.0)  # drawn radius in Å
     span = max(float(np.ptp(p, axis=0).max()) if n > 1 else 1.0, 1.0)
     pad = 0.08 * span + 0.6
     width_a = float(np.ptp(p[:, 0])) + 2 * pad if n else 1.0
@@ -279,10 +302,18 @@ def _molecule_figure(d: dict):
         ax.add_collection(LineCollection(gsegs, colors="#B8B8B8", linewidths=1.6, linestyles="--", zorder=1))
 
         vmax = max(float(weight.max()), 1e-6)
-        order = np.argsort(weight, kind="stable")       # heaviest drawn last, on top
-        coll = EllipseCollection(2 * disc[order], 2 * disc[order], np.zeros(n), units="xy",
-                                 offsets=p[order], offset_transform=ax.transData, cmap=WEIGHT_CMAP,
-                                 edgecolors=INK, zorder=3)
+        order = np.argsort(weight, kind="stable")  # heaviest drawn last, on top
+        coll = EllipseCollection(
+            2 * disc[order],
+            2 * disc[order],
+            np.zeros(n),
+            units="xy",
+            offsets=p[order],
+            offset_transform=ax.transData,
+            cmap=WEIGHT_CMAP,
+            edgecolors=INK,
+            zorder=3,
+        )
         coll.set_array(weight[order])
         coll.set_clim(0, vmax)
         coll.set_linewidths(0.8)
@@ -290,10 +321,20 @@ def _molecule_figure(d: dict):
         if ghost.any():
             # ghost atoms keep their fill (it carries the weight) inside a dashed ring
             for i in np.flatnonzero(ghost):
-                ax.add_patch(Circle(p[i], 1.35 * disc[i], fill=False, ec=INK, ls=(0, (2.5, 2)),
-                                    lw=1.2, zorder=3.6))
-            handles.append(Line2D([], [], lw=0, marker="o", ms=12, mfc="none", mec=INK, mew=1.2,
-                                  label="ringed: ghost atom (functions, no nucleus)"))
+                ax.add_patch(Circle(p[i], 1.35 * disc[i], fill=False, ec=INK, ls=(0, (2.5, 2)), lw=1.2, zorder=3.6))
+            handles.append(
+                Line2D(
+                    [],
+                    [],
+                    lw=0,
+                    marker="o",
+                    ms=12,
+                    mfc="none",
+                    mec=INK,
+                    mew=1.2,
+                    label="ringed: ghost atom (functions, no nucleus)",
+                )
+            )
         cax = ax.inset_axes([1.04, 0.0, 0.04, 1.0])
         cb = fig.colorbar(coll, cax=cax)
         cb.set_label("share of near-null space (fraction)")
@@ -309,31 +350,51 @@ def _molecule_figure(d: dict):
             sep = np.linalg.norm(p[i] - p[j])
             if sep < 1.2 * max(disc[i], disc[j]):
                 # too close to see a line: ring the pair instead
-                ax.add_patch(Circle(mid, 1.9 * max(disc[i], disc[j]), fill=False, ec=VERMILION,
-                                    ls=(0, (4, 2.5)), lw=2.0, zorder=6))
+                ax.add_patch(
+                    Circle(
+                        mid, 1.9 * max(disc[i], disc[j]), fill=False, ec=VERMILION, ls=(0, (4, 2.5)), lw=2.0, zorder=6
+                    )
+                )
                 anchor, xytext = mid + np.array([0, 1.9 * max(disc[i], disc[j])]), (0, 4)
             else:
                 ax.plot(p[[i, j], 0], p[[i, j], 1], color=VERMILION, ls=(0, (4, 2.5)), lw=2.2, zorder=6)
                 anchor, xytext = mid, (0, 4)
             if dist is not None:
-                ax.annotate(f"{el[i]}{i + 1}–{el[j]}{j + 1} {dist:.3g} Å", anchor, xytext=xytext,
-                            textcoords="offset points", ha="center", va="bottom", color=VERMILION,
-                            fontsize=8.5, fontweight="bold", zorder=9,
-                            bbox={"boxstyle": "round,pad=0.15", "fc": "white", "ec": "none", "alpha": 0.85})
+                ax.annotate(
+                    f"{el[i]}{i + 1}–{el[j]}{j + 1} {dist:.3g} Å",
+                    anchor,
+                    xytext=xytext,
+                    textcoords="offset points",
+                    ha="center",
+                    va="bottom",
+                    color=VERMILION,
+                    fontsize=8.5,
+                    fontweight="bold",
+                    zorder=9,
+                    bbox={"boxstyle": "round,pad=0.15", "fc": "white", "ec": "none", "alpha": 0.85},
+                )
         if contact:
-            handles.append(Line2D([], [], color=VERMILION, ls=(0, (4, 2.5)), lw=2,
-                                  label="coincident atoms / short contact"))
+            handles.append(
+                Line2D([], [], color=VERMILION, ls=(0, (4, 2.5)), lw=2, label="coincident atoms / short contact")
+            )
 
         labelled = range(n) if n <= MAX_LABELS else np.argsort(-weight, kind="stable")[:12]
         placed: list[np.ndarray] = []
         for i in labelled:
             offset = (6.0, 5.0)
             if any(np.linalg.norm(p[i] - q) < 0.5 * disc[i] for q in placed):
-                offset = (6.0, -15.0)     # a second atom on (nearly) the same spot
+                offset = (6.0, -15.0)  # a second atom on (nearly) the same spot
             placed.append(p[i])
-            ax.annotate(f"{el[i]}{i + 1}", p[i] + disc[i] * np.array([0.55, 0.55]), xytext=offset,
-                        textcoords="offset points", fontsize=8.5, color=INK, zorder=8,
-                        bbox={"boxstyle": "round,pad=0.12", "fc": "white", "ec": "none", "alpha": 0.8})
+            ax.annotate(
+                f"{el[i]}{i + 1}",
+                p[i] + disc[i] * np.array([0.55, 0.55]),
+                xytext=offset,
+                textcoords="offset points",
+                fontsize=8.5,
+                color=INK,
+                zorder=8,
+                bbox={"boxstyle": "round,pad=0.12", "fc": "white", "ec": "none", "alpha": 0.8},
+            )
         ax.set_xlim(p[:, 0].min() - pad, p[:, 0].max() + pad)
         ax.set_ylim(p[:, 1].min() - pad, p[:, 1].max() + pad)
     if handles:
@@ -346,6 +407,7 @@ def _molecule_figure(d: dict):
 
 
 # ---------------------------------------------------------------- sets
+
 
 def set_histogram_png(smallest: list[float | None], verdicts: list[str], policy: dict | None = None) -> bytes:
     """Histogram of log10 of the smallest eigenvalue over a set, stacked by verdict."""
@@ -367,15 +429,32 @@ def _set_histogram_figure(smallest, verdicts, policy):
     order += sorted({verd for _, verd in vals} - set(order))
     data = [[floor + 0.25 if x is None else x for x, verd in vals if verd == v] for v in order]
     if data:
-        ax.hist(data, bins=edges, stacked=True, color=[VERDICT_COLOURS.get(v, GREY) for v in order],
-                label=order, edgecolor="white", lw=0.6, zorder=3)
+        ax.hist(
+            data,
+            bins=edges,
+            stacked=True,
+            color=[VERDICT_COLOURS.get(v, GREY) for v in order],
+            label=order,
+            edgecolor="white",
+            lw=0.6,
+            zorder=3,
+        )
     n_singular = sum(1 for x, _ in vals if x is None)
     if n_singular:
-        ax.annotate(f"{n_singular} singular (≤ 0), left bin", (floor + 0.25, 0), xytext=(0, 18),
-                    textcoords="offset points", ha="left", fontsize=8.5, color=VERMILION)
+        ax.annotate(
+            f"{n_singular} singular (≤ 0), left bin",
+            (floor + 0.25, 0),
+            xytext=(0, 18),
+            textcoords="offset points",
+            ha="left",
+            fontsize=8.5,
+            color=VERMILION,
+        )
     if policy:
-        for value, colour, style, label in ((policy.get("caution"), ORANGE, (0, (5, 3)), "caution level"),
-                                            (policy.get("fail"), VERMILION, "-", "fail level")):
+        for value, colour, style, label in (
+            (policy.get("caution"), ORANGE, (0, (5, 3)), "caution level"),
+            (policy.get("fail"), VERMILION, "-", "fail level"),
+        ):
             if value:
                 ax.axvline(math.log10(value), color=colour, ls=style, lw=1.3, label=f"{label} {value:.0e}")
     ax.set_xlabel("log10 of the smallest eigenvalue of unit-diagonal S (dimensionless)")
@@ -414,6 +493,6 @@ def markdown_figures(paths, stem: str) -> list[str]:
     """Markdown lines that show the figures written beside the report (relative links)."""
     lines = ["## Figures", ""]
     for path in paths:
-        name = path.name[len(stem) + 1:-4] if path.name.startswith(stem + "_") else path.stem
+        name = path.name[len(stem) + 1 : -4] if path.name.startswith(stem + "_") else path.stem
         lines += [f"![{FIGURE_TITLES.get(name, name)}]({quote(path.name)})", ""]
     return lines

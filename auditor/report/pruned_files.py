@@ -1,4 +1,5 @@
 """What `auditor prune` writes: the pruned basis, the matrix X and an explanation."""
+
 from __future__ import annotations
 
 import io
@@ -21,22 +22,30 @@ def explain_markdown(result, plan: RemedyPlan, files: dict[str, str]) -> str:
     lines = [
         f"# Pruned basis for {name}",
         "",
-        (f"Basis {inp['basis']}; {inp['n_atoms']} atoms; target smallest eigenvalue of the unit-diagonal "
-         f"overlap matrix {plan.target:.1e} (full basis: {d['spectrum']['smallest']:.3e})."),
+        (
+            f"Basis {inp['basis']}; {inp['n_atoms']} atoms; target smallest eigenvalue of the unit-diagonal "
+            f"overlap matrix {plan.target:.1e} (full basis: {d['spectrum']['smallest']:.3e})."
+        ),
         "",
-        (f"The pruned basis keeps **{doc['n_functions']} of {doc['n_functions_full']}** functions and drops "
-         f"{len(doc['dropped_shells'])} whole shell(s); its smallest eigenvalue is "
-         f"{_fmt_num(doc['smallest_eigenvalue'])}. Every component of a shell is kept or dropped together, "
-         "so the basis stays rotationally invariant. Shells were chosen by pivoted Cholesky over whole "
-         "shells (Lehtola, J. Chem. Phys. 151, 241102 (2019)) at the target: the longest prefix of the pivot "
-         "order whose overlap meets the target is kept, then the other shells are offered back one by one."),
+        (
+            f"The pruned basis keeps **{doc['n_functions']} of {doc['n_functions_full']}** functions and drops "
+            f"{len(doc['dropped_shells'])} whole shell(s); its smallest eigenvalue is "
+            f"{_fmt_num(doc['smallest_eigenvalue'])}. Every component of a shell is kept or dropped together, "
+            "so the basis stays rotationally invariant. Shells were chosen by pivoted Cholesky over whole "
+            "shells (Lehtola, J. Chem. Phys. 151, 241102 (2019)) at the target: the longest prefix of the pivot "
+            "order whose overlap meets the target is kept, then the other shells are offered back one by one."
+        ),
         "",
         "## Files",
         "",
-        (f"- `{files['basis']}`: the pruned basis for pyscf (`atoms` with one label per atom that needs its "
-         "own basis, `basis` in pyscf's internal format, `dropped_shells` for reading)."),
-        (f"- `{files['transform']}`: X (functions × kept directions) for canonical orthogonalization of the "
-         f"full basis at {result.recommendation.threshold:.1e}, in pyscf's AO order; X^T S X = 1."),
+        (
+            f"- `{files['basis']}`: the pruned basis for pyscf (`atoms` with one label per atom that needs its "
+            "own basis, `basis` in pyscf's internal format, `dropped_shells` for reading)."
+        ),
+        (
+            f"- `{files['transform']}`: X (functions × kept directions) for canonical orthogonalization of the "
+            f"full basis at {result.recommendation.threshold:.1e}, in pyscf's AO order; X^T S X = 1."
+        ),
         "",
         "## Using them",
         "",

@@ -1,16 +1,30 @@
 """The summary-row model: one row per item, read from a JSON result; the order of verdicts and
 gate outcomes (worst first) that every list of items uses."""
+
 from __future__ import annotations
 
 import math
 import sys
 
-
 #: Column order of summary.csv / summary.parquet (documented in the README).
 COLUMNS = (
-    "path", "frame", "item", "basis", "n_atoms", "n_functions", "smallest_eigenvalue",
-    "condition_number", "verdict", "top_atom", "threshold", "n_removed",
-    "outcome", "change", "note", "reason", "error",
+    "path",
+    "frame",
+    "item",
+    "basis",
+    "n_atoms",
+    "n_functions",
+    "smallest_eigenvalue",
+    "condition_number",
+    "verdict",
+    "top_atom",
+    "threshold",
+    "n_removed",
+    "outcome",
+    "change",
+    "note",
+    "reason",
+    "error",
 )
 
 
@@ -51,7 +65,8 @@ def brief(result: dict) -> dict:
     return {
         "input": {k: inp.get(k) for k in ("path", "frame", "n_frames", "basis", "n_atoms", "n_functions")},
         "spectrum": {k: spec.get(k) for k in ("smallest", "condition_number")},
-        "verdict": result["verdict"], "verdict_reason": result.get("verdict_reason", ""),
+        "verdict": result["verdict"],
+        "verdict_reason": result.get("verdict_reason", ""),
         "findings": [{"severity": f["severity"], "message": f["message"]} for f in errors],
         "causes": {"atoms": result["causes"]["atoms"][:1]},
         "recommendation": {k: rec.get(k) for k in ("threshold", "n_removed")},
@@ -63,23 +78,40 @@ def result_row(path: str, frame: int, item: str, result: dict) -> dict:
     spec, rec, atoms = result["spectrum"], result["recommendation"], result["causes"]["atoms"]
     cond = spec["condition_number"]
     return {
-        "path": path, "frame": frame, "item": item, "basis": result["input"]["basis"],
-        "n_atoms": result["input"]["n_atoms"], "n_functions": result["input"]["n_functions"],
+        "path": path,
+        "frame": frame,
+        "item": item,
+        "basis": result["input"]["basis"],
+        "n_atoms": result["input"]["n_atoms"],
+        "n_functions": result["input"]["n_functions"],
         "smallest_eigenvalue": spec["smallest"],
         "condition_number": math.inf if cond is None else cond,
         "verdict": result["verdict"],
         "top_atom": f"{atoms[0]['element']}{atoms[0]['atom']}" if atoms else "",
-        "threshold": rec["threshold"], "n_removed": rec["n_removed"],
-        "reason": main_reason(result), "error": "",
+        "threshold": rec["threshold"],
+        "n_removed": rec["n_removed"],
+        "reason": main_reason(result),
+        "error": "",
     }
 
 
 def error_row(path: str, frame: int | None, item: str, basis: str, message: str) -> dict:
     """Summary row of an item that could not be audited."""
     return {
-        "path": path, "frame": frame, "item": item, "basis": basis, "n_atoms": None, "n_functions": None,
-        "smallest_eigenvalue": math.nan, "condition_number": math.nan, "verdict": "error",
-        "top_atom": "", "threshold": math.nan, "n_removed": None, "reason": message, "error": message,
+        "path": path,
+        "frame": frame,
+        "item": item,
+        "basis": basis,
+        "n_atoms": None,
+        "n_functions": None,
+        "smallest_eigenvalue": math.nan,
+        "condition_number": math.nan,
+        "verdict": "error",
+        "top_atom": "",
+        "threshold": math.nan,
+        "n_removed": None,
+        "reason": message,
+        "error": message,
     }
 
 
@@ -125,5 +157,10 @@ def rank_key(item: dict):
     """Worst first: blocking gate outcomes, then fail, error, caution, pass; then the
     smallest eigenvalue, ascending."""
     lam = _number(item.get("smallest_eigenvalue"))
-    return (OUTCOME_RANK.get(_text(item.get("outcome")), 9), VERDICT_RANK.get(_verdict(item), 9),
-            math.inf if lam is None else lam, _text(item.get("path")), _int(item.get("frame")) or 0)
+    return (
+        OUTCOME_RANK.get(_text(item.get("outcome")), 9),
+        VERDICT_RANK.get(_verdict(item), 9),
+        math.inf if lam is None else lam,
+        _text(item.get("path")),
+        _int(item.get("frame")) or 0,
+    )

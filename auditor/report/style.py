@@ -1,4 +1,5 @@
 """Colours and the page stylesheet shared by every report format."""
+
 from __future__ import annotations
 
 # Okabe & Ito's colour-blind-safe qualitative palette.
@@ -32,7 +33,7 @@ GREY = "#8C8C8C"
 VERDICT_COLOURS = {"pass": GREEN, "caution": ORANGE, "fail": VERMILION, "error": PURPLE}
 
 
-WEIGHT_CMAP = "YlGnBu"    # sequential in lightness, readable by colour-blind viewers: light = no share
+WEIGHT_CMAP = "YlGnBu"  # sequential in lightness, readable by colour-blind viewers: light = no share
 
 
 #: the page frame both HTML writers share (palette, type, numbers, figures, footer)
@@ -52,6 +53,15 @@ footer { margin-top: 36px; color: var(--muted); font-size: 0.82em; }
 
 
 #: rich styles of the terminal tables: verdicts in their report colours, gate outcomes
-TERMINAL_STYLE = {"pass": GREEN, "caution": ORANGE, "fail": f"bold {VERMILION}", "error": PURPLE,
-                  "unreadable": PURPLE, "regressed": f"bold {VERMILION}", "blocked": f"bold {VERMILION}",
-                  "allowed": SKY, "known": ORANGE, "ok": GREEN}
+TERMINAL_STYLE = {
+    "pass": GREEN,
+    "caution": ORANGE,
+    "fail": f"bold {VERMILION}",
+    "error": PURPLE,
+    "unreadable": PURPLE,
+    "regressed": f"bold {VERMILION}",
+    "blocked": f"bold {VERMILION}",
+    "allowed": SKY,
+    "known": ORANGE,
+    "ok": GREEN,
+}

@@ -1,4 +1,5 @@
 """summary.csv and summary.parquet: the rows of a gate run as a table."""
+
 from __future__ import annotations
 
 import io
@@ -6,7 +7,7 @@ import math
 from pathlib import Path
 
 from ..base.files import atomic_write
-from .rows import COLUMNS, _FLOATS, _INTS
+from .rows import _FLOATS, _INTS, COLUMNS
 
 
 def prefetch_libraries() -> None:
@@ -31,8 +32,9 @@ def summary_frame(rows: list[dict]):
 
     df = pd.DataFrame([{c: r.get(c, "") for c in COLUMNS} for r in rows], columns=list(COLUMNS))
     for c in _INTS:
-        df[c] = pd.array([None if v is None or (isinstance(v, float) and math.isnan(v)) else int(v)
-                          for v in df[c]], dtype="Int64")
+        df[c] = pd.array(
+            [None if v is None or (isinstance(v, float) and math.isnan(v)) else int(v) for v in df[c]], dtype="Int64"
+        )
     for c in _FLOATS:
         df[c] = df[c].astype("float64")
     for c in set(COLUMNS) - set(_INTS) - set(_FLOATS):

@@ -1,4 +1,5 @@
 """Short terminal summary (rich)."""
+
 from __future__ import annotations
 
 import math
@@ -11,7 +12,6 @@ from rich.text import Text
 
 from .rows import item_label, rank_key
 from .style import TERMINAL_STYLE as STYLE
-
 
 
 def summary_table(results, errors=()) -> Table:
@@ -55,20 +55,30 @@ def print_remedies(results, console: Console | None = None, always: bool = False
         rem = r.remedies
         if not rem or not rem["alternatives"] or not (rem["needed"] or always):
             continue
-        console.print(f"  {Path(r.input.path).name}: remedies for a smallest eigenvalue of {rem['target']:.0e}",
-                      highlight=False, markup=False)
+        console.print(
+            f"  {Path(r.input.path).name}: remedies for a smallest eigenvalue of {rem['target']:.0e}",
+            highlight=False,
+            markup=False,
+        )
         for a in rem["alternatives"][:top]:
             removed = "?" if a["removed"] is None else f"{a['removed']} {a['unit']}"
             after = "?" if a["smallest_after"] is None else f"{a['smallest_after']:.2e}"
             mark = "" if a["reaches_target"] else " (misses the target)"
-            console.print(f"    {a['rank']}. {a['title']}: removes {removed}, smallest eigenvalue {after}{mark}",
-                          highlight=False, markup=False)
+            console.print(
+                f"    {a['rank']}. {a['title']}: removes {removed}, smallest eigenvalue {after}{mark}",
+                highlight=False,
+                markup=False,
+            )
         tri = rem.get("trial_scf")
         if tri and tri.get("skipped"):
             console.print(f"    {tri['skipped']}", highlight=False, markup=False)
         elif tri and tri.get("difference_microhartree") is not None:
-            console.print(f"    trial SCF ({tri['method']}): pruned minus canonical orthogonalization "
-                          f"{tri['difference_microhartree']:+.1f} microhartree", highlight=False, markup=False)
+            console.print(
+                f"    trial SCF ({tri['method']}): pruned minus canonical orthogonalization "
+                f"{tri['difference_microhartree']:+.1f} microhartree",
+                highlight=False,
+                markup=False,
+            )
 
 
 def worst_rows(rows: list[dict], n: int) -> list[dict]:
@@ -78,11 +88,21 @@ def worst_rows(rows: list[dict], n: int) -> list[dict]:
 def worst_table(rows: list[dict], n: int = 10):
     """rich renderable of the ``n`` worst items (blocking outcomes first, then smallest
     eigenvalue), with the reason of each item that is not plainly ok below the table."""
-    t = Table(show_header=True, header_style="bold", box=None, pad_edge=False,
-              title=f"worst {min(n, len(rows))} of {len(rows)} item(s)", title_justify="left")
+    t = Table(
+        show_header=True,
+        header_style="bold",
+        box=None,
+        pad_edge=False,
+        title=f"worst {min(n, len(rows))} of {len(rows)} item(s)",
+        title_justify="left",
+    )
     for col in ("item", "verdict", "gate", "smallest λ", "log10 κ", "main atom", "τ advised", "removed"):
-        t.add_column(col, justify="right" if col in ("smallest λ", "log10 κ", "τ advised", "removed") else "left",
-                     overflow="fold", no_wrap=col not in ("item", "main atom"))
+        t.add_column(
+            col,
+            justify="right" if col in ("smallest λ", "log10 κ", "τ advised", "removed") else "left",
+            overflow="fold",
+            no_wrap=col not in ("item", "main atom"),
+        )
     notes = []
     for r in worst_rows(rows, n):
         lam, cond = r["smallest_eigenvalue"], r["condition_number"]
@@ -99,5 +119,7 @@ def worst_table(rows: list[dict], n: int = 10):
         )
         if r["verdict"] != "pass" or r.get("outcome") != "ok" or r.get("change"):
             why = "; ".join(x for x in (r.get("change", ""), r.get("note", ""), r.get("reason", "")) if x)
-            notes.append(Text(f"  {why}" if r["verdict"] == "error" and not r.get("note") else f"  {item_label(r)}: {why}"))
+            notes.append(
+                Text(f"  {why}" if r["verdict"] == "error" and not r.get("note") else f"  {item_label(r)}: {why}")
+            )
     return Group(t, *notes)

@@ -1,4 +1,5 @@
 """Sentences shared by several report formats (one wording, several renderings)."""
+
 from __future__ import annotations
 
 

@@ -1,4 +1,5 @@
 """The report formats and their writers: one entry per format."""
+
 from __future__ import annotations
 
 from pathlib import Path
@@ -7,7 +8,6 @@ from .html import write_html
 from .json_report import write_json
 from .markdown import write_markdown
 from .plots import markdown_figures, report_plots, write_figures
-
 
 FORMATS = ("json", "md", "html", "all")
 

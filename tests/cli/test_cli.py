@@ -1,4 +1,5 @@
 """The command line as a user runs it: files written, exit codes, one-line errors."""
+
 import json
 import subprocess
 import sys
@@ -7,7 +8,6 @@ import pytest
 from typer.testing import CliRunner
 
 from auditor.cli import app
-
 from helpers import WATER, write_xyz
 
 runner = CliRunner()
@@ -38,7 +38,8 @@ def test_format_json_only_and_multiframe(tmp_path):
     text = ""
     for shift in (0.0, 0.1, 0.2):
         text += f"3\nframe {shift}\n" + "".join(
-            f"{s} {x:.5f} {y + shift:.5f} {z:.5f}\n" for s, (x, y, z) in zip(symbols, coords))
+            f"{s} {x:.5f} {y + shift:.5f} {z:.5f}\n" for s, (x, y, z) in zip(symbols, coords)
+        )
     f.write_text(text)
     out = tmp_path / "o"
     res = run("check", f, "-b", "sto-3g", "-o", out, "--format", "json")
@@ -61,7 +62,7 @@ def test_fail_exit_code_and_ghost_option(tmp_path):
 def test_bohr_unit_option(tmp_path):
     symbols, coords = WATER
     f = write_xyz(tmp_path / "wb.xyz", symbols, [[c / 0.529177210903 for c in xyz] for xyz in coords])
-    assert run("check", f, "-b", "sto-3g", "-o", tmp_path / "a").exit_code == 1       # read as ångström: units suspect
+    assert run("check", f, "-b", "sto-3g", "-o", tmp_path / "a").exit_code == 1  # read as ångström: units suspect
     assert run("check", f, "-b", "sto-3g", "-o", tmp_path / "b", "--unit", "bohr").exit_code == 0
 
 
@@ -139,15 +140,28 @@ def test_usage_errors(tmp_path, water_xyz):
     assert run("check", water_xyz, "-b", "sto-3g", "--format", "pdf").exit_code == 2
     assert run("check", water_xyz, "-b", "sto-3g", "--caution", "1e-9", "--fail", "1e-5").exit_code == 2
     assert run("check", water_xyz, "-b", "sto-3g", "--ghost", "2-x").exit_code == 2
-    assert run("check", water_xyz).exit_code == 2   # --basis missing
+    assert run("check", water_xyz).exit_code == 2  # --basis missing
 
 
 def test_console_script_prints_no_traceback(tmp_path):
     # the installed entry point, as a user runs it
     p = tmp_path / "nan.xyz"
     p.write_text("1\nc\nO nan 0 0\n")
-    proc = subprocess.run([sys.executable, "-c", "from auditor.cli import main; main()", "check", str(p),
-                           "-b", "sto-3g", "-o", str(tmp_path / "o")], capture_output=True, text=True)
+    proc = subprocess.run(
+        [
+            sys.executable,
+            "-c",
+            "from auditor.cli import main; main()",
+            "check",
+            str(p),
+            "-b",
+            "sto-3g",
+            "-o",
+            str(tmp_path / "o"),
+        ],
+        capture_output=True,
+        text=True,
+    )
     assert proc.returncode == 3
     assert "Traceback" not in proc.stderr + proc.stdout
     assert len(proc.stderr.strip().splitlines()) == 1

@@ -1,24 +1,25 @@
 """Batch gate internals: collecting items, the cache, the local engine's crash and timeout
 handling, the policy file and the baseline comparison."""
+
 import json
-from contextlib import closing
 import math
 import os
 import time
+from contextlib import closing
 
 import pytest
-from helpers import WATER, write_xyz
 
-from auditor.pipeline.run import make_spec
+from auditor.base.errors import UsageError
+from auditor.diagnosis.verdict import Policy
+from auditor.gate.baseline import judge
+from auditor.gate.cache import ResultCache, content_key, default_cache_dir
 from auditor.gate.engines import LocalEngine
 from auditor.gate.items import GateOptions, collect_items
+from auditor.gate.policy_file import Allowance, GatePolicy, load_gate_policy
 from auditor.gate.run import run_batch
 from auditor.gate.tasks import run_item
-from auditor.gate.cache import ResultCache, content_key, default_cache_dir
-from auditor.base.errors import UsageError
-from auditor.gate.baseline import judge
-from auditor.gate.policy_file import Allowance, GatePolicy, load_gate_policy
-from auditor.diagnosis.verdict import Policy
+from auditor.pipeline.run import make_spec
+from helpers import WATER, write_xyz
 
 OPTIONS = GateOptions(make_spec("sto-3g"), Policy())
 H2 = (["H", "H"], [[0, 0, 0], [0, 0, 0.74]])
@@ -53,7 +54,8 @@ def test_collect_folders_globs_lists_and_frames(tree):
     assert ("set/water.xyz", 1, "set__water") in got
     assert ("set/sub/water.xyz", 1, "set__sub__water") in got
     assert [g for g in got if g[0] == "set/sub/scan.xyz"] == [
-        ("set/sub/scan.xyz", k, f"set__sub__scan_f{k:03d}") for k in (1, 2, 3)]
+        ("set/sub/scan.xyz", k, f"set__sub__scan_f{k:03d}") for k in (1, 2, 3)
+    ]
     # the list, the folder and the glob name the same files: each is one item only
     assert len([g for g in got if g[0] == "set/water.xyz"]) == 1
     errors = {it.path: it.error for it in items if it.error}
@@ -93,7 +95,7 @@ def test_cache_round_trip_and_corrupt_entries(tmp_path):
 
 def test_unusable_cache_counts_failures_instead_of_raising(tmp_path):
     (tmp_path / "plain_file").write_text("")
-    cache = ResultCache(tmp_path / "plain_file" / "cache")   # cannot be created
+    cache = ResultCache(tmp_path / "plain_file" / "cache")  # cannot be created
     cache.put(content_key({"a": 1}), "{}", {})
     assert cache.failed_writes == 1 and cache.get(content_key({"a": 1})) is None
     (tmp_path / "junk").mkdir()
@@ -114,8 +116,7 @@ def test_default_cache_dir_follows_xdg(monkeypatch, tmp_path):
 def test_key_ignores_file_name_but_not_geometry_or_options(tree):
     cache = ResultCache(tree / "cache")
     write_xyz(tree / "moved.xyz", [s for s in WATER[0]], [[x + 1e-6 for x in r] for r in WATER[1]])
-    run = run_batch(["set/water.xyz", "set/sub/water.xyz", "moved.xyz"], OPTIONS, tree / "out",
-                    LocalEngine(1), cache)
+    run = run_batch(["set/water.xyz", "set/sub/water.xyz", "moved.xyz"], OPTIONS, tree / "out", LocalEngine(1), cache)
     # two files with the same geometry share one entry (and one audit); a moved atom is a new entry
     assert run.computed + run.cached == 3 and run.computed == 2
     with closing(ResultCache(tree / "cache")) as c:
@@ -143,9 +144,11 @@ def test_worker_crash_and_timeout_mark_only_their_item(tree):
 
 def test_policy_file_levels_overrides_and_allowances(tmp_path):
     f = tmp_path / "policy.toml"
-    f.write_text('caution = 1e-4\nfail = 1e-6\n[basis."AUG-cc-pVDZ"]\nfail = 1e-9\ncaution = 1e-7\n'
-                 '[[allow]]\npath = "legacy/*.xyz"\nreason = "kept for history"\n'
-                 '[[allow]]\npath = "scan.xyz"\nframe = 2\nreason = "the short contact is the point"\n')
+    f.write_text(
+        'caution = 1e-4\nfail = 1e-6\n[basis."AUG-cc-pVDZ"]\nfail = 1e-9\ncaution = 1e-7\n'
+        '[[allow]]\npath = "legacy/*.xyz"\nreason = "kept for history"\n'
+        '[[allow]]\npath = "scan.xyz"\nframe = 2\nreason = "the short contact is the point"\n'
+    )
     gp = load_gate_policy(f)
     assert gp.levels_for("cc-pvdz") == Policy(1e-4, 1e-6)
     assert gp.levels_for("aug-cc-pvdz") == Policy(1e-7, 1e-9)
@@ -154,13 +157,16 @@ def test_policy_file_levels_overrides_and_allowances(tmp_path):
     assert gp.allowance("scan.xyz", 2) is not None and gp.allowance("scan.xyz", 1) is None
 
 
-@pytest.mark.parametrize("text, words", [
-    ("caution = \n", "not valid TOML"),
-    ("cuation = 1e-5\n", "unknown key"),
-    ("caution = 1e-8\nfail = 1e-5\n", "must not exceed"),
-    ("[[allow]]\npath = \"a.xyz\"\n", "needs a reason"),
-    ("[basis.x]\nfail = \"low\"\n", "must be a number"),
-])
+@pytest.mark.parametrize(
+    "text, words",
+    [
+        ("caution = \n", "not valid TOML"),
+        ("cuation = 1e-5\n", "unknown key"),
+        ("caution = 1e-8\nfail = 1e-5\n", "must not exceed"),
+        ('[[allow]]\npath = "a.xyz"\n', "needs a reason"),
+        ('[basis.x]\nfail = "low"\n', "must be a number"),
+    ],
+)
 def test_bad_policy_files_are_usage_errors(tmp_path, text, words):
     f = tmp_path / "p.toml"
     f.write_text(text)
@@ -178,10 +184,20 @@ def test_judge_with_and_without_baseline():
     rows = [_row("a", "pass", 1e-3), _row("b", "fail", 1e-9), _row("c", "error", math.nan, None)]
     judge(rows, gp)
     assert [r["outcome"] for r in rows] == ["ok", "blocked", "blocked"]
-    baseline = {("a", 1): _row("a", "pass", 1e-1), ("b", 1): _row("b", "fail", 2e-9),
-                ("d", 1): _row("d", "fail", 1e-9), ("e", 1): _row("e", "pass", 1e-5)}
-    rows = [_row("a", "pass", 1e-3), _row("b", "fail", 1e-9), _row("d", "pass", 1e-4),
-            _row("e", "pass", 1e-3), _row("f", "caution", 1e-6), _row("g", "fail", 1e-8)]
+    baseline = {
+        ("a", 1): _row("a", "pass", 1e-1),
+        ("b", 1): _row("b", "fail", 2e-9),
+        ("d", 1): _row("d", "fail", 1e-9),
+        ("e", 1): _row("e", "pass", 1e-5),
+    }
+    rows = [
+        _row("a", "pass", 1e-3),
+        _row("b", "fail", 1e-9),
+        _row("d", "pass", 1e-4),
+        _row("e", "pass", 1e-3),
+        _row("f", "caution", 1e-6),
+        _row("g", "fail", 1e-8),
+    ]
     judge(rows, gp, baseline, drop_decades=1.0)
     got = {r["path"]: (r["outcome"], r["change"]) for r in rows}
     assert got["a"] == ("regressed", "dropped 2.0 decades")
@@ -204,10 +220,9 @@ def test_brief_gives_the_same_summary_row_as_the_whole_report():
     import auditor
     from auditor.report.json_report import to_json
     from auditor.report.rows import brief, result_row
-
     from helpers import make_molecule
 
-    pasted = make_molecule(WATER[0] + ["H"], WATER[1] + [WATER[1][1]])   # coincident atoms: error finding
+    pasted = make_molecule(WATER[0] + ["H"], WATER[1] + [WATER[1][1]])  # coincident atoms: error finding
     for mol in (make_molecule(*WATER), pasted):
         full = json.loads(to_json(auditor.audit(mol, "aug-cc-pvdz", remedies=False)))
         assert result_row("p.xyz", 1, "p", brief(full)) == result_row("p.xyz", 1, "p", full)
@@ -224,8 +239,9 @@ def test_spawned_workers_give_the_same_reports(tree, monkeypatch):
     monkeypatch.setattr(auditor.gate.engines, "worker_context", lambda: mp.get_context("spawn"))
     spawned = run_batch(["set/water.xyz"], OPTIONS, tree / "spawned", LocalEngine(1), None)
     assert forked.computed == spawned.computed == 1
-    assert (tree / "forked" / "items" / "set__water.json").read_text() == \
-        (tree / "spawned" / "items" / "set__water.json").read_text()
+    assert (tree / "forked" / "items" / "set__water.json").read_text() == (
+        tree / "spawned" / "items" / "set__water.json"
+    ).read_text()
 
 
 def test_command_line_starts_workers_early_only_when_nothing_is_cached(tmp_path, monkeypatch):
@@ -240,12 +256,12 @@ def test_command_line_starts_workers_early_only_when_nothing_is_cached(tmp_path,
     cached.mkdir()
     (cached / FILE_NAME).write_bytes(b"")
     expected = {
-        ("gate", "set", "-b", "sto-3g"): 1,                                   # default cache absent
+        ("gate", "set", "-b", "sto-3g"): 1,  # default cache absent
         ("gate", "set", "--no-cache"): 1,
         ("gate", "set", "--cache-dir", str(tmp_path / "empty")): 1,
-        ("gate", "set", "--cache-dir", str(cached)): 0,                       # results may be cached
+        ("gate", "set", "--cache-dir", str(cached)): 0,  # results may be cached
         ("gate", "set", f"--cache-dir={cached}"): 0,
-        ("gate", "set", "--engine", "dask", "--no-cache"): 0,                 # remote workers
+        ("gate", "set", "--engine", "dask", "--no-cache"): 0,  # remote workers
         ("gate", "--help"): 0,
         ("check", "a.xyz", "--no-cache"): 0,
     }

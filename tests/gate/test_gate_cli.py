@@ -1,7 +1,7 @@
 """`auditor gate` end to end: mixed sets, cache reuse, interruption and resume, policy,
 baseline, JUnit XML, the Dask engine and the pre-commit hook definition."""
+
 import json
-from contextlib import closing
 import os
 import shlex
 import signal
@@ -9,15 +9,16 @@ import subprocess
 import sys
 import time
 import xml.etree.ElementTree as ET
+from contextlib import closing
 from pathlib import Path
 
 import pandas as pd
 import pytest
-from helpers import WATER, write_xyz
 from typer.testing import CliRunner
 
-from auditor.gate.cache import ResultCache
 from auditor.cli import app
+from auditor.gate.cache import ResultCache
+from helpers import WATER, write_xyz
 
 ROOT = Path(__file__).resolve().parents[2]
 H2 = (["H", "H"], [[0, 0, 0], [0, 0, 0.74]])
@@ -61,8 +62,13 @@ def test_mixed_set_reports_every_item_with_reasons(mixed):
     assert len(df) == 10
     by = {(p, f): r for p, f, r in zip(df.path, df.frame.fillna(0).astype(int), df.to_dict("records"))}
     # sto-3g: one function per H, five on O
-    for key, n_functions in {("set/water.xyz", 1): 7, ("set/deep/h2.xyz", 1): 2,
-                             ("set/scan.xyz", 1): 2, ("set/scan.xyz", 2): 2, ("set/scan.xyz", 3): 2}.items():
+    for key, n_functions in {
+        ("set/water.xyz", 1): 7,
+        ("set/deep/h2.xyz", 1): 2,
+        ("set/scan.xyz", 1): 2,
+        ("set/scan.xyz", 2): 2,
+        ("set/scan.xyz", 3): 2,
+    }.items():
         row = by[key]
         assert row["verdict"] == "pass" and row["outcome"] == "ok"
         assert row["n_functions"] == n_functions and row["smallest_eigenvalue"] > 1e-2
@@ -138,8 +144,14 @@ def test_exit_codes_policy_file_and_usage_errors(mixed):
     gate("set/water.xyz", "-b", "sto-3g", "-o", "out", "--no-cache", "--policy", "levels.toml")
     assert summary(mixed / "out").verdict.tolist() == ["caution"]
     Path("broken.toml").write_text("caution = [\n")
-    for bad in (["--policy", "broken.toml"], ["--jobs", "0"], ["--engine", "dask"],
-                ["--baseline", "nothere.csv"], ["--unit", "furlong"], ["--basis-for", "Xx=sto-3g"]):
+    for bad in (
+        ["--policy", "broken.toml"],
+        ["--jobs", "0"],
+        ["--engine", "dask"],
+        ["--baseline", "nothere.csv"],
+        ["--unit", "furlong"],
+        ["--basis-for", "Xx=sto-3g"],
+    ):
         res = gate("set/water.xyz", "-b", "sto-3g", "-o", "out", "--no-cache", *bad)
         assert res.exit_code == 2, (bad, res.output)
         assert "Traceback" not in res.output
@@ -150,10 +162,10 @@ def test_exit_codes_policy_file_and_usage_errors(mixed):
 def test_baseline_fails_only_on_regressions(mixed):
     base = mixed / "base"
     base.mkdir()
-    write_xyz(base / "a.xyz", *WATER)     # stays good
-    write_xyz(base / "b.xyz", *PASTED)    # fails before and after
-    write_xyz(base / "c.xyz", *H2)        # squeezed below
-    write_xyz(base / "d.xyz", *PASTED)    # repaired below
+    write_xyz(base / "a.xyz", *WATER)  # stays good
+    write_xyz(base / "b.xyz", *PASTED)  # fails before and after
+    write_xyz(base / "c.xyz", *H2)  # squeezed below
+    write_xyz(base / "d.xyz", *PASTED)  # repaired below
     gate("base", "-b", "cc-pvdz", "-o", "old", "--no-cache", "-j", "1")
     old = summary(mixed / "old").set_index("path")
     write_xyz(base / "c.xyz", ["H", "H"], [[0, 0, 0], [0, 0, 0.1]])
@@ -169,7 +181,19 @@ def test_baseline_fails_only_on_regressions(mixed):
         assert (new.loc["base/d.xyz", "outcome"], new.loc["base/d.xyz", "change"]) == ("ok", "fixed")
         assert "improved: base/d.xyz" in res.output
     # without the regressed item only a known failure is left: the gate passes
-    res = gate("base/a.xyz", "base/b.xyz", "-b", "cc-pvdz", "-o", "new", "--no-cache", "-j", "1", "--baseline", "old/summary.csv")
+    res = gate(
+        "base/a.xyz",
+        "base/b.xyz",
+        "-b",
+        "cc-pvdz",
+        "-o",
+        "new",
+        "--no-cache",
+        "-j",
+        "1",
+        "--baseline",
+        "old/summary.csv",
+    )
     assert res.exit_code == 0, res.output
 
 
@@ -190,11 +214,27 @@ def test_killed_run_leaves_no_corrupt_file_and_resumes(mixed):
     big = (ROOT / "example_geometries" / "water_octamer.xyz").read_text()
     (s / "zz_octamer.xyz").write_text(big)  # sorted last, and slow: the run is still busy when killed
     (s / "zz_octamer2.xyz").write_text(big.replace(" 0.", " 0.01", 1))
-    cmd = [sys.executable, "-m", "auditor.cli", "gate", "resume", "-b", "aug-cc-pvtz", "-o", "out",
-           "--cache-dir", "cache", "-j", "1", "-q"]
-    proc = subprocess.Popen(cmd, cwd=mixed, start_new_session=True,
-                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    cmd = [
+        sys.executable,
+        "-m",
+        "auditor.cli",
+        "gate",
+        "resume",
+        "-b",
+        "aug-cc-pvtz",
+        "-o",
+        "out",
+        "--cache-dir",
+        "cache",
+        "-j",
+        "1",
+        "-q",
+    ]
+    proc = subprocess.Popen(
+        cmd, cwd=mixed, start_new_session=True, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL
+    )
     try:
+
         def entries():  # committed entries only
             with closing(ResultCache(mixed / "cache")) as c:
                 return c.keys()
@@ -222,21 +262,33 @@ def test_killed_run_leaves_no_corrupt_file_and_resumes(mixed):
 def test_dask_local_cluster_gives_the_local_summary(mixed):
     distributed = pytest.importorskip("dask.distributed")
     gate("set", "-b", "sto-3g", "-o", "local", "--no-cache", "-j", "1")
-    with distributed.LocalCluster(n_workers=1, threads_per_worker=1, processes=True, host="127.0.0.1",
-                                  dashboard_address=None) as cluster:
+    with distributed.LocalCluster(
+        n_workers=1, threads_per_worker=1, processes=True, host="127.0.0.1", dashboard_address=None
+    ) as cluster:
         address = cluster.scheduler_address
         assert address.startswith("tcp://127.0.0.1:")
         res = gate("set", "-b", "sto-3g", "-o", "dask", "--no-cache", "--engine", "dask", "--scheduler", address)
     assert res.exit_code == 1, res.output
-    pd.testing.assert_frame_equal(pd.read_parquet(mixed / "dask" / "summary.parquet"),
-                                  pd.read_parquet(mixed / "local" / "summary.parquet"))
+    pd.testing.assert_frame_equal(
+        pd.read_parquet(mixed / "dask" / "summary.parquet"), pd.read_parquet(mixed / "local" / "summary.parquet")
+    )
     for report in (mixed / "local" / "items").glob("*.json"):
         assert report.read_text() == (mixed / "dask" / "items" / report.name).read_text()
 
 
 def test_unreachable_scheduler_is_a_usage_error(mixed):
-    res = gate("set/water.xyz", "-b", "sto-3g", "-o", "out", "--no-cache", "--engine", "dask",
-               "--scheduler", "tcp://127.0.0.1:9")
+    res = gate(
+        "set/water.xyz",
+        "-b",
+        "sto-3g",
+        "-o",
+        "out",
+        "--no-cache",
+        "--engine",
+        "dask",
+        "--scheduler",
+        "tcp://127.0.0.1:9",
+    )
     assert res.exit_code == 2 and "cannot reach the Dask scheduler" in res.output
 
 
@@ -246,6 +298,7 @@ def test_pre_commit_hook_runs_the_gate(mixed):
     hook = next(h for h in hooks if h["entry"].startswith("auditor gate"))
     # pre-commit runs: entry + args + the staged files that match `files`
     import re
+
     files = [f for f in ("set/water.xyz", "set/scan.xyz", "README.md") if re.search(hook["files"], f)]
     assert files == ["set/water.xyz", "set/scan.xyz"]
     argv = shlex.split(hook["entry"]) + hook.get("args", []) + files

@@ -1,4 +1,5 @@
 """The large-system spectrum path against the dense eigendecomposition."""
+
 from __future__ import annotations
 
 import numpy as np
@@ -6,10 +7,10 @@ import pytest
 from scipy.linalg import lapack
 
 from auditor.base.errors import EXIT_RESOURCE, ResourceError
+from auditor.numerics.eigen import compute_spectrum
 from auditor.numerics.factored import large_spectrum
 from auditor.numerics.inplace import _cholesky, _ldl_negative_count
 from auditor.numerics.memory import _HEADROOM_BYTES, check_memory, estimate_bytes, resolve_method
-from auditor.numerics.eigen import compute_spectrum
 from auditor.numerics.spectrum import COUNT_LEVELS, level_key
 
 WATER = [("O", (0.0, 0.0, 0.0)), ("H", (0.9572, 0.0, 0.0)), ("H", (-0.2400, 0.9266, 0.0))]
@@ -217,7 +218,7 @@ def test_memory_guard_refuses_impossible_size():
 
 
 def test_memory_guard_names_needed_and_available():
-    gib = 1024 ** 3
+    gib = 1024**3
     with pytest.raises(ResourceError) as err:
         check_memory(30000, "full", available=16 * gib)
     msg = str(err.value)
@@ -227,7 +228,7 @@ def test_memory_guard_names_needed_and_available():
     # measured peaks of the large path: 1.09-1.20 copies of S (README benchmark); the guard
     # must count at least S itself and stay below 1.4 copies
     needed = check_memory(30000, "large", available=16 * gib)
-    assert 8 * 30000 ** 2 < needed < 1.4 * 8 * 30000 ** 2
+    assert 8 * 30000**2 < needed < 1.4 * 8 * 30000**2
 
 
 def _write_trimer_with_ghost(path, distance):
@@ -253,21 +254,22 @@ def test_audit_causes_rank_the_same_on_both_paths(tmp_path):
     assert large.causes.n_vectors == full.causes.n_vectors > 0
     assert _ranking(large.causes.atoms, "atom") == _ranking(full.causes.atoms, "atom")
     assert _ranking(large.causes.shells, "shell") == _ranking(full.causes.shells, "shell")
-    for a, b in zip(sorted(large.causes.atoms, key=lambda e: e["atom"]),
-                    sorted(full.causes.atoms, key=lambda e: e["atom"])):
+    for a, b in zip(
+        sorted(large.causes.atoms, key=lambda e: e["atom"]), sorted(full.causes.atoms, key=lambda e: e["atom"])
+    ):
         assert abs(a["weight"] - b["weight"]) < 1e-5  # reference: the full path (eigh)
     assert abs(large.spectrum.smallest - full.spectrum.smallest) <= 1e-8 * full.spectrum.smallest
 
 
 def test_audit_refuses_before_building_S(tmp_path, monkeypatch):
     import auditor
-    import auditor.pipeline.run
     import auditor.numerics.memory
+    import auditor.pipeline.run
 
     def must_not_build(*_):
         raise AssertionError("S was built although the memory guard should refuse")
 
-    monkeypatch.setattr(auditor.numerics.memory, "available_bytes", lambda: 64 * 1024 ** 2)
+    monkeypatch.setattr(auditor.numerics.memory, "available_bytes", lambda: 64 * 1024**2)
     monkeypatch.setattr(auditor.numerics.memory, "_SMALL_BYTES", 0)  # this molecule is small enough to skip the check
     monkeypatch.setattr(auditor.pipeline.run, "normalized_overlap", must_not_build)
     xyz = _write_trimer_with_ghost(tmp_path / "g.xyz", 0.5)
@@ -289,8 +291,10 @@ def test_cli_spectrum_option_large_matches_full(tmp_path):
     f = write_xyz(tmp_path / "w.xyz", symbols + ["H"], coords + [[0.0, 0.7572, -0.4392]])
     got = {}
     for method in ("full", "large"):
-        res = CliRunner().invoke(app, ["check", str(f), "-b", "aug-cc-pvdz", "-o", str(tmp_path / method),
-                                       "-f", "json", "--spectrum", method])
+        res = CliRunner().invoke(
+            app,
+            ["check", str(f), "-b", "aug-cc-pvdz", "-o", str(tmp_path / method), "-f", "json", "--spectrum", method],
+        )
         assert res.exit_code in (0, 1), res.output
         got[method] = json.loads((tmp_path / method / "w.json").read_text())["spectrum"]
     assert got["large"]["method"] == "large" and got["full"]["method"] == "full"
@@ -306,7 +310,7 @@ def test_large_path_gives_max_X_only_where_certified():
     S = trimer_with_ghost(0.05)
     w, U = reference(S)
     spec = large_spectrum(S, vector_level=1e-5)
-    assert spec.beyond == 1e-5   # every eigenvalue below the level was computed
+    assert spec.beyond == 1e-5  # every eigenvalue below the level was computed
     certified = 0
     for t in CANDIDATES:
         removed = int(np.sum(w < t))

@@ -1,15 +1,15 @@
 """The overlap computation held against sources outside the project."""
+
 import numpy as np
 import pytest
 from scipy.optimize import brentq
 
-from auditor.pipeline.run import prepare
-from auditor.inputs.basis import BasisSpec, load_shells
-from auditor.diagnosis.findings import gaussian_s_overlap
 from auditor.base.elements import BOHR_IN_ANGSTROM
-from auditor.numerics.overlap import normalized_overlap
+from auditor.diagnosis.findings import gaussian_s_overlap
+from auditor.inputs.basis import BasisSpec, load_shells
 from auditor.numerics.eigen import compute_spectrum
-
+from auditor.numerics.overlap import normalized_overlap
+from auditor.pipeline.run import prepare
 from helpers import make_molecule
 
 
@@ -22,8 +22,13 @@ def slater_1s_overlap(R):
 def two_centre_overlap(basis, R_bohr, element="H"):
     from pyscf import gto
 
-    mol = gto.M(atom=[(element, (0, 0, 0)), (element, (0, 0, R_bohr))], unit="Bohr",
-                basis={element: basis}, spin=None, verbose=0)
+    mol = gto.M(
+        atom=[(element, (0, 0, 0)), (element, (0, 0, R_bohr))],
+        unit="Bohr",
+        basis={element: basis},
+        spin=None,
+        verbose=0,
+    )
     S = normalized_overlap(mol)
     return S[0, 1]
 
@@ -63,8 +68,13 @@ def test_closed_form_s_gaussian_overlap(a, b, R):
     got = two_centre_overlap([[0, [a, 1.0]]], R, element="H") if a == b else None
     from pyscf import gto
 
-    mol = gto.M(atom=[("H", (0, 0, 0)), ("He", (0, 0, R if R else 1e-9))], unit="Bohr",
-                basis={"H": [[0, [a, 1.0]]], "He": [[0, [b, 1.0]]]}, spin=1, verbose=0)
+    mol = gto.M(
+        atom=[("H", (0, 0, 0)), ("He", (0, 0, R if R else 1e-9))],
+        unit="Bohr",
+        basis={"H": [[0, [a, 1.0]]], "He": [[0, [b, 1.0]]]},
+        spin=1,
+        verbose=0,
+    )
     got = normalized_overlap(mol)[0, 1]
     assert got == pytest.approx(closed, rel=1e-10, abs=1e-14)
 
@@ -82,11 +92,11 @@ def _primitive(centre, powers, a):
     def f(x, y, z):
         dx, dy, dz = x - centre[0], y - centre[1], z - centre[2]
         return dx ** powers[0] * dy ** powers[1] * dz ** powers[2] * np.exp(-a * (dx * dx + dy * dy + dz * dz))
+
     return f
 
 
-CART = {1: [(1, 0, 0), (0, 1, 0), (0, 0, 1)],
-        2: [(2, 0, 0), (1, 1, 0), (1, 0, 1), (0, 2, 0), (0, 1, 1), (0, 0, 2)]}
+CART = {1: [(1, 0, 0), (0, 1, 0), (0, 0, 1)], 2: [(2, 0, 0), (1, 1, 0), (1, 0, 1), (0, 2, 0), (0, 1, 1), (0, 0, 2)]}
 
 
 @pytest.mark.parametrize("la,lb,a,b", [(1, 1, 0.8, 0.5), (1, 2, 0.6, 0.9), (2, 2, 0.7, 0.4)])
@@ -97,8 +107,14 @@ def test_quadrature_p_and_d_elements(la, lb, a, b):
     from scipy.integrate import trapezoid
 
     A, B = np.array([0.0, 0.0, 0.0]), np.array([0.4, -0.3, 0.9])
-    mol = gto.M(atom=[("H", A), ("He", B)], unit="Bohr", cart=True, spin=1, verbose=0,
-                basis={"H": [[la, [a, 1.0]]], "He": [[lb, [b, 1.0]]]})
+    mol = gto.M(
+        atom=[("H", A), ("He", B)],
+        unit="Bohr",
+        cart=True,
+        spin=1,
+        verbose=0,
+        basis={"H": [[la, [a, 1.0]]], "He": [[lb, [b, 1.0]]]},
+    )
     S = normalized_overlap(mol)
     g = np.linspace(-7.5, 8.5, 161)
     X, Y, Z = np.meshgrid(g, g, g, indexing="ij")
@@ -148,8 +164,9 @@ def test_coincident_atoms_give_zero_eigenvalue():
     assert spec.counts_below["1e-10"] == 5  # every H function is doubled: 5 functions in cc-pVDZ H
 
 
-@pytest.mark.parametrize("name,element", [("cc-pvtz", "O"), ("aug-cc-pvtz", "H"), ("aug-cc-pvtz", "C"),
-                                          ("6-31+g*", "O")])
+@pytest.mark.parametrize(
+    "name,element", [("cc-pvtz", "O"), ("aug-cc-pvtz", "H"), ("aug-cc-pvtz", "C"), ("6-31+g*", "O")]
+)
 def test_exponents_agree_with_basis_set_exchange(name, element):
     # A second basis library (basis_set_exchange, MolSSI) holds the same exponents per l.
     bse = pytest.importorskip("basis_set_exchange")
@@ -159,7 +176,7 @@ def test_exponents_agree_with_basis_set_exchange(name, element):
     ref: dict[int, set] = {}
     for shell in bse.get_basis(name, elements=[z])["elements"][str(z)]["electron_shells"]:
         ls = shell["angular_momentum"]
-        for l in (ls if len(ls) > 1 else ls * 1):
+        for l in ls if len(ls) > 1 else ls * 1:
             ref.setdefault(l, set()).update(round(float(e), 6) for e in shell["exponents"])
     ours: dict[int, set] = {}
     for shell in load_shells(name, element):

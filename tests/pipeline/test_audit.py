@@ -1,18 +1,18 @@
 """Findings, causes, advice and verdicts on planted defects."""
+
 import json
 
 import numpy as np
 import pytest
 
 import auditor
-from auditor.pipeline.run import prepare
-from auditor.inputs.basis import BasisSpec, parent_basis
-from auditor.diagnosis.findings import MAX_CROWDING_FINDINGS
 from auditor.base.elements import BOHR_IN_ANGSTROM
+from auditor.diagnosis.findings import MAX_CROWDING_FINDINGS
+from auditor.inputs.basis import BasisSpec, parent_basis
+from auditor.numerics.eigen import compute_spectrum
+from auditor.pipeline.run import prepare
 from auditor.remedies.canonical import advise, find_gap
 from auditor.report.json_report import to_json
-from auditor.numerics.eigen import compute_spectrum
-
 from helpers import WATER, make_molecule
 
 
@@ -61,9 +61,14 @@ def test_reused_mole_and_assembled_table_match_a_fresh_build(cartesian):
     for step in range(3):  # the first call builds the template, the next ones reuse it
         coords = base + rng.uniform(-0.1, 0.1, base.shape)
         mol = make_molecule(symbols, coords, ghost=[False, False, False, True, True])
-        fresh = gto.M(atom=[("ghost-" + s if g else s, tuple(c)) for s, g, c in zip(symbols, mol.ghost, coords)],
-                      basis={"O": "aug-cc-pvdz", "H": "aug-cc-pvdz", "ghost-N": "cc-pvtz",
-                             "ghost-H": "aug-cc-pvdz"}, unit="Angstrom", cart=cartesian, spin=0, verbose=0)
+        fresh = gto.M(
+            atom=[("ghost-" + s if g else s, tuple(c)) for s, g, c in zip(symbols, mol.ghost, coords)],
+            basis={"O": "aug-cc-pvdz", "H": "aug-cc-pvdz", "ghost-N": "cc-pvtz", "ghost-H": "aug-cc-pvdz"},
+            unit="Angstrom",
+            cart=cartesian,
+            spin=0,
+            verbose=0,
+        )
         pm = build_mole(mol, spec)
         assert np.array_equal(normalized_overlap(pm), normalized_overlap(fresh))  # bit for bit
         got, ref = function_table(mol, spec), mole_function_table(fresh, mol, spec)
@@ -76,7 +81,7 @@ def test_cartesian_changes_count_and_spectrum(water):
     # Cartesian d shells have 6 components instead of 5 (the extra one is s-like, x^2+y^2+z^2)
     sph = auditor.audit(water, "cc-pvtz")
     cart = auditor.audit(water, "cc-pvtz", cartesian=True)
-    n_d, n_f = 2 + 2 * 1, 1   # cc-pVTZ: O has 2d1f, each H has 1d
+    n_d, n_f = 2 + 2 * 1, 1  # cc-pVTZ: O has 2d1f, each H has 1d
     assert cart.input.n_functions - sph.input.n_functions == n_d * 1 + n_f * 3
     assert cart.spectrum.smallest < sph.spectrum.smallest
 
@@ -110,8 +115,9 @@ def test_ghost_close_to_atom_is_blamed():
     assert "short_contact" not in kinds(r)
 
 
-@pytest.mark.parametrize("factor,expect", [(1 / BOHR_IN_ANGSTROM, "bohr read as ångström"),
-                                           (BOHR_IN_ANGSTROM, "ångström read as bohr")])
+@pytest.mark.parametrize(
+    "factor,expect", [(1 / BOHR_IN_ANGSTROM, "bohr read as ångström"), (BOHR_IN_ANGSTROM, "ångström read as bohr")]
+)
 def test_unit_mixup_detected(factor, expect):
     from ase.build import molecule
 
@@ -195,19 +201,22 @@ def _overlap(symbols, coords, basis):
 
 
 _DIMER = (WATER[0] * 2, WATER[1] + [[x + 2.9, y, z] for x, y, z in WATER[1]])
-_PASTED = (_DIMER[0] + ["H"], _DIMER[1] + [[0.0, 0.7572, -0.4692]])   # a second H on top of H2
+_PASTED = (_DIMER[0] + ["H"], _DIMER[1] + [[0.0, 0.7572, -0.4692]])  # a second H on top of H2
 
 
-@pytest.mark.parametrize("symbols, coords, basis", [
-    (*_DIMER, "aug-cc-pvtz"),        # clean, a few hundred functions
-    (*_PASTED, "aug-cc-pvtz"),       # exactly singular: a degenerate null space
-    (*_DIMER, "d-aug-cc-pvtz"),      # doubly augmented: many small eigenvalues
-])
+@pytest.mark.parametrize(
+    "symbols, coords, basis",
+    [
+        (*_DIMER, "aug-cc-pvtz"),  # clean, a few hundred functions
+        (*_PASTED, "aug-cc-pvtz"),  # exactly singular: a degenerate null space
+        (*_DIMER, "d-aug-cc-pvtz"),  # doubly augmented: many small eigenvalues
+    ],
+)
 def test_selective_spectrum_matches_dense_eigh(symbols, coords, basis):
     # reference: numpy.linalg.eigh (LAPACK syevd) of the same overlap matrix
-    from auditor.remedies.canonical import CANDIDATES
     from auditor.numerics.dense import _SELECTIVE_FROM, _selective, full_spectrum
     from auditor.numerics.spectrum import max_transform_element
+    from auditor.remedies.canonical import CANDIDATES
 
     S = _overlap(symbols, coords, basis)
     assert S.shape[0] >= _SELECTIVE_FROM and _selective(S, 1e-5, 3) is not None  # the path under test ran
@@ -243,7 +252,7 @@ def max_transform_element_of(values, colmax, n_removed):
 
 
 def test_no_gap_uses_default():
-    lam = np.geomspace(1e-8, 2.0, 60)   # evenly spread: no gap a decade wide
+    lam = np.geomspace(1e-8, 2.0, 60)  # evenly spread: no gap a decade wide
     S = np.diag(lam)
     rec = advise(compute_spectrum(S, vector_level=1e-5), default_threshold=1e-6, min_kept=1e-7)
     assert rec.threshold == 1e-6
@@ -253,8 +262,12 @@ def test_no_gap_uses_default():
 def test_policy_levels_move_the_verdict(water):
     r = auditor.audit(water, "aug-cc-pvdz")
     lam = r.spectrum.smallest
-    assert auditor.audit(water, "aug-cc-pvdz", policy=auditor.Policy(caution=lam * 10, fail=lam / 10)).verdict == "caution"
-    assert auditor.audit(water, "aug-cc-pvdz", policy=auditor.Policy(caution=lam * 100, fail=lam * 10)).verdict == "fail"
+    assert (
+        auditor.audit(water, "aug-cc-pvdz", policy=auditor.Policy(caution=lam * 10, fail=lam / 10)).verdict == "caution"
+    )
+    assert (
+        auditor.audit(water, "aug-cc-pvdz", policy=auditor.Policy(caution=lam * 100, fail=lam * 10)).verdict == "fail"
+    )
     with pytest.raises(auditor.UsageError):
         auditor.Policy(caution=1e-8, fail=1e-5)
 
@@ -307,7 +320,6 @@ def test_chunked_diffuse_maxima_equal_direct_blocks():
     prep = prepare(mol, BasisSpec("aug-cc-pvdz"))
     t, S = prep.table, prep.S
     shells = np.flatnonzero(t.shell_diffuse)
-    direct = np.array([[np.abs(S[np.ix_(t.func_shell == i, t.func_shell == j)]).max() for j in shells]
-                       for i in shells])
+    direct = np.array([[np.abs(S[np.ix_(t.func_shell == i, t.func_shell == j)]).max() for j in shells] for i in shells])
     for chunk in (2**25, 4000, 64):
         assert np.array_equal(_diffuse_block_maxima(S, t, shells, chunk), direct)

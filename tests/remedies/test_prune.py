@@ -1,26 +1,29 @@
 """Remedies: pruned-basis JSON, ranked alternatives, trial SCF and the `prune` command."""
+
 from __future__ import annotations
 
 import json
 
 import numpy as np
 import pytest
-from helpers import make_molecule, write_xyz
 from pyscf import gto
 from typer.testing import CliRunner
 
 import auditor
-from auditor.pipeline.run import make_spec, prepare
-from auditor.cli import app
 from auditor.base.errors import UsageError
-from auditor.numerics.overlap import normalized_overlap
+from auditor.cli import app
 from auditor.inputs.pruned import load_pruned, load_pruned_doc
+from auditor.numerics.overlap import normalized_overlap
+from auditor.pipeline.run import make_spec, prepare
 from auditor.remedies.plan import RemedyOptions, plan_remedies
 from auditor.remedies.pruned_basis import pruned_basis
 from auditor.remedies.trial_scf import run_scf, scf_mole, trial_scf
+from helpers import make_molecule, write_xyz
 
-DIMER = (["O", "H", "H", "O", "H", "H"],
-         [[0, 0, 0], [0.757, 0.586, 0], [-0.757, 0.586, 0], [0.3, -0.2, 2.2], [1.0, 0.4, 2.3], [-0.5, 0.3, 2.5]])
+DIMER = (
+    ["O", "H", "H", "O", "H", "H"],
+    [[0, 0, 0], [0.757, 0.586, 0], [-0.757, 0.586, 0], [0.3, -0.2, 2.2], [1.0, 0.4, 2.3], [-0.5, 0.3, 2.5]],
+)
 HE2 = (["He", "He"], [[0.0, 0.0, 0.0], [0.0, 0.0, 0.9]])
 
 runner = CliRunner()
@@ -87,8 +90,9 @@ def test_dropping_diffuse_shells_of_one_element_matches_parent_basis():
     r = auditor.audit_prepared(prep, remedies=False)
     plan = plan_remedies(prep, r.recommendation, r.spectrum.smallest, 5e-2)
     opt = {o["element"]: o for o in plan.diffuse}["H"]
-    mol = gto.M(atom=[(s, c) for s, c in zip(*DIMER)], basis={"O": "aug-cc-pvdz", "H": "cc-pvdz"},
-                unit="Angstrom", verbose=0)
+    mol = gto.M(
+        atom=[(s, c) for s, c in zip(*DIMER)], basis={"O": "aug-cc-pvdz", "H": "cc-pvdz"}, unit="Angstrom", verbose=0
+    )
     assert opt["smallest_after"] == pytest.approx(np.linalg.eigvalsh(normalized_overlap(mol))[0], rel=1e-9)
     assert opt["removed"] == prep.table.n_functions - mol.nao
 
@@ -147,14 +151,30 @@ def test_trial_scf_reports_and_limits():
 
 def test_check_json_and_markdown_carry_remedies(tmp_path):
     f = write_xyz(tmp_path / "dimer.xyz", *DIMER)
-    res = runner.invoke(app, ["check", str(f), "-b", "d-aug-cc-pvdz", "--caution", "1e-3", "--fail", "1e-7",
-                              "-o", str(tmp_path / "o"), "-f", "json"])
+    res = runner.invoke(
+        app,
+        [
+            "check",
+            str(f),
+            "-b",
+            "d-aug-cc-pvdz",
+            "--caution",
+            "1e-3",
+            "--fail",
+            "1e-7",
+            "-o",
+            str(tmp_path / "o"),
+            "-f",
+            "json",
+        ],
+    )
     assert res.exit_code == 0, res.output
     d = json.loads((tmp_path / "o" / "dimer.json").read_text())
     assert d["remedies"]["target"] == 1e-3 and d["remedies"]["alternatives"]
     assert "shell-pruned basis" in res.output
-    res = runner.invoke(app, ["check", str(f), "-b", "d-aug-cc-pvdz", "--target", "1e-3",
-                              "-o", str(tmp_path / "m"), "-f", "md"])
+    res = runner.invoke(
+        app, ["check", str(f), "-b", "d-aug-cc-pvdz", "--target", "1e-3", "-o", str(tmp_path / "m"), "-f", "md"]
+    )
     md = (tmp_path / "m" / "dimer.md").read_text()
     assert "## Remedies" in md and "| rank | remedy |" in md
 
@@ -196,8 +216,12 @@ def test_prune_emptying_an_atom_exits_with_usage_error(tmp_path):
 
 
 def test_remedy_options_default_target_is_caution():
-    r = auditor.audit(make_molecule(*HE2), basis="aug-cc-pvdz", policy=auditor.Policy(caution=3e-2, fail=1e-7),
-                      remedies=RemedyOptions())
+    r = auditor.audit(
+        make_molecule(*HE2),
+        basis="aug-cc-pvdz",
+        policy=auditor.Policy(caution=3e-2, fail=1e-7),
+        remedies=RemedyOptions(),
+    )
     assert r.remedies["target"] == 3e-2 and r.remedies["needed"]
 
 
@@ -206,8 +230,9 @@ def test_prune_with_ghost_atoms_keeps_them_ghosts(tmp_path):
     # normalized overlap is the kept block of the full one.
     f = write_xyz(tmp_path / "cp.xyz", *DIMER)
     out = tmp_path / "o"
-    res = runner.invoke(app, ["prune", str(f), "-b", "aug-cc-pvdz", "--ghost", "4-6", "--target", "2e-2",
-                              "--out", str(out), "-q"])
+    res = runner.invoke(
+        app, ["prune", str(f), "-b", "aug-cc-pvdz", "--ghost", "4-6", "--target", "2e-2", "--out", str(out), "-q"]
+    )
     assert res.exit_code == 0, res.output
     d = json.loads((out / "cp.pruned.json").read_text())
     mol = load_pruned(out / "cp.pruned.json")

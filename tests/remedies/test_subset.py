@@ -1,4 +1,5 @@
 """Pivoted Cholesky, shell pivoting and target-driven selection (auditor.numerics.cholesky, auditor.remedies.subset)."""
+
 from __future__ import annotations
 
 import itertools
@@ -7,9 +8,9 @@ import numpy as np
 import pytest
 from pyscf import gto
 
+from auditor.base.errors import InputError, UsageError
 from auditor.numerics.cholesky import pivoted_cholesky, shell_pivoted_cholesky, smallest_from_factor
 from auditor.remedies.subset import check_atoms_not_emptied, select_for_target, shells_from_functions
-from auditor.base.errors import InputError, UsageError
 
 
 def normalized_overlap(mol: gto.Mole) -> np.ndarray:
@@ -60,8 +61,7 @@ def dimer():
 def test_pyscf_s_overlap_matches_closed_form():
     # Reference: closed-form s-s overlap of normalized Gaussians (Boys 1950); checks the
     # fixture formula used by the even-tempered test below against the integral library.
-    mol = gto.M(atom="He 0 0 0; He 0 0 0.9", basis={"He": [[0, [0.7, 1.0]], [0, [2.3, 1.0]]]},
-                unit="Bohr", verbose=0)
+    mol = gto.M(atom="He 0 0 0; He 0 0 0.9", basis={"He": [[0, [0.7, 1.0]], [0, [2.3, 1.0]]]}, unit="Bohr", verbose=0)
     centres = np.array([[0, 0, 0], [0, 0, 0], [0, 0, 0.9], [0, 0, 0.9]])
     expected = s_overlap(np.array([0.7, 2.3, 0.7, 2.3]), centres)
     assert np.allclose(normalized_overlap(mol), expected, atol=1e-12)
@@ -201,15 +201,13 @@ def test_planted_duplicate_shell_is_the_one_dropped():
     # component; the copy or its original must go, and nothing else at a mild target.
     o = gto.basis.load("cc-pvdz", "O")
     planted = o + [o[3]]  # a second copy of the diffuse p shell [1, [0.2753, 1.0]]
-    mol = gto.M(atom="O 0 0 0; H 0.757 0.586 0; H -0.757 0.586 0",
-                basis={"O": planted, "H": "cc-pvdz"}, verbose=0)
+    mol = gto.M(atom="O 0 0 0; H 0.757 0.586 0; H -0.757 0.586 0", basis={"O": planted, "H": "cc-pvdz"}, verbose=0)
     ref = gto.M(atom=mol.atom, basis="cc-pvdz", verbose=0)
     target = 1e-4
     assert np.linalg.eigvalsh(normalized_overlap(ref))[0] > target  # nothing else to drop
     S = normalized_overlap(mol)
     shell, _ = labels(mol)
-    twins = [i for i in range(mol.nbas)
-             if mol.bas_atom(i) == 0 and mol.bas_angular(i) == 1 and mol.bas_nprim(i) == 1]
+    twins = [i for i in range(mol.nbas) if mol.bas_atom(i) == 0 and mol.bas_angular(i) == 1 and mol.bas_nprim(i) == 1]
     orig, copy = twins  # pyscf orders an atom's shells by l, so locate the pair
     assert np.allclose(S[np.ix_(shell == orig, shell == copy)], np.eye(3))
 
@@ -252,8 +250,9 @@ def test_shell_selection_is_rotation_invariant(dimer):
     rng = np.random.default_rng(7)
     q, _ = np.linalg.qr(rng.normal(size=(3, 3)))
     xyz = mol.atom_coords(unit="Angstrom") @ q.T
-    rot = gto.M(atom=[(mol.atom_symbol(i), xyz[i]) for i in range(mol.natm)],
-                basis="d-aug-cc-pvdz", unit="Angstrom", verbose=0)
+    rot = gto.M(
+        atom=[(mol.atom_symbol(i), xyz[i]) for i in range(mol.natm)], basis="d-aug-cc-pvdz", unit="Angstrom", verbose=0
+    )
     a = select_for_target(S, 1e-3, shell)
     b = select_for_target(normalized_overlap(rot), 1e-3, labels(rot)[0])
     assert a.dropped_shells.size > 0
@@ -295,7 +294,7 @@ def test_unnormalized_overlap_is_an_input_error():
         with pytest.raises(InputError, match="NaN or infinite"):
             select_for_target(S, 1e-3)
     S = np.eye(3)
-    S[0, 1], S[1, 0] = np.inf, -np.inf   # opposite infinities: their sum is NaN, still refused
+    S[0, 1], S[1, 0] = np.inf, -np.inf  # opposite infinities: their sum is NaN, still refused
     with pytest.raises(InputError, match="NaN or infinite"):
         pivoted_cholesky(S, 1e-3)
 

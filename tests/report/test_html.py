@@ -1,4 +1,5 @@
 """HTML reports, figures and the set index: structure, embedded images, numbers against the JSON."""
+
 import base64
 import copy
 import io
@@ -17,10 +18,9 @@ import auditor
 from auditor.inputs.geometry import Molecule
 from auditor.report.html import render_html
 from auditor.report.json_report import to_json
-from auditor.report.plots import principal_projection, report_plots, spectrum_png
 from auditor.report.overview import item_from_result, render_set_index, write_set_index
+from auditor.report.plots import principal_projection, report_plots, spectrum_png
 from auditor.report.writers import write_reports
-
 from helpers import WATER, make_molecule
 
 VOID = {"meta", "img", "br", "hr", "input", "link", "source", "wbr"}
@@ -136,7 +136,7 @@ def test_every_embedded_image_decodes_and_is_not_blank(pages):
         for src in parse(text).images:
             img = decode_png(src)
             assert img.ndim == 3 and img.shape[0] > 200 and img.shape[1] > 300
-            assert float(img[..., :3].std()) > 0.02     # not a single colour
+            assert float(img[..., :3].std()) > 0.02  # not a single colour
 
 
 def test_numbers_in_html_equal_the_json(broken, clean, pages):
@@ -144,9 +144,19 @@ def test_numbers_in_html_equal_the_json(broken, clean, pages):
         d = json.loads(to_json(r))
         page = parse(pages[name])
         keys = {k for k, _, _ in page.numbers}
-        must = {"verdict", "spectrum.smallest", "spectrum.largest", "spectrum.log10_condition",
-                "spectrum.condition_number", "policy.caution", "policy.fail", "recommendation.threshold",
-                "recommendation.n_removed", "input.n_functions", "input.n_atoms"}
+        must = {
+            "verdict",
+            "spectrum.smallest",
+            "spectrum.largest",
+            "spectrum.log10_condition",
+            "spectrum.condition_number",
+            "policy.caution",
+            "policy.fail",
+            "recommendation.threshold",
+            "recommendation.n_removed",
+            "input.n_functions",
+            "input.n_atoms",
+        }
         must |= {f"spectrum.counts_below.{k}" for k in d["spectrum"]["counts_below"]}
         must |= {f"recommendation.candidates.{i}.threshold" for i in range(len(d["recommendation"]["candidates"]))}
         must |= {f"causes.atoms.{i}.weight" for i in range(min(5, len(d["causes"]["atoms"])))}
@@ -235,8 +245,14 @@ def test_principal_projection_keeps_a_planar_molecule_undistorted():
 def test_write_reports_all_puts_figures_beside_the_markdown(tmp_path, broken):
     written = write_reports(broken, tmp_path, "all", "pasted")
     names = {p.name for p in written}
-    assert {"pasted.json", "pasted.md", "pasted.html", "pasted_spectrum.png",
-            "pasted_causes.png", "pasted_molecule.png"} <= names
+    assert {
+        "pasted.json",
+        "pasted.md",
+        "pasted.html",
+        "pasted_spectrum.png",
+        "pasted_causes.png",
+        "pasted_molecule.png",
+    } <= names
     md = (tmp_path / "pasted.md").read_text()
     links = re.findall(r"!\[[^\]]*\]\(([^)]+)\)", md)
     assert len(links) == 3
@@ -248,10 +264,28 @@ def test_write_reports_all_puts_figures_beside_the_markdown(tmp_path, broken):
 
 def set_items(results):
     items = [item_from_result(r, f"r{i}.html") for i, r in enumerate(results)]
-    items.append({"path": "unreadable.xyz", "frame": None, "verdict": "error", "smallest_eigenvalue": math.nan,
-                  "n_functions": None, "report": "", "error": "unreadable.xyz: line 2: not a number"})
-    items.append({"path": "mild.xyz", "frame": 2, "verdict": "caution", "smallest_eigenvalue": 3e-6,
-                  "n_functions": 50, "report": "items/mild f2.html", "error": ""})
+    items.append(
+        {
+            "path": "unreadable.xyz",
+            "frame": None,
+            "verdict": "error",
+            "smallest_eigenvalue": math.nan,
+            "n_functions": None,
+            "report": "",
+            "error": "unreadable.xyz: line 2: not a number",
+        }
+    )
+    items.append(
+        {
+            "path": "mild.xyz",
+            "frame": 2,
+            "verdict": "caution",
+            "smallest_eigenvalue": 3e-6,
+            "n_functions": 50,
+            "report": "items/mild f2.html",
+            "error": "",
+        }
+    )
     return items
 
 
@@ -259,9 +293,9 @@ def test_set_index_counts_order_and_links(tmp_path, broken, clean):
     items = set_items([clean, broken])
     path = write_set_index(tmp_path, items, policy={"caution": 1e-5, "fail": 1e-7})
     page = parse(path.read_text())
-    counts = {k[len("count."):]: int(v) for k, v, _ in page.numbers if k.startswith("count.")}
+    counts = {k[len("count.") :]: int(v) for k, v, _ in page.numbers if k.startswith("count.")}
     assert counts == {"pass": 1, "fail": 1, "caution": 1, "error": 1}
-    body = [r for r in page.rows if r]           # rows with cells: the item table
+    body = [r for r in page.rows if r]  # rows with cells: the item table
     verdict_order = [int(r[2]["data-sort"]) for r in body]
     assert verdict_order == sorted(verdict_order)
     shown = [json.loads(v) for k, v, _ in page.numbers if k == "smallest_eigenvalue"]
@@ -277,29 +311,62 @@ def test_set_index_from_gate_summary_rows(tmp_path):
 
     from auditor.report.overview import link_reports
 
-    rows = pd.DataFrame([
-        {"path": "a.xyz", "frame": 1, "item": "a", "verdict": "pass", "outcome": "ok", "smallest_eigenvalue": 2e-3,
-         "n_functions": 24, "basis": "cc-pvdz", "threshold": 1e-6, "reason": "fine", "error": ""},
-        {"path": "b.xyz", "frame": 1, "item": "b", "verdict": "caution", "outcome": "blocked",
-         "smallest_eigenvalue": 4e-6, "n_functions": 40, "basis": "cc-pvdz", "threshold": 1e-6,
-         "reason": "below caution", "error": ""},
-        {"path": "c.xyz", "frame": None, "item": "c", "verdict": "error", "outcome": "blocked",
-         "smallest_eigenvalue": math.nan, "n_functions": None, "basis": "cc-pvdz", "threshold": math.nan,
-         "reason": "c.xyz: empty", "error": "c.xyz: empty"},
-    ])
+    rows = pd.DataFrame(
+        [
+            {
+                "path": "a.xyz",
+                "frame": 1,
+                "item": "a",
+                "verdict": "pass",
+                "outcome": "ok",
+                "smallest_eigenvalue": 2e-3,
+                "n_functions": 24,
+                "basis": "cc-pvdz",
+                "threshold": 1e-6,
+                "reason": "fine",
+                "error": "",
+            },
+            {
+                "path": "b.xyz",
+                "frame": 1,
+                "item": "b",
+                "verdict": "caution",
+                "outcome": "blocked",
+                "smallest_eigenvalue": 4e-6,
+                "n_functions": 40,
+                "basis": "cc-pvdz",
+                "threshold": 1e-6,
+                "reason": "below caution",
+                "error": "",
+            },
+            {
+                "path": "c.xyz",
+                "frame": None,
+                "item": "c",
+                "verdict": "error",
+                "outcome": "blocked",
+                "smallest_eigenvalue": math.nan,
+                "n_functions": None,
+                "basis": "cc-pvdz",
+                "threshold": math.nan,
+                "reason": "c.xyz: empty",
+                "error": "c.xyz: empty",
+            },
+        ]
+    )
     csv = tmp_path / "summary.csv"
     rows.to_csv(csv, index=False)
-    back = pd.read_csv(csv).to_dict("records")      # empty cells come back as NaN
+    back = pd.read_csv(csv).to_dict("records")  # empty cells come back as NaN
     (tmp_path / "items").mkdir()
     (tmp_path / "items" / "a.html").write_text("<!DOCTYPE html><title>a</title>")
     (tmp_path / "items" / "c.json").write_text("{}")
     page = parse(write_set_index(tmp_path, link_reports(tmp_path, back)).read_text())
-    assert set(page.links) == {"items/a.html", "items/c.json"}     # b has no report: no link
+    assert set(page.links) == {"items/a.html", "items/c.json"}  # b has no report: no link
     body = "".join(page.text)
     assert "nan" not in body.lower()
     assert "Every item: basis cc-pvdz; advised threshold 1.0e-06." in body
     firsts = [r[1]["data-sort"] for r in page.rows if r]
-    assert firsts == ["c.xyz", "b.xyz [1]", "a.xyz [1]"]   # blocked first; an unreadable item before a caution
+    assert firsts == ["c.xyz", "b.xyz [1]", "a.xyz [1]"]  # blocked first; an unreadable item before a caution
 
 
 def test_item_pages_are_written_for_results_only(tmp_path, clean):
@@ -336,8 +403,19 @@ def test_item_pages_are_written_for_results_only(tmp_path, clean):
 
 
 def test_set_index_without_any_audited_item_has_no_figure():
-    text = render_set_index([{"path": "a.xyz", "frame": None, "verdict": "error", "smallest_eigenvalue": None,
-                              "n_functions": None, "report": "", "error": "a.xyz: empty file"}])
+    text = render_set_index(
+        [
+            {
+                "path": "a.xyz",
+                "frame": None,
+                "verdict": "error",
+                "smallest_eigenvalue": None,
+                "n_functions": None,
+                "report": "",
+                "error": "a.xyz: empty file",
+            }
+        ]
+    )
     page = parse(text)
     assert page.images == [] and "a.xyz: empty file" in "".join(page.text)
 
@@ -350,9 +428,20 @@ needs_chromium = pytest.mark.skipif(CHROMIUM is None, reason="chromium is not in
 
 def chromium(tmp_path, *args):
     profile = tmp_path / "profile"
-    cmd = [CHROMIUM, "--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
-           "--disable-background-networking", "--disable-component-update", "--disable-sync",
-           "--hide-scrollbars", f"--user-data-dir={profile}", *args]
+    cmd = [
+        CHROMIUM,
+        "--headless",
+        "--no-sandbox",
+        "--disable-gpu",
+        "--disable-quic",
+        "--no-first-run",
+        "--disable-background-networking",
+        "--disable-component-update",
+        "--disable-sync",
+        "--hide-scrollbars",
+        f"--user-data-dir={profile}",
+        *args,
+    ]
     return subprocess.run(cmd, check=False, capture_output=True, text=True, timeout=120)
 
 
@@ -383,7 +472,7 @@ def test_set_index_table_sorts_in_chromium(tmp_path, broken, clean):
     column = [r[3].get("data-sort", "") for r in dom.rows if r]
     values = [float(x) for x in column if x]
     assert values == sorted(values) and len(values) == 3
-    assert column[-1] == ""          # the unreadable item goes last
+    assert column[-1] == ""  # the unreadable item goes last
 
 
 def test_gate_format_html_writes_index_and_item_pages(tmp_path):
@@ -399,8 +488,9 @@ def test_gate_format_html_writes_index_and_item_pages(tmp_path):
     write_xyz(sets / "pasted.xyz", symbols + ["H"], coords + [coords[1]])
     (sets / "broken.xyz").write_text("2\nc\nO 0 0 0\n")
     out = tmp_path / "gate"
-    res = CliRunner().invoke(app, ["gate", str(sets), "-b", "sto-3g", "-o", str(out), "--format", "html",
-                                   "--no-cache", "--jobs", "1"])
+    res = CliRunner().invoke(
+        app, ["gate", str(sets), "-b", "sto-3g", "-o", str(out), "--format", "html", "--no-cache", "--jobs", "1"]
+    )
     assert res.exit_code == 1, res.output
     index = parse((out / "index.html").read_text())
     linked = sorted({h for h in index.links if h.startswith("items/")})
