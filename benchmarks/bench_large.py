@@ -86,7 +86,7 @@ def worker(kind: str, xyz: str, basis: str) -> dict:
         t = time.perf_counter()
         res = audit_prepared(prep, spectrum_method="large", remedies=True)
         rec["t_work"] = time.perf_counter() - t
-        rem = res.remedies or {}
+        rem = res.as_dict()["remedies"] or {}
         rec["smallest"] = res.spectrum.smallest
         rec["remedies"] = {
             "problems": list(rem.get("problems", [])),

@@ -15,21 +15,11 @@ class Causes:
     """Share of the near-null space carried by atoms, shells, angular momenta."""
 
     n_vectors: int
-    below: float
+    vectors_below: float
     atoms: list[dict]
     shells: list[dict]
     angular: list[dict]
     diffuse: dict
-
-    def as_dict(self) -> dict:
-        return {
-            "n_vectors": self.n_vectors,
-            "vectors_below": self.below,
-            "atoms": self.atoms,
-            "shells": self.shells,
-            "angular": self.angular,
-            "diffuse": self.diffuse,
-        }
 
 
 MAX_SHELLS_LISTED = 25

@@ -41,15 +41,6 @@ class Finding:
     message: str
     details: dict = field(default_factory=dict)
 
-    def as_dict(self) -> dict:
-        return {
-            "kind": self.kind,
-            "severity": self.severity,
-            "atoms": list(self.atoms),
-            "message": self.message,
-            "details": self.details,
-        }
-
 
 SEVERITY_ORDER = {"error": 0, "warning": 1, "info": 2}
 

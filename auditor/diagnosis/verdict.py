@@ -5,6 +5,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 from ..base.errors import UsageError
+from ..base.jsonio import to_jsonable
 
 VERDICTS = ("pass", "caution", "fail")
 #: finding kinds that fail a geometry whatever the spectrum says
@@ -28,7 +29,7 @@ class Policy:
             raise UsageError(f"the fail level ({self.fail:g}) must not exceed the caution level ({self.caution:g})")
 
     def as_dict(self) -> dict:
-        return {"caution": self.caution, "fail": self.fail}
+        return to_jsonable(self)
 
 
 def decide(policy: Policy, smallest: float, finding_kinds) -> tuple[str, str]:

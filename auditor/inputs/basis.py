@@ -10,6 +10,7 @@ from pathlib import Path
 
 from ..base.elements import element_symbol
 from ..base.errors import InputError, UsageError
+from ..base.jsonio import to_jsonable
 from ..base.textio import NUMBER, read_text
 
 #: A shell counts as diffuse (when the basis name does not tell us its parent, see
@@ -45,12 +46,11 @@ class BasisSpec:
         names = [self.default, *self.per_element.values()]
         return [n for n in dict.fromkeys(names) if Path(n).expanduser().is_file()]
 
+    def __post_init__(self):
+        object.__setattr__(self, "per_element", dict(sorted(self.per_element.items())))
+
     def as_dict(self) -> dict:
-        return {
-            "default": self.default,
-            "per_element": dict(sorted(self.per_element.items())),
-            "cartesian": self.cartesian,
-        }
+        return to_jsonable(self)
 
 
 def parse_overrides(items: list[str] | None) -> dict[str, str]:

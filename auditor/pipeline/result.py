@@ -4,9 +4,11 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 
+from ..base.jsonio import to_jsonable
 from ..diagnosis.causes import Causes
 from ..diagnosis.findings import Finding
 from ..remedies.canonical import Recommendation
+from ..remedies.plan import Remedies
 
 SCHEMA = "auditor-report/1"
 
@@ -35,22 +37,6 @@ class InputInfo:
     multiplicity: int | None
     atoms: tuple[dict, ...]  # {"atom", "element", "ghost", "xyz"} with xyz in ångström
 
-    def as_dict(self) -> dict:
-        return {
-            "path": self.path,
-            "frame": self.frame,
-            "n_frames": self.n_frames,
-            "basis": self.basis,
-            "basis_spec": self.basis_spec,
-            "n_atoms": self.n_atoms,
-            "n_functions": self.n_functions,
-            "n_shells": self.n_shells,
-            "ghost_atoms": list(self.ghost_atoms),
-            "charge": self.charge,
-            "multiplicity": self.multiplicity,
-            "atoms": [dict(a) for a in self.atoms],
-        }
-
 
 @dataclass(frozen=True)
 class SpectrumInfo:
@@ -63,51 +49,28 @@ class SpectrumInfo:
     method: str
     eigenvalues: tuple[float, ...]  # ascending; all on the full path
 
-    def as_dict(self) -> dict:
-        return {
-            "smallest": self.smallest,
-            "largest": self.largest,
-            "condition_number": self.condition_number,
-            "log10_condition": self.log10_condition,
-            "counts_below": dict(self.counts_below),
-            "gershgorin_bound": self.gershgorin_bound,
-            "method": self.method,
-            "eigenvalues": list(self.eigenvalues),
-        }
-
 
 @dataclass(frozen=True)
 class AuditResult:
-    """Everything one audit found, for one geometry frame and one basis."""
+    """Everything one audit found, for one geometry frame and one basis. Its JSON form
+    (``as_dict``) has the fields in this order, after ``schema``."""
 
     version: str
     input: InputInfo
-    spectrum: SpectrumInfo
     verdict: str
     verdict_reason: str
     policy: dict
+    spectrum: SpectrumInfo
     findings: tuple[Finding, ...]
     causes: Causes
     recommendation: Recommendation
-    remedies: dict | None = None
+    remedies: Remedies | None = None
     caveats: tuple[str, ...] = CAVEATS
     extra: dict = field(default_factory=dict)
 
     def as_dict(self) -> dict:
         """JSON-ready dictionary (the documented schema)."""
-        out = {
-            "schema": SCHEMA,
-            "version": self.version,
-            "input": self.input.as_dict(),
-            "verdict": self.verdict,
-            "verdict_reason": self.verdict_reason,
-            "policy": dict(self.policy),
-            "spectrum": self.spectrum.as_dict(),
-            "findings": [f.as_dict() for f in self.findings],
-            "causes": self.causes.as_dict(),
-            "recommendation": self.recommendation.as_dict(),
-            "remedies": self.remedies,
-            "caveats": list(self.caveats),
-        }
+        out = {"schema": SCHEMA, **to_jsonable(self)}
+        del out["extra"]
         out.update(self.extra)
         return out

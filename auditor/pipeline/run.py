@@ -251,4 +251,4 @@ def prune_prepared(prep, policy=None, options: RemedyOptions | None = None):
             raise ResourceError(memory[0])
         why = next((p for p in plan.problems if p.startswith("shell-pruned")), "no pruned basis found")
         raise UsageError(why)
-    return replace(result, remedies=plan.as_dict(prep.table)), plan
+    return replace(result, remedies=plan.report(prep.table)), plan

@@ -20,14 +20,6 @@ class Candidate:
     smallest_kept: float | None
     max_transform_element: float | None
 
-    def as_dict(self) -> dict:
-        return {
-            "threshold": self.threshold,
-            "n_removed": self.n_removed,
-            "smallest_kept": self.smallest_kept,
-            "max_transform_element": self.max_transform_element,
-        }
-
 
 @dataclass(frozen=True)
 class Recommendation:
@@ -40,17 +32,6 @@ class Recommendation:
     max_transform_element: float | None
     candidates: list[Candidate]
     how_to: str
-
-    def as_dict(self) -> dict:
-        return {
-            "threshold": self.threshold,
-            "reason": self.reason,
-            "n_removed": self.n_removed,
-            "smallest_kept": self.smallest_kept,
-            "max_transform_element": self.max_transform_element,
-            "candidates": [c.as_dict() for c in self.candidates],
-            "how_to": self.how_to,
-        }
 
 
 def find_gap(values: np.ndarray, window=GAP_WINDOW, min_decades: float = MIN_GAP_DECADES, min_kept: float = 0.0):

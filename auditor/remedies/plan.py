@@ -3,11 +3,12 @@ subset of functions, a shell-pruned per-atom basis, and dropping one element's d
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
 from ..base.errors import UsageError
+from ..base.jsonio import OMIT_NONE
 from ..numerics.cholesky import smallest_eigenvalue, verify_mode
 from ..numerics.memory import available_bytes
 from .pruned_basis import function_record, pruned_basis, shell_record
@@ -20,7 +21,79 @@ from .trial_scf import check_method, trial_scf
 REMEDY_COPIES = 3
 
 
-def diffuse_element_options(S: np.ndarray, table, target: float) -> list[dict]:
+@dataclass(frozen=True)
+class Alternative:
+    """One ranked remedy: what it removes (functions or directions) and what it leaves."""
+
+    kind: str
+    title: str
+    removed: int | None
+    unit: str  # "functions" | "directions"
+    smallest_after: float | None
+    reaches_target: bool
+    how: str
+    threshold: float | None = field(default=None, metadata={OMIT_NONE: True})
+    tolerance: float | None = field(default=None, metadata={OMIT_NONE: True})
+    shells_removed: int | None = field(default=None, metadata={OMIT_NONE: True})
+    element: str | None = field(default=None, metadata={OMIT_NONE: True})
+    rank: int = 0
+
+
+@dataclass(frozen=True)
+class FunctionSubset:
+    """The pivoted-Cholesky subset of single functions (records are 1-based)."""
+
+    tolerance: float
+    smallest_kept: float
+    factorizations: int
+    kept: int
+    kept_by_pivoting: int
+    added_back: int
+    dropped: list[dict]
+    kept_functions_in_order: list[int]
+
+
+@dataclass(frozen=True)
+class ShellPruning:
+    """The shell-pruned basis: whole shells kept or dropped."""
+
+    chosen_by: str
+    tolerance: float
+    smallest_kept: float
+    factorizations: int
+    kept: int
+    kept_by_pivoting: int
+    added_back: int
+    dropped_shells: list[dict]
+
+
+@dataclass(frozen=True)
+class DiffuseOption:
+    """Dropping the diffuse shells of one element on every atom of it."""
+
+    element: str
+    removed: int
+    shells: int
+    shell_names: list[str]
+    smallest_after: float
+    reaches_target: bool
+
+
+@dataclass(frozen=True)
+class Remedies:
+    """The remedies part of an audit result (``remedies`` in the JSON report)."""
+
+    target: float
+    needed: bool
+    alternatives: list[Alternative]
+    cholesky_functions: FunctionSubset | None = field(default=None, metadata={OMIT_NONE: True})
+    cholesky_shells: ShellPruning | None = field(default=None, metadata={OMIT_NONE: True})
+    diffuse_by_element: list[DiffuseOption] = field(default_factory=list)
+    problems: list[str] = field(default_factory=list)
+    trial_scf: dict | None = None
+
+
+def diffuse_element_options(S: np.ndarray, table, target: float) -> list[DiffuseOption]:
     """For each element with diffuse shells: drop them on every atom of that element."""
     out = []
     func_el = np.array([str(table.elements[a - 1]) for a in table.func_atom])
@@ -34,71 +107,64 @@ def diffuse_element_options(S: np.ndarray, table, target: float) -> list[dict]:
             continue
         low = smallest_eigenvalue(S, kept)
         shells = np.unique(table.func_shell[drop])
-        out.append(
-            {
-                "element": str(el),
-                "removed": int(drop.sum()),
-                "shells": len(shells),
-                "shell_names": sorted({table.shell_name[s][-1] + f" {table.shell_exponent[s]:.4g}" for s in shells}),
-                "smallest_after": low,
-                "reaches_target": bool(low >= target),
-            }
-        )
+        names = sorted({table.shell_name[s][-1] + f" {table.shell_exponent[s]:.4g}" for s in shells})
+        out.append(DiffuseOption(str(el), int(drop.sum()), len(shells), names, low, bool(low >= target)))
     return out
 
 
 @dataclass
 class RemedyPlan:
-    """What each remedy removes and leaves; ``alternatives`` ranked, best first."""
+    """The working state of the remedies: the selections found, the pruned-basis document,
+    the ranked alternatives; ``report`` turns it into the typed ``Remedies``."""
 
     target: float
     needed: bool
     functions: Selection | None = None
     shells: Selection | None = None
     pruned: dict | None = None
-    alternatives: list[dict] = field(default_factory=list)
-    diffuse: list[dict] = field(default_factory=list)
+    alternatives: list[Alternative] = field(default_factory=list)
+    diffuse: list[DiffuseOption] = field(default_factory=list)
     problems: list[str] = field(default_factory=list)
     trial_scf: dict | None = None
 
-    def as_dict(self, table=None) -> dict:
-        out = {
-            "target": self.target,
-            "needed": self.needed,
-            "alternatives": self.alternatives,
-        }
-        if self.functions is not None and table is not None:
-            f = self.functions
-            out["cholesky_functions"] = {
-                "tolerance": f.tolerance,
-                "smallest_kept": f.smallest_kept,
-                "factorizations": f.factorizations,
-                "kept": int(f.kept.size),
-                "kept_by_pivoting": f.prefix,
-                "added_back": f.added_back,
-                "dropped": [function_record(table, int(i)) for i in f.dropped],
-                "kept_functions_in_order": [int(i) + 1 for i in f.order],
-            }
-        if self.shells is not None and table is not None:
-            s = self.shells
-            out["cholesky_shells"] = {
-                "chosen_by": (
-                    "shell pivoting"
-                    if s.search != "from-functions"
-                    else "shells the function-level subset leaves whole"
-                ),
-                "tolerance": s.tolerance,
-                "smallest_kept": s.smallest_kept,
-                "factorizations": s.factorizations,
-                "kept": int(s.kept.size),
-                "kept_by_pivoting": s.prefix,
-                "added_back": s.added_back,
-                "dropped_shells": [shell_record(table, int(i)) for i in s.dropped_shells],
-            }
-        out["diffuse_by_element"] = self.diffuse
-        out["problems"] = self.problems
-        out["trial_scf"] = self.trial_scf
-        return out
+    def report(self, table) -> Remedies:
+        return Remedies(
+            target=self.target,
+            needed=self.needed,
+            alternatives=list(self.alternatives),
+            cholesky_functions=None if self.functions is None else _function_subset(self.functions, table),
+            cholesky_shells=None if self.shells is None else _shell_pruning(self.shells, table),
+            diffuse_by_element=list(self.diffuse),
+            problems=list(self.problems),
+            trial_scf=self.trial_scf,
+        )
+
+
+def _function_subset(f: Selection, table) -> FunctionSubset:
+    return FunctionSubset(
+        tolerance=f.tolerance,
+        smallest_kept=f.smallest_kept,
+        factorizations=f.factorizations,
+        kept=int(f.kept.size),
+        kept_by_pivoting=f.prefix,
+        added_back=f.added_back,
+        dropped=[function_record(table, int(i)) for i in f.dropped],
+        kept_functions_in_order=[int(i) + 1 for i in f.order],
+    )
+
+
+def _shell_pruning(s: Selection, table) -> ShellPruning:
+    chosen = "shell pivoting" if s.search != "from-functions" else "shells the function-level subset leaves whole"
+    return ShellPruning(
+        chosen_by=chosen,
+        tolerance=s.tolerance,
+        smallest_kept=s.smallest_kept,
+        factorizations=s.factorizations,
+        kept=int(s.kept.size),
+        kept_by_pivoting=s.prefix,
+        added_back=s.added_back,
+        dropped_shells=[shell_record(table, int(i)) for i in s.dropped_shells],
+    )
 
 
 def _best_shell_selection(
@@ -132,17 +198,118 @@ def _best_shell_selection(
     return min(found, key=lambda s: s.n_dropped)  # ties: shell pivoting (listed first)
 
 
-def _alt(kind, title, removed, unit, smallest, target, how, **extra) -> dict:
-    return {
-        "kind": kind,
-        "title": title,
-        "removed": removed,
-        "unit": unit,
-        "smallest_after": smallest,
-        "reaches_target": bool(smallest is not None and smallest >= target),
-        "how": how,
-        **extra,
-    }
+def _alt(kind, title, removed, unit, smallest, target, how, **extra) -> Alternative:
+    reaches = bool(smallest is not None and smallest >= target)
+    return Alternative(kind, title, removed, unit, smallest, reaches, how, **extra)
+
+
+def _memory_problem(n: int) -> str | None:
+    need = REMEDY_COPIES * 8 * n * n
+    free = available_bytes()
+    if need <= free:
+        return None
+    return (
+        f"remedies skipped: about {need / 1024**3:.1f} GiB would be needed beside S, "
+        f"{free / 1024**3:.1f} GiB is available"
+    )
+
+
+def _canonical(rec, target: float) -> Alternative:
+    how = "keep the basis; drop eigenvectors of S below the threshold (canonical orthogonalization section)"
+    title = f"canonical orthogonalization at {rec.threshold:.1e}"
+    return _alt(
+        "canonical_orthogonalization",
+        title,
+        rec.n_removed,
+        "directions",
+        rec.smallest_kept,
+        target,
+        how,
+        threshold=rec.threshold,
+    )
+
+
+def _add_function_subset(plan: RemedyPlan, S, atoms, mode) -> None:
+    try:
+        f = plan.functions = select_for_target(S, plan.target, atom_of_function=atoms, verify=mode)
+    except UsageError as exc:
+        plan.problems.append(f"pivoted-Cholesky subset: {exc.message}")
+        return
+    plan.alternatives.append(
+        _alt(
+            "cholesky_functions",
+            "pivoted-Cholesky subset of functions",
+            f.n_dropped,
+            "functions",
+            f.smallest_kept,
+            plan.target,
+            "drop single functions (not rotationally invariant)",
+            tolerance=f.tolerance,
+        )
+    )
+
+
+def _add_shell_pruning(plan: RemedyPlan, prep, atoms, mode, shell_pivoting: bool) -> None:
+    s = plan.shells = _best_shell_selection(
+        prep.S, prep.table, plan.target, plan.functions, atoms, mode, plan.problems, shell_pivoting
+    )
+    if s is None:
+        return
+    try:
+        plan.pruned = pruned_basis(prep, s.kept_shells, plan.target, s.smallest_kept)
+    except UsageError as exc:
+        plan.problems.append(f"shell-pruned basis: {exc.message}")
+        return
+    plan.alternatives.append(
+        _alt(
+            "cholesky_shells",
+            "shell-pruned basis (whole shells, pivoted Cholesky)",
+            s.n_dropped,
+            "functions",
+            s.smallest_kept,
+            plan.target,
+            "auditor prune writes it as a pyscf basis (JSON)",
+            tolerance=s.tolerance,
+            shells_removed=len(s.dropped_shells),
+        )
+    )
+
+
+def _add_diffuse_options(plan: RemedyPlan, S, table) -> None:
+    plan.diffuse = diffuse_element_options(S, table, plan.target)
+    for opt in plan.diffuse:
+        if opt.reaches_target:
+            how = f"use the parent basis without augmentation for {opt.element} (e.g. --basis-for)"
+            plan.alternatives.append(
+                _alt(
+                    "drop_diffuse_element",
+                    f"drop the diffuse shells of {opt.element} everywhere",
+                    opt.removed,
+                    "functions",
+                    opt.smallest_after,
+                    plan.target,
+                    how,
+                    element=opt.element,
+                )
+            )
+
+
+#: Ties: the larger smallest eigenvalue (to 3 digits), then whole-shell remedies first.
+_PREFER = {"cholesky_shells": 0, "drop_diffuse_element": 1, "cholesky_functions": 2, "canonical_orthogonalization": 3}
+
+
+def rank_alternatives(alternatives: list[Alternative], n: int) -> list[Alternative]:
+    """Those that reach the target first, then fewest removed, then the larger smallest eigenvalue."""
+    ordered = sorted(
+        alternatives,
+        key=lambda a: (
+            not a.reaches_target,
+            a.removed if a.removed is not None else n,
+            -float(f"{a.smallest_after or 0.0:.2e}"),
+            _PREFER[a.kind],
+        ),
+    )
+    return [replace(a, rank=k) for k, a in enumerate(ordered, 1)]
 
 
 def plan_remedies(
@@ -151,109 +318,24 @@ def plan_remedies(
     """Work out every remedy for a prepared geometry and rank them.
 
     ``smallest`` is the full basis's smallest eigenvalue; when it already meets the
-    target (and not ``force``) nothing is computed. Ranking: remedies that reach the
-    target first, then fewest functions (or directions) removed, then the larger
-    smallest eigenvalue.
+    target (and not ``force``) nothing is computed.
     """
     target = check_target(target)
     S, table = prep.S, prep.table
     plan = RemedyPlan(target=target, needed=bool(smallest < target))
     if not plan.needed and not force:
         return plan
-    n = table.n_functions
-    need = REMEDY_COPIES * 8 * n * n
-    free = available_bytes()
-    if need > free:
-        plan.problems.append(
-            f"remedies skipped: about {need / 1024**3:.1f} GiB would be needed beside S, "
-            f"{free / 1024**3:.1f} GiB is available"
-        )
+    problem = _memory_problem(table.n_functions)
+    if problem:
+        plan.problems.append(problem)
         return plan
-    mode = verify_mode(n)
+    mode = verify_mode(table.n_functions)
     atoms = table.func_atom - 1
-
-    rec = recommendation
-    plan.alternatives.append(
-        _alt(
-            "canonical_orthogonalization",
-            f"canonical orthogonalization at {rec.threshold:.1e}",
-            rec.n_removed,
-            "directions",
-            rec.smallest_kept,
-            target,
-            "keep the basis; drop eigenvectors of S below the threshold (canonical orthogonalization section)",
-            threshold=rec.threshold,
-        )
-    )
-    try:
-        plan.functions = select_for_target(S, target, atom_of_function=atoms, verify=mode)
-        f = plan.functions
-        plan.alternatives.append(
-            _alt(
-                "cholesky_functions",
-                "pivoted-Cholesky subset of functions",
-                f.n_dropped,
-                "functions",
-                f.smallest_kept,
-                target,
-                "drop single functions (not rotationally invariant)",
-                tolerance=f.tolerance,
-            )
-        )
-    except UsageError as exc:
-        plan.problems.append(f"pivoted-Cholesky subset: {exc.message}")
-    plan.shells = _best_shell_selection(S, table, target, plan.functions, atoms, mode, plan.problems, shell_pivoting)
-    if plan.shells is not None:
-        s = plan.shells
-        try:
-            plan.pruned = pruned_basis(prep, s.kept_shells, target, s.smallest_kept)
-            plan.alternatives.append(
-                _alt(
-                    "cholesky_shells",
-                    "shell-pruned basis (whole shells, pivoted Cholesky)",
-                    s.n_dropped,
-                    "functions",
-                    s.smallest_kept,
-                    target,
-                    "auditor prune writes it as a pyscf basis (JSON)",
-                    tolerance=s.tolerance,
-                    shells_removed=len(s.dropped_shells),
-                )
-            )
-        except UsageError as exc:
-            plan.problems.append(f"shell-pruned basis: {exc.message}")
-    plan.diffuse = diffuse_element_options(S, table, target)
-    for opt in plan.diffuse:
-        if opt["reaches_target"]:
-            plan.alternatives.append(
-                _alt(
-                    "drop_diffuse_element",
-                    f"drop the diffuse shells of {opt['element']} everywhere",
-                    opt["removed"],
-                    "functions",
-                    opt["smallest_after"],
-                    target,
-                    f"use the parent basis without augmentation for {opt['element']} (e.g. --basis-for)",
-                    element=opt["element"],
-                )
-            )
-    # Ties: the larger smallest eigenvalue (to 3 digits), then whole-shell remedies first.
-    prefer = {
-        "cholesky_shells": 0,
-        "drop_diffuse_element": 1,
-        "cholesky_functions": 2,
-        "canonical_orthogonalization": 3,
-    }
-    plan.alternatives.sort(
-        key=lambda a: (
-            not a["reaches_target"],
-            a["removed"] if a["removed"] is not None else n,
-            -float(f"{a['smallest_after'] or 0.0:.2e}"),
-            prefer[a["kind"]],
-        )
-    )
-    for k, a in enumerate(plan.alternatives, 1):
-        a["rank"] = k
+    plan.alternatives.append(_canonical(recommendation, target))
+    _add_function_subset(plan, S, atoms, mode)
+    _add_shell_pruning(plan, prep, atoms, mode, shell_pivoting)
+    _add_diffuse_options(plan, S, table)
+    plan.alternatives = rank_alternatives(plan.alternatives, table.n_functions)
     return plan
 
 
@@ -297,7 +379,7 @@ def make_plan(prep, recommendation, smallest: float, options: RemedyOptions, cau
     return plan
 
 
-def remedies_for(prep, recommendation, smallest: float, options: RemedyOptions | None, caution: float) -> dict:
-    """The ``remedies`` part of an audit result (JSON-ready)."""
+def remedies_for(prep, recommendation, smallest: float, options: RemedyOptions | None, caution: float) -> Remedies:
+    """The ``remedies`` part of an audit result."""
     plan = make_plan(prep, recommendation, smallest, options or RemedyOptions(), caution)
-    return plan.as_dict(prep.table)
+    return plan.report(prep.table)

@@ -9,7 +9,7 @@ import numpy as np
 
 from ..base.errors import InputError
 from ..base.files import atomic_write
-from ..base.jsonio import _clean
+from ..base.jsonio import clean
 from ..inputs.pruned import PRUNED_FORMAT
 from .subset import check_atoms_not_emptied
 
@@ -102,5 +102,5 @@ def pruned_basis(prep, kept_shells, target: float | None = None, smallest: float
 
 
 def write_pruned(doc: dict, path: Path) -> Path:
-    atomic_write(path, json.dumps(_clean(doc), indent=1, ensure_ascii=False, allow_nan=False) + "\n")
+    atomic_write(path, json.dumps(clean(doc), indent=1, ensure_ascii=False, allow_nan=False) + "\n")
     return Path(path)

@@ -16,7 +16,7 @@ from pathlib import Path
 
 from ..base.elements import L_LETTERS
 from ..base.files import atomic_write
-from ..base.jsonio import _clean
+from ..base.jsonio import clean
 from ..diagnosis.findings import SEVERITY_ORDER
 from .style import PAGE_CSS
 from .text import vectors_note
@@ -58,7 +58,7 @@ details summary { cursor: pointer; color: var(--accent); margin: 4px 0; }
 
 
 def _d(result) -> dict:
-    return _clean(result if isinstance(result, dict) else result.as_dict())
+    return clean(result if isinstance(result, dict) else result.as_dict())
 
 
 def _value_attr(value) -> str:

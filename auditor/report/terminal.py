@@ -10,6 +10,7 @@ from rich.markup import escape
 from rich.table import Table
 from rich.text import Text
 
+from ..base.jsonio import to_jsonable
 from .rows import item_label, rank_key
 from .style import TERMINAL_STYLE as STYLE
 
@@ -52,7 +53,7 @@ def print_remedies(results, console: Console | None = None, always: bool = False
     """The best few ranked remedies of each result that needs one (or of all, ``always``)."""
     console = console or Console(highlight=False)
     for r in results:
-        rem = r.remedies
+        rem = to_jsonable(r.remedies)
         if not rem or not rem["alternatives"] or not (rem["needed"] or always):
             continue
         console.print(

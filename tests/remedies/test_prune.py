@@ -67,7 +67,7 @@ def test_unpruned_document_reproduces_full_basis(dimer_prep):
 
 
 def test_ranked_alternatives(dimer_result, dimer_prep):
-    rem = dimer_result.remedies
+    rem = dimer_result.as_dict()["remedies"]
     alts = rem["alternatives"]
     assert [a["rank"] for a in alts] == list(range(1, len(alts) + 1))
     kinds = {a["kind"] for a in alts}
@@ -89,12 +89,12 @@ def test_dropping_diffuse_shells_of_one_element_matches_parent_basis():
     prep = prepare(make_molecule(*DIMER), make_spec("aug-cc-pvdz"))
     r = auditor.audit_prepared(prep, remedies=False)
     plan = plan_remedies(prep, r.recommendation, r.spectrum.smallest, 5e-2)
-    opt = {o["element"]: o for o in plan.diffuse}["H"]
+    opt = {o.element: o for o in plan.diffuse}["H"]
     mol = gto.M(
         atom=[(s, c) for s, c in zip(*DIMER)], basis={"O": "aug-cc-pvdz", "H": "cc-pvdz"}, unit="Angstrom", verbose=0
     )
-    assert opt["smallest_after"] == pytest.approx(np.linalg.eigvalsh(normalized_overlap(mol))[0], rel=1e-9)
-    assert opt["removed"] == prep.table.n_functions - mol.nao
+    assert opt.smallest_after == pytest.approx(np.linalg.eigvalsh(normalized_overlap(mol))[0], rel=1e-9)
+    assert opt.removed == prep.table.n_functions - mol.nao
 
 
 def test_pruning_that_empties_an_atom_is_an_error():
@@ -222,7 +222,7 @@ def test_remedy_options_default_target_is_caution():
         policy=auditor.Policy(caution=3e-2, fail=1e-7),
         remedies=RemedyOptions(),
     )
-    assert r.remedies["target"] == 3e-2 and r.remedies["needed"]
+    assert r.remedies.target == 3e-2 and r.remedies.needed
 
 
 def test_prune_with_ghost_atoms_keeps_them_ghosts(tmp_path):
