@@ -16,6 +16,9 @@ from ..report.rows import brief
 from .cache import content_key, file_digest
 from .items import GateOptions, Item
 
+#: what every worker checks before its first item: (basis, the elements of the run)
+BasisCheck = tuple[BasisSpec, tuple[str, ...]]
+
 
 def _pyscf_version() -> str:
     from importlib.metadata import PackageNotFoundError, version
@@ -133,7 +136,7 @@ def check_basis_names(spec: BasisSpec, elements) -> None:
                 raise UsageError(exc.message) from None
 
 
-def _preflight(check: tuple | None) -> str:
+def _preflight(check: BasisCheck | None) -> str:
     """Run ``check_basis_names(*check)``; the usage error's message, or "" when fine."""
     if check is None:
         return ""
