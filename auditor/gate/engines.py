@@ -189,7 +189,7 @@ class _Pool:
         timeout = self.engine.timeout
         late = bool(w.tasks) and timeout and time.monotonic() - w.started > timeout
         if died or late:
-            self._retire(w, bool(late and not died))
+            self._retire(w, timed_out=bool(late and not died))
 
     def _read(self, w: _Worker) -> tuple[list[tuple[str, str, float]], bool]:
         """Everything ``w`` has sent: (finished replies as (name, text, seconds), whether its pipe broke)."""
@@ -208,7 +208,7 @@ class _Pool:
             return replies, True
         return replies, False
 
-    def _retire(self, w: _Worker, late: bool) -> None:
+    def _retire(self, w: _Worker, timed_out: bool) -> None:
         """Stop ``w``: its running item becomes an error and the one waiting behind it goes
         back to the queue; a worker that never became ready counts as a failed start. A new
         worker takes its place while items remain."""
@@ -216,7 +216,7 @@ class _Pool:
         if w.tasks:
             why = (
                 f"took longer than the item timeout ({self.engine.timeout:g} s); the worker was stopped"
-                if late
+                if timed_out
                 else f"the worker process died (exit code {w.proc.exitcode}) while auditing this item"
             )
             self.on_done(w.tasks[0][0], {"error": why}, time.monotonic() - w.started)
