@@ -12,23 +12,13 @@ from __future__ import annotations
 import argparse
 import time
 
+import clusters
 import numpy as np
 
 
 def water_cluster(n_waters: int, spacing: float = 3.0, seed: int = 3):
-    from ase import Atoms
-    from ase.build import molecule
-
-    rng = np.random.default_rng(seed)
-    k = int(np.ceil(n_waters ** (1 / 3)))
-    atoms = Atoms()
-    for idx in range(n_waters):
-        m = molecule("H2O")
-        m.rotate(rng.uniform(0, 360), "z")
-        m.rotate(rng.uniform(0, 360), "x")
-        m.translate(np.array([idx % k, (idx // k) % k, idx // (k * k)]) * spacing)
-        atoms += m
-    return atoms
+    """ase Atoms of ``n_waters`` waters on a cubic grid, each turned about z then x (x runs fastest)."""
+    return clusters.water_cluster(n_waters, spacing, seed, clusters.ase_zx_turn, fastest="x").ase_atoms()
 
 
 def bare(atoms, basis):
