@@ -65,9 +65,9 @@ def main():
         atoms = water_cluster(n)
         first = full_audit(atoms, args.basis)  # warm caches (basis parsing) for a fair comparison
         smallest, nf = first.spectrum.smallest, first.input.n_functions
-        tb = best_of(lambda: bare(atoms, args.basis), args.repeats)
-        ta = best_of(lambda: full_audit(atoms, args.basis, remedies=False), args.repeats)
-        tr = best_of(lambda: full_audit(atoms, args.basis), args.repeats)
+        tb = best_of(lambda atoms=atoms: bare(atoms, args.basis), args.repeats)
+        ta = best_of(lambda atoms=atoms: full_audit(atoms, args.basis, remedies=False), args.repeats)
+        tr = best_of(lambda atoms=atoms: full_audit(atoms, args.basis), args.repeats)
         print(f"{n:>6} {nf:>9} {smallest:>9.2e} {tb:>8.3f} {ta:>8.3f} {ta / tb:>6.2f} {tr:>11.3f} {tr / tb:>6.2f}")
 
 
