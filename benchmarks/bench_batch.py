@@ -136,7 +136,8 @@ def main() -> None:
     )
     every = {k: " ".join(f"{t:.2f}" for t in v) for k, v in runs.items()}
     print(
-        f"naive loop      {t_naive:8.2f} s  {args.n / t_naive:8.1f} items/s   (runs: {every['naive']}; {p_naive.stdout.strip()})"
+        f"naive loop      {t_naive:8.2f} s  {args.n / t_naive:8.1f} items/s   "
+        f"(runs: {every['naive']}; {p_naive.stdout.strip()})"
     )
     print(f"gate cold -j{args.jobs}   {t_cold:8.2f} s  {args.n / t_cold:8.1f} items/s   (runs: {every['cold']})")
     print(f"gate warm -j{args.jobs}   {t_warm:8.2f} s  {args.n / t_warm:8.1f} items/s   (runs: {every['warm']})")

@@ -27,26 +27,16 @@ import tempfile
 import time
 from pathlib import Path
 
+import clusters
+
 FUNCTIONS_PER_WATER = 92  # aug-cc-pVTZ: 46 on O + 2 x 23 on H
 HERE = Path(__file__).resolve().parent
 
 
 def water_cluster_xyz(n_waters: int, spacing: float = 3.0, seed: int = 11) -> str:
     """XYZ text of ``n_waters`` waters on a cubic grid, each randomly rotated."""
-    import numpy as np
-
-    rng = np.random.default_rng(seed)
-    r_oh, angle = 0.9572, np.deg2rad(104.52)
-    local = np.array([[0.0, 0.0, 0.0], [r_oh, 0.0, 0.0], [r_oh * np.cos(angle), r_oh * np.sin(angle), 0.0]])
-    side = int(np.ceil(n_waters ** (1.0 / 3.0)))
-    lines = []
-    for idx in range(n_waters):
-        i, j, k = idx // (side * side), (idx // side) % side, idx % side
-        q, _ = np.linalg.qr(rng.standard_normal((3, 3)))
-        xyz = local @ q.T + spacing * np.array([i, j, k], dtype=float)
-        for sym, p in zip("OHH", xyz):
-            lines.append(f"{sym} {p[0]:.6f} {p[1]:.6f} {p[2]:.6f}")
-    return f"{len(lines)}\nwater cluster, {n_waters} molecules, grid {spacing} A\n" + "\n".join(lines) + "\n"
+    cluster = clusters.water_cluster(n_waters, spacing, seed, clusters.qr_turn(clusters.water_shape()))
+    return cluster.xyz(f"water cluster, {n_waters} molecules, grid {spacing} A")
 
 
 def _rss_kib() -> int:

@@ -18,6 +18,8 @@ import os
 import sys
 import time
 
+import clusters  # loads numpy only when used: main sets the BLAS threads first
+
 
 def parse() -> argparse.Namespace:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
@@ -36,19 +38,8 @@ def parse() -> argparse.Namespace:
 
 
 def water_cluster(count: int, spacing: float = 2.9, seed: int = 0):
-    """Waters on a cubic grid, each turned by a random rotation (fixed seed)."""
-    import numpy as np
-
-    rng = np.random.default_rng(seed)
-    local = np.array([[0.0, 0.0, 0.0], [0.9572, 0.0, 0.0], [-0.2400, 0.9266, 0.0]])
-    side = int(np.ceil(count ** (1.0 / 3.0)))
-    atoms = []
-    for idx in range(count):
-        i, j, k = idx // (side * side), (idx // side) % side, idx % side
-        q, _ = np.linalg.qr(rng.normal(size=(3, 3)))
-        xyz = local @ q.T + spacing * np.array([i, j, k])
-        atoms += [(el, tuple(x)) for el, x in zip("OHH", xyz)]
-    return atoms
+    """Waters on a cubic grid, each turned by a random rotation (fixed seed); pyscf's atom list."""
+    return clusters.water_cluster(count, spacing, seed, clusters.qr_turn(clusters.WATER_ROUNDED)).atom_list()
 
 
 def best_of(repeat: int, fn):

@@ -4,13 +4,14 @@ from __future__ import annotations
 
 import math
 from pathlib import Path
+from typing import Any
 
 from ..base.errors import UsageError
 from ..report.rows import FAILING
 from .policy_file import GatePolicy
 
 
-def row_key(path: str, frame) -> tuple[str, int | None]:
+def row_key(path: str, frame: Any) -> tuple[str, int | None]:
     """(path, frame) with a missing frame (an unreadable file) as None."""
     if frame is None or (isinstance(frame, float) and math.isnan(frame)):
         return str(path), None
@@ -22,7 +23,7 @@ def row_key(path: str, frame) -> tuple[str, int | None]:
 
 def load_baseline(path: str | Path) -> dict:
     """Rows of an earlier summary (CSV or Parquet) by (path, frame)."""
-    import pandas as pd
+    import pandas as pd  # here, not at the top: slow to import, and only a baseline needs it
 
     path = Path(path)
     try:
@@ -41,7 +42,7 @@ def load_baseline(path: str | Path) -> dict:
     return out
 
 
-def _log10(x) -> float | None:
+def _log10(x: Any) -> float | None:
     try:
         x = float(x)
     except (TypeError, ValueError):

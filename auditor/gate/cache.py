@@ -14,6 +14,10 @@ import hashlib
 import json
 import os
 from pathlib import Path
+from typing import TYPE_CHECKING
+
+if TYPE_CHECKING:
+    import sqlite3
 
 FORMAT = "auditor-cache/4"
 FILE_NAME = "results.sqlite"
@@ -46,19 +50,19 @@ class ResultCache:
     ROOT/results.sqlite. A cache that cannot be opened or written slows the next run;
     it never fails this one (``failed_writes`` counts what could not be stored)."""
 
-    def __init__(self, root: str | Path):
+    def __init__(self, root: str | Path) -> None:
         self.root = Path(root)
         self.path = self.root / FILE_NAME
         self.failed_writes = 0
         self.problem = ""  # why the cache is unusable, when it is
-        self._db = None
+        self._db: sqlite3.Connection | None = None
 
-    def _connect(self, create: bool):
+    def _connect(self, create: bool) -> sqlite3.Connection | None:
         if self._db is not None or self.problem:
             return self._db
         if not create and not self.path.exists():
             return None
-        import sqlite3
+        import sqlite3  # here, not at the top: loaded only by runs that use a cache
 
         try:
             self.root.mkdir(parents=True, exist_ok=True)
@@ -83,7 +87,7 @@ class ResultCache:
     def get(self, key: str) -> dict | None:
         """The stored result as {"text": report JSON text, "data": its brief (a dict)},
         or None when absent, unreadable or not ours."""
-        import sqlite3
+        import sqlite3  # here, not at the top: loaded only by runs that use a cache
 
         db = self._connect(create=False)
         if db is None:
@@ -103,7 +107,7 @@ class ResultCache:
     def put(self, key: str, report: str, brief: dict) -> None:
         """Store the report text verbatim (a hit needs no re-encoding) with its brief
         (what the summary row needs, so that a hit does not parse the whole report)."""
-        import sqlite3
+        import sqlite3  # here, not at the top: loaded only by runs that use a cache
 
         db = self._connect(create=True)
         if db is None:
@@ -119,7 +123,7 @@ class ResultCache:
 
     def keys(self) -> list[str]:
         """Keys of the stored entries of this format (sorted)."""
-        import sqlite3
+        import sqlite3  # here, not at the top: loaded only by runs that use a cache
 
         db = self._connect(create=False)
         if db is None:

@@ -6,20 +6,39 @@ import json
 import multiprocessing as mp
 import os
 import signal
+import socket
 import time
 from collections import deque
+from collections.abc import Callable
+from multiprocessing.connection import Connection
 from multiprocessing.connection import wait as wait_any
+from typing import Protocol
+from urllib.parse import urlsplit
 
 from ..base.errors import AuditorError, UsageError
-from .tasks import _preflight, check_basis_names, run_item
-from .workers import start_server, worker_context, worker_env
+from .tasks import BasisCheck, _preflight, check_basis_names, run_item
+from .workers import WorkerContext, start_server, worker_context, worker_env
+
+#: what a worker runs on every item: payload JSON text in, reply JSON text out
+Task = Callable[[str], str]
+#: called as each item ends: (item name, reply dict, seconds)
+OnDone = Callable[[str, dict, float], None]
 
 
-def _worker_main(conn, task, check=None) -> None:
+class Engine(Protocol):
+    """Where a gate run's items are audited (LocalEngine, DaskEngine). An engine may also
+    have ``warm_up()``, called when nothing can come from the cache."""
+
+    def run(self, tasks: list[tuple[str, str]], on_done: OnDone, check: BasisCheck | None = None) -> None:
+        """Audit the (name, payload) tasks; call ``on_done`` as each one ends."""
+
+
+def _worker_main(conn: Connection, task: Task, check: BasisCheck | None = None) -> None:
     """Worker process: import the integral library once, check the basis names, then
     audit items until told to stop."""
     signal.signal(signal.SIGINT, signal.SIG_IGN)  # the parent handles Ctrl-C and ends its workers
     try:
+        # here, not at the top: the parent process of a gate run never imports pyscf
         import pyscf.gto  # noqa: F401
 
         from ..pipeline import run  # noqa: F401
@@ -41,7 +60,7 @@ _PIPELINE_BYTES = 16 * 1024
 
 
 class _Worker:
-    def __init__(self, ctx, task, check=None):
+    def __init__(self, ctx: WorkerContext, task: Task, check: BasisCheck | None = None):
         self.conn, child = ctx.Pipe()
         self.proc = ctx.Process(target=_worker_main, args=(child, task, check), daemon=True)
         self.proc.start()
@@ -82,7 +101,7 @@ class LocalEngine:
     given to another worker.
     """
 
-    def __init__(self, jobs: int | None = None, timeout: float | None = None, task=run_item):
+    def __init__(self, jobs: int | None = None, timeout: float | None = None, task: Task = run_item):
         cores = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else (os.cpu_count() or 1)
         self.jobs = max(1, jobs or cores)
         # One BLAS/OpenMP thread per worker: on matrices of a few hundred functions more
@@ -96,102 +115,145 @@ class LocalEngine:
         will surely be computed, so that the import overlaps reading the inputs."""
         start_server(self.threads)
 
-    def run(self, tasks: list[tuple[str, str]], on_done, check: tuple | None = None) -> None:
+    def run(self, tasks: list[tuple[str, str]], on_done: OnDone, check: BasisCheck | None = None) -> None:
         """Run (name, payload) tasks; call on_done(name, reply dict, seconds) as each ends.
 
         ``check``: (BasisSpec, elements) that every worker checks before its first item
         (``check_basis_names``); a failure is raised here as UsageError, before any item runs.
         """
-        queue = deque(tasks)
-        if not queue:
+        if not tasks:
             return
-        ctx = worker_context()
-        workers: list[_Worker] = []
-        failed_starts = 0
-
-        def start() -> _Worker:
-            nonlocal ctx
-            with worker_env(self.threads):
-                try:
-                    return _Worker(ctx, self.task, check)
-                except OSError:  # no fork server here (e.g. no room for its socket): spawn instead
-                    if ctx.get_start_method() != "forkserver":
-                        raise
-                    ctx = mp.get_context("spawn")
-                    return _Worker(ctx, self.task, check)
-
-        def feed() -> None:
-            for w in workers:
-                while w is not None and queue and w.wants() and (not w.tasks or len(queue[0][1]) <= _PIPELINE_BYTES):
-                    w.assign(*queue.popleft())
-
+        pool = _Pool(self, tasks, on_done, check)
         try:
-            for _ in range(min(self.jobs, len(queue))):
-                workers.append(start())  # one at a time, so that a failed start leaves none unstopped
-            while queue or any(w.tasks for w in workers):
-                feed()
-                wait_any([w.conn for w in workers] + [w.proc.sentinel for w in workers], self._wait_time(workers))
-                for i, w in enumerate(workers):
-                    replies, died = [], False
-                    try:
-                        while w.conn.poll():
-                            kind, text = w.conn.recv()
-                            if kind == "ready":
-                                w.ready = True
-                            elif kind == "unusable":
-                                raise UsageError(text)
-                            else:
-                                seconds = time.monotonic() - w.started
-                                replies.append((w.finished(), text, seconds))
-                    except (EOFError, OSError):
-                        died = True
-                    if replies:
-                        feed()  # hand out the next items before writing these results
-                        for name, text, seconds in replies:
-                            on_done(name, json.loads(text), seconds)
-                    died = died or not w.proc.is_alive()
-                    late = bool(w.tasks) and self.timeout and time.monotonic() - w.started > self.timeout
-                    if not (died or late):
-                        continue
-                    w.kill()
-                    if w.tasks:
-                        why = (
-                            f"took longer than the item timeout ({self.timeout:g} s); the worker was stopped"
-                            if late and not died
-                            else f"the worker process died (exit code {w.proc.exitcode}) while auditing this item"
-                        )
-                        on_done(w.tasks[0][0], {"error": why}, time.monotonic() - w.started)
-                        queue.extendleft(reversed(list(w.tasks)[1:]))  # waiting, never started: run elsewhere
-                    elif not w.ready:
-                        failed_starts += 1
-                        if failed_starts > 2 * self.jobs:
-                            raise AuditorError(f"worker processes fail to start (exit code {w.proc.exitcode})")
-                    workers[i] = start() if queue else None
-                workers = [w for w in workers if w is not None]
+            pool.start_workers()
+            while pool.busy():
+                pool.step()
         finally:
-            for w in workers:
-                try:
-                    if w.proc.is_alive() and not w.tasks:
-                        w.conn.send(None)
-                except OSError:
-                    pass
-            for w in workers:
-                w.proc.join(2 if not w.tasks else 0)
-                w.kill()
+            pool.stop()
 
-    def _wait_time(self, workers) -> float:
-        if not self.timeout:
+
+class _Pool:
+    """The state of one ``LocalEngine.run``: its workers, the items not yet handed out, and
+    the count of workers that failed to start."""
+
+    def __init__(self, engine: LocalEngine, tasks: list[tuple[str, str]], on_done: OnDone, check: BasisCheck | None):
+        self.engine = engine
+        self.on_done = on_done
+        self.check = check
+        self.queue = deque(tasks)
+        self.ctx: WorkerContext = worker_context()
+        self.workers: list[_Worker] = []
+        self.failed_starts = 0
+
+    def start(self) -> _Worker:
+        """A new worker; where the fork server cannot start one, from spawn from then on."""
+        with worker_env(self.engine.threads):
+            try:
+                return _Worker(self.ctx, self.engine.task, self.check)
+            except OSError:  # no fork server here (e.g. no room for its socket): spawn instead
+                if self.ctx.get_start_method() != "forkserver":
+                    raise
+                self.ctx = mp.get_context("spawn")
+                return _Worker(self.ctx, self.engine.task, self.check)
+
+    def start_workers(self) -> None:
+        for _ in range(min(self.engine.jobs, len(self.queue))):
+            self.workers.append(self.start())  # one at a time, so that a failed start leaves none unstopped
+
+    def busy(self) -> bool:
+        return bool(self.queue) or any(w.tasks for w in self.workers)
+
+    def feed(self) -> None:
+        """Hand out queued items: one to each idle worker, and a second one to a busy worker
+        when its payload is small enough to wait in the pipe."""
+        for w in self.workers:
+            while self.queue and w.wants() and (not w.tasks or len(self.queue[0][1]) <= _PIPELINE_BYTES):
+                w.assign(*self.queue.popleft())
+
+    def step(self) -> None:
+        """Hand out items, wait for a reply, a dead worker or a timeout, then see to every worker."""
+        self.feed()
+        events = [w.conn for w in self.workers] + [w.proc.sentinel for w in self.workers]
+        wait_any(events, self._wait_time())
+        for w in list(self.workers):  # a worker replaced in this pass is looked at in the next
+            self.tend(w)
+
+    def tend(self, w: _Worker) -> None:
+        """Hand out the replies of ``w``; replace it when it died or overran the item timeout."""
+        replies, died = self._read(w)
+        if replies:
+            self.feed()  # hand out the next items before writing these results
+            for name, text, seconds in replies:
+                self.on_done(name, json.loads(text), seconds)
+        died = died or not w.proc.is_alive()
+        timeout = self.engine.timeout
+        late = bool(w.tasks) and timeout and time.monotonic() - w.started > timeout
+        if died or late:
+            self._retire(w, timed_out=bool(late and not died))
+
+    def _read(self, w: _Worker) -> tuple[list[tuple[str, str, float]], bool]:
+        """Everything ``w`` has sent: (finished replies as (name, text, seconds), whether its pipe broke)."""
+        replies: list[tuple[str, str, float]] = []
+        try:
+            while w.conn.poll():
+                kind, text = w.conn.recv()
+                if kind == "ready":
+                    w.ready = True
+                elif kind == "unusable":
+                    raise UsageError(text)
+                else:
+                    seconds = time.monotonic() - w.started
+                    replies.append((w.finished(), text, seconds))
+        except (EOFError, OSError):
+            return replies, True
+        return replies, False
+
+    def _retire(self, w: _Worker, timed_out: bool) -> None:
+        """Stop ``w``: its running item becomes an error and the one waiting behind it goes
+        back to the queue; a worker that never became ready counts as a failed start. A new
+        worker takes its place while items remain."""
+        w.kill()
+        if w.tasks:
+            why = (
+                f"took longer than the item timeout ({self.engine.timeout:g} s); the worker was stopped"
+                if timed_out
+                else f"the worker process died (exit code {w.proc.exitcode}) while auditing this item"
+            )
+            self.on_done(w.tasks[0][0], {"error": why}, time.monotonic() - w.started)
+            self.queue.extendleft(reversed(list(w.tasks)[1:]))  # waiting, never started: run elsewhere
+        elif not w.ready:
+            self.failed_starts += 1
+            if self.failed_starts > 2 * self.engine.jobs:
+                raise AuditorError(f"worker processes fail to start (exit code {w.proc.exitcode})")
+        i = self.workers.index(w)
+        if self.queue:
+            self.workers[i] = self.start()
+        else:
+            del self.workers[i]
+
+    def _wait_time(self) -> float:
+        timeout = self.engine.timeout
+        if not timeout:
             return 5.0
         now = time.monotonic()
-        left = [self.timeout - (now - w.started) for w in workers if w.tasks]
+        left = [timeout - (now - w.started) for w in self.workers if w.tasks]
         return max(0.01, min(left, default=5.0))
+
+    def stop(self) -> None:
+        """Ask idle workers to end, give them a moment, then kill whatever still runs."""
+        for w in self.workers:
+            try:
+                if w.proc.is_alive() and not w.tasks:
+                    w.conn.send(None)
+            except OSError:
+                pass
+        for w in self.workers:
+            w.proc.join(2 if not w.tasks else 0)
+            w.kill()
 
 
 def _check_reachable(address: str, seconds: float = 5.0) -> None:
     """Fail fast on a tcp:// address that refuses connections (Dask itself retries until its timeout)."""
-    import socket
-    from urllib.parse import urlsplit
-
     if not address.startswith("tcp://"):
         return
     try:
@@ -218,13 +280,13 @@ class DaskEngine:
         self.address = address
         self.connect_timeout = connect_timeout
 
-    def run(self, tasks: list[tuple[str, str]], on_done, check: tuple | None = None) -> None:
+    def run(self, tasks: list[tuple[str, str]], on_done: OnDone, check: BasisCheck | None = None) -> None:
         if not tasks:
             return
         if check is not None:
             check_basis_names(*check)
         try:
-            from dask.distributed import Client, as_completed
+            from dask.distributed import Client, as_completed  # optional, and slow to import
         except ImportError:
             raise UsageError("--engine dask needs dask[distributed]: pip install 'auditor[dask]'") from None
         _check_reachable(self.address)

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import glob
 import os
+from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -55,7 +56,7 @@ def _has_magic(s: str) -> bool:
 
 
 def expand_inputs(
-    args: list[str], patterns=GEOMETRY_PATTERNS, _depth: int = 0
+    args: list[str], patterns: Sequence[str] = GEOMETRY_PATTERNS, _depth: int = 0
 ) -> tuple[list[Path], list[tuple[str, str]]]:
     """Files named by ``args`` (files, folders searched recursively, glob patterns, and
     ``@LIST`` text files with one such argument a line, relative to the list file),
@@ -106,7 +107,7 @@ def expand_inputs(
     return files, missing
 
 
-def collect_items(args: list[str], options: GateOptions, patterns=GEOMETRY_PATTERNS) -> list[Item]:
+def collect_items(args: list[str], options: GateOptions, patterns: Sequence[str] = GEOMETRY_PATTERNS) -> list[Item]:
     """Every frame of every file as an item, sorted by (path, frame); unreadable files
     and arguments that name nothing become error items."""
     files, missing = expand_inputs(args, patterns)

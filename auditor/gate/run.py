@@ -7,6 +7,7 @@ import hashlib
 import json
 import os
 import time
+from collections.abc import Callable, Iterable, Iterator, Sequence
 from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -14,17 +15,22 @@ from pathlib import Path
 from .. import __version__
 from ..base.errors import EXIT_FAIL, EXIT_OK, UsageError
 from ..base.files import TEMP_NAME, atomic_write, check_not_input, protect
+from ..inputs.geometry import Molecule
 from ..report.json_report import dumps_result
 from ..report.junit import write_junit
 from ..report.rows import BLOCKING, error_row, result_row
 from ..report.summary_files import prefetch_libraries, write_summary
 from .baseline import improvements, judge
 from .cache import ResultCache, file_digest
+from .engines import Engine
 from .items import GEOMETRY_PATTERNS, GateOptions, Item, collect_items
 from .policy_file import GatePolicy
 from .tasks import _geometry, item_key, item_payload, run_context
 
 ITEMS_DIR = "items"
+
+#: called after every item as progress(items done, items in all)
+Progress = Callable[[int, int], None]
 
 
 @dataclass
@@ -53,10 +59,10 @@ def run_batch(
     args: list[str],
     options: GateOptions,
     out: Path,
-    engine,
+    engine: Engine,
     cache: ResultCache | None = None,
-    patterns=GEOMETRY_PATTERNS,
-    progress=None,
+    patterns: Sequence[str] = GEOMETRY_PATTERNS,
+    progress: Progress | None = None,
 ) -> BatchRun:
     """Audit every item named by ``args``; write out/items/<item>.json as each finishes.
 
@@ -75,83 +81,126 @@ def run_batch(
         return _audit_items(items, options, items_dir, engine, cache, progress)
 
 
-def _audit_items(items: list[Item], options: GateOptions, items_dir: Path, engine, cache, progress) -> BatchRun:
-    by_name = {it.name: it for it in items}
-    rows: dict[str, dict] = {}
-    run = BatchRun(rows=[], inputs=[it.path for it in items])
-    basis = options.spec.describe()
-    total = len(items)
+def _audit_items(
+    items: list[Item],
+    options: GateOptions,
+    items_dir: Path,
+    engine: Engine,
+    cache: ResultCache | None,
+    progress: Progress | None,
+) -> BatchRun:
+    state = _ItemsRun(items, options, items_dir, cache, progress)
+    todo = state.plan(items)
+    check = (options.spec, tuple(sorted({s for _, mol, _ in todo for s in mol.symbols})))
+    if todo:
+        prefetch_libraries()  # the summary writer needs them; meanwhile this process mostly waits
+    tasks = [(it.name, item_payload(it.path, mol, g, state.context)) for it, mol, g in todo]
+    engine.run(tasks, state.on_done, check=check)
+    state.run.rows = [state.rows[it.name] for it in items]
+    state.run.files = [f"{it.name}.json" for it in items]
+    return state.run
 
-    def done(it: Item, row: dict, report: str) -> None:
-        target = items_dir / f"{it.name}.json"
+
+def _frame(it: Item) -> int:
+    """The 1-based frame of an item that was read (only unreadable files make items without one)."""
+    if it.frame is None:
+        raise ValueError(f"{it.path}: an item that was not read has no result")
+    return it.frame
+
+
+class _ItemsRun:
+    """One run over the items: what is written as each item ends, the counts, and the items
+    that wait for the audit of another one with the same geometry (``twins``)."""
+
+    def __init__(
+        self,
+        items: list[Item],
+        options: GateOptions,
+        items_dir: Path,
+        cache: ResultCache | None,
+        progress: Progress | None,
+    ):
+        self.options = options
+        self.items_dir = items_dir
+        self.cache = cache
+        self.progress = progress
+        self.by_name = {it.name: it for it in items}
+        self.rows: dict[str, dict] = {}
+        self.run = BatchRun(rows=[], inputs=[it.path for it in items])
+        self.basis = options.spec.describe()
+        self.total = len(items)
+        self.twins: dict[str, list[Item]] = {}  # items with the geometry of one being audited
+        self.context: dict = run_context(options) if any(it.molecule is not None for it in items) else {}
+
+    def plan(self, items: list[Item]) -> list[tuple[Item, Molecule, dict]]:
+        """Write what needs no audit (unreadable items, cache hits); the rest as (item,
+        molecule, geometry) with one item per geometry (the others wait as its twins)."""
+        todo: list[tuple[Item, Molecule, dict]] = []
+        for it in items:
+            mol = it.molecule
+            if it.error or mol is None:
+                self.fail(it, it.error or "no geometry was read")
+                continue
+            geometry = _geometry(mol)
+            it.key = item_key(geometry, self.context)
+            hit = self.cache.get(it.key) if self.cache is not None else None
+            if hit is not None:
+                self.run.cached += 1
+                self.finish(it, hit["text"], hit["data"])
+            elif it.key in self.twins:
+                self.twins[it.key].append(it)
+            else:
+                self.twins[it.key] = []
+                todo.append((it, mol, geometry))
+        return todo
+
+    def write(self, it: Item, row: dict, report: str) -> None:
+        """Write the item's report file (unless it holds this text already) and keep its row."""
+        target = self.items_dir / f"{it.name}.json"
         if not _same_text(target, report):  # a rename costs more than a read on some file systems
             atomic_write(target, report)
-        rows[it.name] = row
-        if progress:
-            progress(len(rows), total)
+        self.rows[it.name] = row
+        if self.progress:
+            self.progress(len(self.rows), self.total)
 
-    def fail(it: Item, message: str) -> None:
+    def fail(self, it: Item, message: str) -> None:
         message = _with_path(message, it.path)
-        run.errors += 1
+        self.run.errors += 1
         report = (
             json.dumps(
                 {"schema": "auditor-item-error/1", "path": it.path, "frame": it.frame, "error": message}, indent=2
             )
             + "\n"
         )
-        done(it, error_row(it.path, it.frame, it.name, basis, message), report)
+        self.write(it, error_row(it.path, it.frame, it.name, self.basis, message), report)
 
-    def finish(it: Item, text: str, short: dict) -> None:
+    def finish(self, it: Item, text: str, short: dict) -> None:
         """``short``: the result's ``brief``; the whole report is parsed only when it
         has to be rewritten for this item (a hit filled from another file)."""
-        own = {"path": it.path, "frame": it.frame, "n_frames": it.n_frames}
+        frame = _frame(it)
+        own = {"path": it.path, "frame": frame, "n_frames": it.n_frames}
         if any(short["input"].get(k) != v for k, v in own.items()):
             result = json.loads(text)
             result["input"].update(own)
             text = dumps_result(result, compact=True)
-        done(it, result_row(it.path, it.frame, it.name, short), text)
+        self.write(it, result_row(it.path, frame, it.name, short), text)
 
-    twins: dict[str, list[Item]] = {}  # items with the geometry of one being audited
-
-    def on_done(name: str, reply: dict, seconds: float) -> None:
-        it = by_name[name]
-        run.seconds[name] = reply.get("seconds", seconds)
+    def on_done(self, name: str, reply: dict, seconds: float) -> None:
+        """An engine's reply for one item: write it for the item and for its twins."""
+        it = self.by_name[name]
+        self.run.seconds[name] = reply.get("seconds", seconds)
+        twins = self.twins.get(it.key, [])
         if "report" in reply:
-            run.computed += 1
+            self.run.computed += 1
             # a Dask worker may run other versions than the key says: do not store its result
-            if cache is not None and reply.get("versions") == context["versions"]:
-                cache.put(it.key, reply["report"], reply["brief"])
-            for each in [it, *twins.get(it.key, [])]:
-                finish(each, reply["report"], reply["brief"])
+            if self.cache is not None and reply.get("versions") == self.context["versions"]:
+                self.cache.put(it.key, reply["report"], reply["brief"])
+            for each in [it, *twins]:
+                self.finish(each, reply["report"], reply["brief"])
         else:
-            for each in [it, *twins.get(it.key, [])]:
-                fail(each, reply.get("error", "no result"))
-        run.cached += len(twins.get(it.key, []))  # served by the same computation
-
-    context = run_context(options) if any(it.molecule is not None for it in items) else {}
-    todo: list[tuple[Item, dict]] = []
-    for it in items:
-        if it.error:
-            fail(it, it.error)
-            continue
-        geometry = _geometry(it.molecule)
-        it.key = item_key(geometry, context)
-        hit = cache.get(it.key) if cache is not None else None
-        if hit is not None:
-            run.cached += 1
-            finish(it, hit["text"], hit["data"])
-        elif it.key in twins:
-            twins[it.key].append(it)
-        else:
-            twins[it.key] = []
-            todo.append((it, geometry))
-    check = (options.spec, tuple(sorted({s for it, _ in todo for s in it.molecule.symbols})))
-    if todo:
-        prefetch_libraries()  # the summary writer needs them; meanwhile this process mostly waits
-    engine.run([(it.name, item_payload(it, g, context)) for it, g in todo], on_done, check=check)
-    run.rows = [rows[it.name] for it in items]
-    run.files = [f"{it.name}.json" for it in items]
-    return run
+            for each in [it, *twins]:
+                self.fail(each, reply.get("error", "no result"))
+        self.run.cached += len(twins)  # served by the same computation
 
 
 def _rows_digest(rows: list[dict]) -> str:
@@ -159,23 +208,23 @@ def _rows_digest(rows: list[dict]) -> str:
     return hashlib.sha256(text.encode("utf-8")).hexdigest()
 
 
-def _summary_stamps(rows_digest: str, files) -> dict:
+def _summary_stamps(rows_digest: str, files: Iterable[Path]) -> dict:
     """What run.json records to recognise the summary files on the next run."""
     return {"rows": rows_digest, **{Path(f).name: file_digest(f) for f in files}}
 
 
-def _summaries_if_unchanged(out: Path, rows_digest: str):
+def _summaries_if_unchanged(out: Path, rows_digest: str) -> tuple[tuple[Path, Path], dict] | None:
     """(summary paths, stamps) when the summary files in ``out`` were written by an earlier
     run from exactly these rows and are untouched since (their SHA-256 recorded in
-    run.json); else (None, None). Spares a rerun of an unchanged set from rewriting them
+    run.json); else None. Spares a rerun of an unchanged set from rewriting them
     (and from importing pandas)."""
     try:
         stamps = json.loads((Path(out) / "run.json").read_text(encoding="utf-8")).get("summary_stamps") or {}
-        files = [Path(out) / "summary.csv", Path(out) / "summary.parquet"]
+        files = (Path(out) / "summary.csv", Path(out) / "summary.parquet")
         if stamps.get("rows") != rows_digest or any(stamps.get(f.name) != file_digest(f) for f in files):
-            return None, None
+            return None
     except (OSError, ValueError, AttributeError):
-        return None, None
+        return None
     return files, stamps
 
 
@@ -183,7 +232,7 @@ LOCK_NAME = ".auditor-gate.lock"
 
 
 @contextmanager
-def output_lock(out: Path):
+def output_lock(out: Path) -> Iterator[None]:
     """Hold an exclusive lock on ``out`` for one gate run: a second run into the same folder
     is refused at once with a clear line instead of mixing its files with the first's.
     The kernel releases the lock when the process ends, however it ends."""
@@ -194,7 +243,7 @@ def output_lock(out: Path):
         raise UsageError(f"{out}: cannot use the output folder ({exc.strerror})") from None
     try:
         try:
-            import fcntl
+            import fcntl  # here: POSIX only
 
             fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
         except ImportError:  # pragma: no cover - not POSIX: no lock
@@ -249,13 +298,13 @@ def run_gate(
     args: list[str],
     options: GateOptions,
     out: Path,
-    engine,
+    engine: Engine,
     cache: ResultCache | None,
-    gate_policy=None,
+    gate_policy: GatePolicy | None = None,
     baseline: dict | None = None,
     drop_decades: float | None = None,
-    patterns=GEOMETRY_PATTERNS,
-    progress=None,
+    patterns: Sequence[str] = GEOMETRY_PATTERNS,
+    progress: Progress | None = None,
     html: bool = False,
 ) -> GateOutcome:
     """Audit the set, judge every item against the policy (and baseline), write
@@ -270,13 +319,25 @@ def run_gate(
             return _finish_gate(run, options, out, cache, gate_policy, baseline, drop_decades, html, previous, t0)
 
 
-def _finish_gate(run, options, out, cache, gate_policy, baseline, drop_decades, html, previous, t0) -> GateOutcome:
+def _finish_gate(
+    run: BatchRun,
+    options: GateOptions,
+    out: Path,
+    cache: ResultCache | None,
+    gate_policy: GatePolicy | None,
+    baseline: dict | None,
+    drop_decades: float | None,
+    html: bool,
+    previous: set[str],
+    t0: float,
+) -> GateOutcome:
     judge(run.rows, gate_policy or GatePolicy(), baseline, drop_decades)
     digest = _rows_digest(run.rows)
-    summaries, stamps = _summaries_if_unchanged(out, digest)
-    if summaries is None:
+    kept = _summaries_if_unchanged(out, digest)
+    if kept is None:
         summaries = write_summary(run.rows, out)
-        stamps = _summary_stamps(digest, summaries)
+        kept = summaries, _summary_stamps(digest, summaries)
+    summaries, stamps = kept
     written = [*summaries, write_junit(run.rows, Path(out) / "junit.xml", run.seconds)]
     if html:
         # matplotlib loads only for HTML output: a warm run stays fast

@@ -4,6 +4,7 @@ Shared by ``auditor check`` and ``auditor demo``: one bad file never stops the o
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -11,6 +12,7 @@ from ..base.errors import EXIT_FAIL, EXIT_OK, AuditorError, failure
 from ..base.files import protect
 from ..diagnosis.verdict import Policy
 from ..inputs.basis import BasisSpec
+from ..pipeline.result import AuditResult
 from ..pipeline.run import audit_prepared, load_molecules, prepare
 from ..report.naming import report_stem, unique_name
 from ..report.writers import write_reports
@@ -38,8 +40,8 @@ def audit_paths(
     unit: str = "angstrom",
     ghost: str | None = None,
     spectrum_method: str = "auto",
-    on_result=None,
-    remedies=True,
+    on_result: Callable[[AuditResult], None] | None = None,
+    remedies: bool = True,
 ) -> RunOutcome:
     """Audit every frame of every file; collect errors per file instead of stopping."""
     with protect([*paths, *spec.files()]):

@@ -4,20 +4,26 @@ from __future__ import annotations
 
 import json
 import time
+from collections.abc import Iterable
 from pathlib import Path
 
 from .. import __version__
 from ..base.errors import InputError, UsageError, failure
 from ..diagnosis.verdict import Policy
-from ..inputs.basis import BasisSpec
+from ..inputs.basis import BasisSpec, load_shells
 from ..inputs.geometry import Molecule
 from ..report.json_report import dumps_result
 from ..report.rows import brief
 from .cache import content_key, file_digest
-from .items import GateOptions, Item
+from .items import GateOptions
+
+#: what every worker checks before its first item: (basis, the elements of the run)
+BasisCheck = tuple[BasisSpec, tuple[str, ...]]
 
 
 def _pyscf_version() -> str:
+    # here, not at the top: importlib.metadata is slow to import, and needed only when
+    # there is something to audit
     from importlib.metadata import PackageNotFoundError, version
 
     try:
@@ -60,13 +66,13 @@ def item_key(geometry: dict, context: dict) -> str:
     return content_key({"geometry": geometry, **context})
 
 
-def item_payload(item: Item, geometry: dict, context: dict) -> str:
-    """JSON text that a worker needs to audit ``item`` (``context``: ``run_context``)."""
-    mol = item.molecule
+def item_payload(path: str, mol: Molecule, geometry: dict, context: dict) -> str:
+    """JSON text that a worker needs to audit the frame ``mol`` of the file ``path`` as shown
+    (``geometry``: ``_geometry(mol)``; ``context``: ``run_context``)."""
     return json.dumps(
         {
             "geometry": geometry,
-            "source": item.path,
+            "source": path,
             "frame": mol.frame,
             "n_frames": mol.n_frames,
             "basis": context["basis"],
@@ -81,9 +87,10 @@ def item_payload(item: Item, geometry: dict, context: dict) -> str:
 def run_item(payload: str) -> str:
     """Audit one item (worker side): JSON text in; JSON text out, {"report": <report JSON
     text>, "brief": ..., "versions": ...} or {"error": "..."}."""
+    # here, not at the top: worker side only (the parent's start-up needs neither)
     import numpy as np
 
-    from ..pipeline.run import audit_prepared, prepare  # in the worker: the parent never loads pyscf
+    from ..pipeline.run import audit_prepared, prepare
 
     p = json.loads(payload)
     t0 = time.perf_counter()
@@ -118,11 +125,9 @@ def run_item(payload: str) -> str:
         return json.dumps({"error": failure(exc)[0]})
 
 
-def check_basis_names(spec: BasisSpec, elements) -> None:
+def check_basis_names(spec: BasisSpec, elements: Iterable[str]) -> None:
     """A basis name that neither pyscf nor the file system knows is a usage error, not one
-    error per item. (Imports pyscf: runs where the audits run.)"""
-    from ..inputs.basis import load_shells  # in the worker: loads pyscf
-
+    error per item. (load_shells imports pyscf: this runs where the audits run.)"""
     elements = set(elements)
     for name in sorted({spec.for_element(el) for el in elements}):
         users = sorted(el for el in elements if spec.for_element(el) == name)
@@ -133,7 +138,7 @@ def check_basis_names(spec: BasisSpec, elements) -> None:
                 raise UsageError(exc.message) from None
 
 
-def _preflight(check: tuple | None) -> str:
+def _preflight(check: BasisCheck | None) -> str:
     """Run ``check_basis_names(*check)``; the usage error's message, or "" when fine."""
     if check is None:
         return ""

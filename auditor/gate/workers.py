@@ -8,8 +8,16 @@ from __future__ import annotations
 
 import multiprocessing as mp
 import os
+from collections.abc import Iterator
 from contextlib import contextmanager
 from pathlib import Path
+from typing import TYPE_CHECKING, Union
+
+if TYPE_CHECKING:
+    from multiprocessing.context import ForkServerContext, SpawnContext
+
+#: how worker processes are started (see worker_context)
+WorkerContext = Union["ForkServerContext", "SpawnContext"]
 
 #: thread pools of BLAS/OpenMP libraries, pinned in worker processes
 THREAD_VARS = (
@@ -26,7 +34,7 @@ PRELOAD = ["auditor.pipeline.run", "auditor.gate.tasks", "pyscf.gto", "scipy.lin
 
 
 @contextmanager
-def worker_env(threads: int):
+def worker_env(threads: int) -> Iterator[None]:
     """Environment for worker processes started inside: BLAS/OpenMP pools of ``threads``,
     and glibc's malloc told to keep freed memory up to 64 MB instead of returning it.
 
@@ -48,7 +56,7 @@ def worker_env(threads: int):
                 os.environ[k] = v
 
 
-def worker_context():
+def worker_context() -> WorkerContext:
     """forkserver where the platform has it, else spawn; never a plain fork.
 
     The fork server is a fresh interpreter started with one BLAS/OpenMP thread, so no
@@ -66,7 +74,7 @@ def start_server(threads: int = 1) -> None:
     ctx = worker_context()
     if ctx.get_start_method() != "forkserver":
         return
-    from multiprocessing import forkserver
+    from multiprocessing import forkserver  # here: a module that only platforms with a fork server use
 
     with worker_env(threads):
         try:
@@ -87,6 +95,7 @@ def start_early(argv: list[str]) -> None:
     ):
         return
     if "--no-cache" not in argv:
+        # here, not at the top: the command line imports this module first, on every command
         from .cache import FILE_NAME, default_cache_dir
 
         root = None
