@@ -12,7 +12,7 @@ __version__ = "0.1.0"
 _EXPORTS = {
     "audit": "pipeline.run",
     "audit_prepared": "pipeline.run",
-    "load_molecules": "pipeline.run",
+    "load_molecules": "inputs.geometry",
     "make_spec": "pipeline.run",
     "prepare": "pipeline.run",
     "prune_prepared": "pipeline.run",

@@ -54,7 +54,7 @@ def worker(kind: str, xyz: str, basis: str) -> dict:
     import scipy.sparse.linalg  # noqa: F401
 
     import auditor
-    from auditor import api
+    from auditor.pipeline import run as api
     from auditor.pipeline.run import audit_prepared, make_spec, prepare
 
     load0 = os.getloadavg()[0]

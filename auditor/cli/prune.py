@@ -42,7 +42,8 @@ def prune(
     from ..base.errors import AuditorError, UsageError
     from ..base.files import protect
     from ..diagnosis.verdict import Policy
-    from ..pipeline.run import load_molecules, make_spec, prepare, prune_prepared
+    from ..inputs.geometry import load_molecules
+    from ..pipeline.run import make_spec, prepare, prune_prepared
     from ..report.naming import report_stem
     from ..report.pruned_files import write_prune_outputs
     from ..report.terminal import print_remedies

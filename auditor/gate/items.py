@@ -11,8 +11,7 @@ from pathlib import Path
 from ..base.errors import AuditorError, UsageError
 from ..diagnosis.verdict import Policy
 from ..inputs.basis import BasisSpec
-from ..inputs.geometry import Molecule
-from ..pipeline.run import load_molecules
+from ..inputs.geometry import Molecule, load_molecules
 from ..report.naming import report_stem, unique_name
 
 #: file names a directory argument contributes (recursively)

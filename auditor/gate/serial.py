@@ -12,8 +12,9 @@ from ..base.errors import EXIT_FAIL, EXIT_OK, AuditorError, failure
 from ..base.files import protect
 from ..diagnosis.verdict import Policy
 from ..inputs.basis import BasisSpec
+from ..inputs.geometry import load_molecules
 from ..pipeline.result import AuditResult
-from ..pipeline.run import audit_prepared, load_molecules, prepare
+from ..pipeline.run import audit_prepared, prepare
 from ..report.naming import report_stem, unique_name
 from ..report.writers import write_reports
 

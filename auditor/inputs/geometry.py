@@ -216,3 +216,10 @@ def read_geometry(path: str | Path, unit: str = "angstrom") -> list[Molecule]:
         raise InputError(f"{path}: no atoms found")
     n = len(frames)
     return [replace(f, n_frames=n) for f in frames]
+
+
+def load_molecules(path: str | Path, unit: str = "angstrom", ghost: str | list[int] | None = None) -> list[Molecule]:
+    """Every frame of a geometry file, with ghost atoms marked (1-based numbers or '4-6,9')."""
+    frames = read_geometry(path, unit=unit)
+    numbers = parse_atom_numbers(ghost) if isinstance(ghost, str) else list(ghost or [])
+    return [f.with_ghosts(numbers) if numbers else f for f in frames]

@@ -5,7 +5,6 @@ from __future__ import annotations
 import math
 import re
 from dataclasses import dataclass
-from pathlib import Path
 
 import numpy as np
 
@@ -177,13 +176,6 @@ def _spectrum_info(spec: Spectrum) -> SpectrumInfo:
         method=spec.method,
         eigenvalues=tuple(float(v) for v in spec.values),
     )
-
-
-def load_molecules(path: str | Path, unit: str = "angstrom", ghost: str | list[int] | None = None) -> list[Molecule]:
-    """Every frame of a geometry file, with ghost atoms marked (1-based numbers or '4-6,9')."""
-    frames = read_geometry(path, unit=unit)
-    numbers = parse_atom_numbers(ghost) if isinstance(ghost, str) else list(ghost or [])
-    return [f.with_ghosts(numbers) if numbers else f for f in frames]
 
 
 def audit(
