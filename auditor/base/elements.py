@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from collections.abc import Iterable
+
 import numpy as np
 
 from .errors import InputError
@@ -40,8 +42,8 @@ L_LETTERS = "spdfghiklm"
 NOBLE = {"He", "Ne", "Ar", "Kr", "Xe", "Rn", "Og"}
 
 
-def covalent_radii(symbols) -> np.ndarray:
+def covalent_radii(symbols: Iterable[str]) -> np.ndarray:
     """Covalent radii in ångström (Cordero et al., Dalton Trans. 2008, 2832, as tabulated by ASE)."""
-    from ase.data import covalent_radii as table
+    from ase.data import covalent_radii as table  # ASE is slow to import: only when radii are needed
 
     return np.array([table[ELEMENTS.index(s) + 1] for s in symbols])

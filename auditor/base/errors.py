@@ -16,7 +16,7 @@ class AuditorError(Exception):
 
     exit_code = EXIT_INPUT
 
-    def __init__(self, message: str):
+    def __init__(self, message: str) -> None:
         super().__init__(message)
         self.message = message
 

@@ -5,6 +5,7 @@ from __future__ import annotations
 import itertools
 import os
 import re
+from collections.abc import Iterable, Iterator
 from contextlib import contextmanager
 from pathlib import Path
 
@@ -22,7 +23,7 @@ TEMP_NAME = re.compile(r"^\.(?P<target>.+)\.\d+\.\d+\.tmp$")
 
 
 @contextmanager
-def protect(paths):
+def protect(paths: Iterable[str | os.PathLike[str]]) -> Iterator[None]:
     """Within the block, ``atomic_write`` refuses to replace any of ``paths`` (the inputs
     of a run: geometry, basis and list files), so that an output folder that holds the
     inputs never costs the user a file."""

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import json
 from dataclasses import fields, is_dataclass
+from typing import Any
 
 import numpy as np
 
@@ -17,7 +18,7 @@ OMIT_NONE = "omit_none"
 _PLAIN = (str, int, float, bool, type(None))
 
 
-def to_jsonable(x):
+def to_jsonable(x: Any) -> Any:
     """Plain JSON types from dataclasses, mappings, sequences and numpy values. Floats stay
     as they are (``dumps`` turns non-finite ones into null)."""
     if type(x) in _PLAIN:
@@ -41,7 +42,7 @@ def to_jsonable(x):
     return x
 
 
-def clean(x):
+def clean(x: Any) -> Any:
     """``x`` with NaN and infinities as None and numpy scalars as Python numbers."""
     t = type(x)
     if t is float:
@@ -63,7 +64,7 @@ def clean(x):
     return x
 
 
-def dumps(data, compact: bool = False) -> str:
+def dumps(data: Any, compact: bool = False) -> str:
     """Deterministic JSON text of plain data (non-finite numbers become null). ``compact``:
     one line without indentation, the same content."""
     options: dict = dict(indent=None, separators=(",", ":")) if compact else dict(indent=2)

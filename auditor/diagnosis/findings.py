@@ -14,6 +14,8 @@ from ..base.elements import BOHR_IN_ANGSTROM, NOBLE, covalent_radii
 from ..inputs.geometry import Molecule
 from ..numerics.overlap import FunctionTable
 from ..numerics.spectrum import SCAN_BYTES, Spectrum
+from .causes import Causes
+from .verdict import Policy
 
 COINCIDENT_ANGSTROM = 0.01  # closer than this, two centres are one: S is singular
 
@@ -51,7 +53,7 @@ def _atom_name(mol: Molecule, i: int) -> str:
 
 def geometry_findings(mol: Molecule) -> list[Finding]:
     """Coincident atoms, impossible short contacts, and a unit mix-up."""
-    from scipy.spatial import cKDTree
+    from scipy.spatial import cKDTree  # scipy.spatial is slow to import and only this check needs it
 
     findings: list[Finding] = []
     if mol.n_atoms < 2:
@@ -168,8 +170,8 @@ def duplicate_findings(S: np.ndarray, table: FunctionTable, block: int | None = 
     fa = table.func_atom
     groups: dict[tuple[int, int], list[int]] = {}
     for k in range(pi.size):
-        key = tuple(sorted((int(fa[pi[k]]), int(fa[pj[k]]))))
-        groups.setdefault(key, []).append(k)
+        first, second = sorted((int(fa[pi[k]]), int(fa[pj[k]])))
+        groups.setdefault((first, second), []).append(k)
     out = []
     for (a, b), ks in sorted(groups.items(), key=lambda kv: (-float(pv[kv[1]].max()), kv[0])):
         best = max(ks, key=lambda k: (pv[k], -pi[k]))
@@ -282,7 +284,7 @@ def crowding_findings(S: np.ndarray, mol: Molecule, table: FunctionTable, troubl
     return out
 
 
-def near_singular_finding(spec: Spectrum, policy, causes) -> Finding:
+def near_singular_finding(spec: Spectrum, policy: Policy, causes: Causes) -> Finding:
     severity = "error" if spec.smallest < policy.fail else "warning"
     top = [a for a in causes.atoms[:5] if a["weight"] >= 0.05]
     who = ", ".join(f"{a['element']}{a['atom']} ({a['weight']:.0%})" for a in top)

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from collections.abc import Iterable
 from dataclasses import dataclass
 
 from ..base.errors import UsageError
@@ -20,7 +21,7 @@ class Policy:
     caution: float = 1e-5
     fail: float = 1e-7
 
-    def __post_init__(self):
+    def __post_init__(self) -> None:
         for name in ("caution", "fail"):
             v = getattr(self, name)
             if not (0.0 < v < 1.0):
@@ -32,7 +33,7 @@ class Policy:
         return to_jsonable(self)
 
 
-def decide(policy: Policy, smallest: float, finding_kinds) -> tuple[str, str]:
+def decide(policy: Policy, smallest: float, finding_kinds: Iterable[str]) -> tuple[str, str]:
     """(verdict, one-line reason)."""
     fatal = sorted(set(finding_kinds) & set(FATAL_KINDS))
     if fatal:

@@ -3,10 +3,12 @@
 from __future__ import annotations
 
 import difflib
+import math
 import re
 from dataclasses import dataclass, field
 from functools import cache, lru_cache
 from pathlib import Path
+from typing import Any
 
 from ..base.elements import element_symbol
 from ..base.errors import InputError, UsageError
@@ -46,7 +48,7 @@ class BasisSpec:
         names = [self.default, *self.per_element.values()]
         return [n for n in dict.fromkeys(names) if Path(n).expanduser().is_file()]
 
-    def __post_init__(self):
+    def __post_init__(self) -> None:
         object.__setattr__(self, "per_element", dict(sorted(self.per_element.items())))
 
     def as_dict(self) -> dict:
@@ -69,14 +71,14 @@ def parse_overrides(items: list[str] | None) -> dict[str, str]:
 
 
 def _canon(name: str) -> str:
-    from pyscf.gto import basis as pbasis
+    from pyscf.gto import basis as pbasis  # pyscf is slow to import: only when a basis is looked up
 
     return pbasis._format_basis_name(name)
 
 
 @cache
 def _known_names() -> tuple[str, ...]:
-    from pyscf.gto import basis as pbasis
+    from pyscf.gto import basis as pbasis  # pyscf is slow to import: only when a basis is looked up
 
     return tuple(sorted(pbasis.ALIAS))
 
@@ -85,7 +87,7 @@ def _known_names() -> tuple[str, ...]:
 def _exchange_names() -> frozenset:
     """Basis names of basis_set_exchange, which pyscf consults for names it does not hold."""
     try:
-        import basis_set_exchange as bse
+        import basis_set_exchange as bse  # slow to import: only when a name is not pyscf's
     except ImportError:
         return frozenset()
     return frozenset(n.lower() for n in bse.get_all_basis_names())
@@ -128,7 +130,7 @@ def eval_off() -> None:
     number with ``eval`` unless DISABLE_EVAL is set; a basis file could then run code.
     The flag is read at import time into each parser module, so it is set in each one
     (and in pyscf's config, for parsers imported later)."""
-    import pyscf
+    import pyscf  # pyscf is slow to import: only when a basis or geometry is parsed
     import pyscf.gto.basis.parse_cp2k as cp2k
     import pyscf.gto.basis.parse_molpro as molpro
     import pyscf.gto.basis.parse_nwchem as nwchem
@@ -187,7 +189,7 @@ def read_basis_file(path: str) -> dict[str, tuple[str, ...]]:
 
 
 def _file_shells(path: str, element: str) -> list:
-    from pyscf.gto import basis as pbasis
+    from pyscf.gto import basis as pbasis  # pyscf is slow to import: only when a basis file is read
     from pyscf.gto.basis import parse_nwchem
 
     blocks = read_basis_file(path)
@@ -211,7 +213,7 @@ def load_shells(name: str, element: str) -> tuple:
     ``name`` is a basis name or an NWChem-format file (read by a numbers-only check
     first). Raises InputError naming what is missing, with close names for typos.
     """
-    from pyscf.gto import basis as pbasis
+    from pyscf.gto import basis as pbasis  # pyscf is slow to import: only when a basis is loaded
 
     eval_off()
     name = check_basis_name(name)
@@ -238,8 +240,6 @@ def load_shells(name: str, element: str) -> tuple:
 
 
 def _bad_exponent(shells):
-    import math
-
     for shell in shells:
         prims = shell[2:] if isinstance(shell[1], int) else shell[1:]
         for p in prims:
@@ -254,8 +254,9 @@ def _freeze(shell):
     return shell
 
 
-def thaw(shells) -> list:
-    """Frozen shells back to pyscf's mutable list format."""
+def thaw(shells: Any) -> Any:
+    """Frozen shells (nested tuples) back to pyscf's mutable list format (nested lists);
+    anything else, such as the numbers inside, as it is."""
     if isinstance(shells, tuple):
         return [thaw(x) for x in shells]
     return shells

@@ -6,11 +6,15 @@ import math
 import re
 from dataclasses import dataclass, field, replace
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from ..base.elements import BOHR_IN_ANGSTROM, ELEMENTS, element_symbol
 from ..base.errors import InputError, UsageError
+
+if TYPE_CHECKING:
+    from ase import Atoms
 
 
 @dataclass(frozen=True)
@@ -144,7 +148,7 @@ def _read_plain_xyz(path: Path, text: str, scale: float) -> list[Molecule]:
 def _read_with_ase(path: Path, scale: float) -> list[Molecule]:
     """Extended XYZ and other formats that ASE reads."""
     try:
-        from ase.io import read
+        from ase.io import read  # ASE is slow to import: only for the formats it reads
 
         images = read(str(path), index=":")
     except Exception as exc:  # ASE raises many types; the message is what matters
@@ -159,7 +163,7 @@ def _read_with_ase(path: Path, scale: float) -> list[Molecule]:
     return frames
 
 
-def molecule_from_atoms(atoms, source: str = "<ase.Atoms>", frame: int = 0) -> Molecule:
+def molecule_from_atoms(atoms: Atoms, source: str = "<ase.Atoms>", frame: int = 0) -> Molecule:
     """Molecule from an ASE Atoms object (positions are ångström in ASE)."""
     pos = np.asarray(atoms.get_positions(), dtype=float)
     if not np.all(np.isfinite(pos)):

@@ -4,16 +4,20 @@ from __future__ import annotations
 
 import json
 from pathlib import Path
+from typing import TYPE_CHECKING, Any
 
 from ..base.errors import InputError
 from .basis import eval_off
 
+if TYPE_CHECKING:
+    from pyscf import gto
+
 PRUNED_FORMAT = "auditor-pruned-basis/1"
 
 
-def load_pruned_doc(doc: dict, **overrides):
+def load_pruned_doc(doc: dict, **overrides: Any) -> gto.Mole:
     """A pyscf Mole from a pruned-basis document (keyword arguments override Mole fields)."""
-    from pyscf import gto
+    from pyscf import gto  # pyscf is slow to import: only when a pruned basis is loaded
 
     eval_off()  # the document is user data: pyscf must not evaluate text in it
 
@@ -33,7 +37,7 @@ def load_pruned_doc(doc: dict, **overrides):
     return gto.M(**kw)
 
 
-def load_pruned(path, **overrides):
+def load_pruned(path: str | Path, **overrides: Any) -> gto.Mole:
     """A pyscf Mole from a pruned-basis JSON file (keyword arguments override Mole fields)."""
     try:
         doc = json.loads(Path(path).read_text(encoding="utf-8"))

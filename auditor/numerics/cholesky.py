@@ -4,7 +4,8 @@ the pivot order picks a numerically independent subset of functions. Pure functi
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from collections.abc import Sequence
+from dataclasses import dataclass, field
 
 import numpy as np
 import scipy.linalg
@@ -30,10 +31,11 @@ class CholeskyResult:
     ``dropped`` the functions never chosen, ascending. With shell pivoting,
     ``shell_pivots`` lists the chosen shells in order and ``shell_values`` the criterion
     of each (the smallest eigenvalue of its Schur block relative to its own overlap).
+    ``factor`` is None once a caller has released it.
     """
 
     pivots: np.ndarray
-    factor: np.ndarray
+    factor: np.ndarray | None
     pivot_values: np.ndarray
     dropped: np.ndarray
     tol: float
@@ -129,12 +131,9 @@ def _pivoted_loop(S: np.ndarray, tol: float) -> tuple[np.ndarray, np.ndarray]:
     return pivots, L[pivots, : pivots.size]
 
 
-def _schur_block(A: np.ndarray, P: np.ndarray, j: int, f: np.ndarray) -> np.ndarray:
-    """Current Schur-complement block of rows/columns ``f`` (panel ``P`` not yet applied to ``A``)."""
-    return A[np.ix_(f, f)] - P[f, :j] @ P[f, :j].T
-
-
-def shell_pivoted_cholesky(S: np.ndarray, shell_of_function, tol: float, panel: int = 192) -> CholeskyResult:
+def shell_pivoted_cholesky(
+    S: np.ndarray, shell_of_function: np.ndarray | Sequence[int], tol: float, panel: int = 192
+) -> CholeskyResult:
     """Pivoted Cholesky that keeps or drops whole shells.
 
     At each step it takes the shell whose smallest "new fraction" is largest: the least
@@ -148,99 +147,22 @@ def shell_pivoted_cholesky(S: np.ndarray, shell_of_function, tol: float, panel: 
     if not np.isfinite(tol) or tol < 0.0:
         raise UsageError(f"Cholesky tolerance must be a non-negative number, got {tol!r}")
     n = S.shape[0]
-    shells = _shell_index_lists(shell_of_function, n)
-    m = len(shells)
-    # Inverse Cholesky factor of each shell's own overlap block, for the relative criterion.
-    inv_own = []
-    for f in shells:
-        own = scipy.linalg.cholesky(S[np.ix_(f, f)], lower=True)
-        inv_own.append(scipy.linalg.solve_triangular(own, np.eye(f.size), lower=True))
-    by_shell = np.concatenate(shells)
-    starts = np.cumsum([0] + [f.size for f in shells[:-1]])
-    widest = max(f.size for f in shells)
-
+    shells = _shell_data(S, shell_of_function)
+    state = _ShellPivoting.start(S, len(shells.groups))
     G = np.zeros((n, n))  # factor columns, rows by global function index
-    rem = np.arange(n)  # functions left in the Schur complement A
-    loc = np.arange(n)  # global index -> row of A (valid for remaining functions)
-    A = S.copy()  # Schur complement of the remaining functions at panel start
-    diag = np.diagonal(A).copy()  # current Schur diagonal of the remaining functions
-    cached = np.ones(m)  # Schur blocks only shrink, so old values are upper bounds
-    # Rank of each shell among ties (lower wins); by default the shell index.
-    ids = np.arange(m)  # ties go to the lower shell index
-    taken = np.zeros(m, dtype=bool)
-    piv: list[np.ndarray] = []
-    chosen: list[int] = []
-    values: list[float] = []
     k = 0
     stop = False
     while not stop and k < n:
-        P = np.zeros((rem.size, panel + widest))
-        done = np.zeros(rem.size, dtype=bool)
-        j = 0
-
-        while j < panel and k + j < n:
-            full = np.full(n, np.inf)
-            full[rem] = diag
-            min_diag = np.minimum.reduceat(full[by_shell], starts)
-            bound = np.where(taken, -np.inf, np.minimum(cached, min_diag))
-            # Branch and bound: exact values only for shells whose bound can still win.
-            # Values within TIE_RTOL count as equal and go to the lower shell index, so that
-            # rounding (BLAS, panel width) does not decide between equivalent shells.
-            evaluated = np.zeros(m, dtype=bool)
-            best, best_val = -1, -np.inf
-            while True:
-                open_ = ~taken & ~evaluated & (bound > -np.inf)
-                if best >= 0:
-                    w = TIE_RTOL * abs(best_val)
-                    open_ &= (bound > best_val + w) | ((bound >= best_val - w) & (ids < ids[best]))
-                cand = np.flatnonzero(open_)
-                if cand.size == 0:
-                    break
-                top = bound[cand].max()
-                near = cand[bound[cand] >= top - TIE_RTOL * abs(top)]
-                s = int(near[np.argmin(ids[near])])
-                evaluated[s] = True
-                rel = inv_own[s] @ _schur_block(A, P, j, loc[shells[s]]) @ inv_own[s].T
-                val = float(np.linalg.eigvalsh(rel)[0])
-                cached[s] = bound[s] = val
-                w = TIE_RTOL * abs(best_val) if best >= 0 else 0.0
-                if best < 0 or val > best_val + w or (val >= best_val - w and ids[s] < ids[best]):
-                    best, best_val = s, val
-            if best < 0 or not best_val > 0.0 or best_val < tol:
-                stop = True
-                break
-            f = loc[shells[best]]
-            try:
-                C = scipy.linalg.cholesky(_schur_block(A, P, j, f), lower=True)
-            except np.linalg.LinAlgError:  # positive only to rounding: nothing independent left
-                stop = True
-                break
-            rhs = A[:, f] - P[:, :j] @ P[f, :j].T
-            new = scipy.linalg.solve_triangular(C, rhs.T, lower=True).T
-            done[f] = True
-            new[done] = 0.0
-            new[f] = C
-            P[:, j : j + f.size] = new
-            diag -= np.einsum("ij,ij->i", new, new)
-            diag[done] = np.inf  # never a candidate again; keeps min_diag honest
-            taken[best] = True
-            piv.append(shells[best])
-            chosen.append(best)
-            values.append(best_val)
-            j += f.size
-        G[rem, k : k + j] = P[:, :j]
+        P = np.zeros((state.rem.size, panel + shells.widest))
+        done = np.zeros(state.rem.size, dtype=bool)
+        j, stop = _fill_panel(state, shells, P, done, min(panel, n - k), tol)
+        G[state.rem, k : k + j] = P[:, :j]
         k += j
         if stop or k >= n:
             break
-        keep = ~done
-        Pk = P[keep, :j]
-        A = A[np.ix_(keep, keep)]
-        A -= Pk @ Pk.T
-        rem = rem[keep]
-        diag = diag[keep]
-        loc[rem] = np.arange(rem.size)
+        state.apply_panel(P, done, j)
 
-    pivots = np.concatenate(piv) if piv else np.zeros(0, dtype=np.intp)
+    pivots = np.concatenate(state.pivots) if state.pivots else np.zeros(0, dtype=np.intp)
     factor = G[pivots, :k]
     dropped = np.setdiff1d(np.arange(n), pivots)
     return CholeskyResult(
@@ -249,9 +171,160 @@ def shell_pivoted_cholesky(S: np.ndarray, shell_of_function, tol: float, panel: 
         np.diagonal(factor) ** 2,
         dropped,
         float(tol),
-        shell_pivots=np.asarray(chosen, dtype=np.intp),
-        shell_values=np.asarray(values),
+        shell_pivots=np.asarray(state.chosen, dtype=np.intp),
+        shell_values=np.asarray(state.values),
     )
+
+
+@dataclass(frozen=True)
+class _Shells:
+    """What shell pivoting needs to know about the shells (fixed during the factorization)."""
+
+    groups: list[np.ndarray]  # function indices of each shell
+    inv_own: list[np.ndarray]  # inverse Cholesky factor of each shell's own overlap block
+    by_shell: np.ndarray  # function indices, shell after shell
+    starts: np.ndarray  # where each shell begins in by_shell
+    widest: int  # most functions in one shell
+    ids: np.ndarray  # rank of each shell among ties (lower wins): the shell index
+
+
+def _shell_data(S: np.ndarray, shell_of_function: np.ndarray | Sequence[int]) -> _Shells:
+    """The shells of ``S`` with the inverse factors of their own overlap blocks."""
+    shells = _shell_index_lists(np.asarray(shell_of_function), S.shape[0])
+    # Inverse Cholesky factor of each shell's own overlap block, for the relative criterion.
+    inv_own = []
+    for f in shells:
+        own = scipy.linalg.cholesky(S[np.ix_(f, f)], lower=True)
+        inv_own.append(scipy.linalg.solve_triangular(own, np.eye(f.size), lower=True))
+    return _Shells(
+        groups=shells,
+        inv_own=inv_own,
+        by_shell=np.concatenate(shells),
+        starts=np.cumsum([0] + [f.size for f in shells[:-1]]),
+        widest=max(f.size for f in shells),
+        ids=np.arange(len(shells)),  # ties go to the lower shell index
+    )
+
+
+@dataclass
+class _ShellPivoting:
+    """The state of shell pivoting between panels, and the pivots chosen so far."""
+
+    A: np.ndarray  # Schur complement of the remaining functions at panel start
+    rem: np.ndarray  # functions left in the Schur complement A
+    loc: np.ndarray  # global index -> row of A (valid for remaining functions)
+    diag: np.ndarray  # current Schur diagonal of the remaining functions
+    cached: np.ndarray  # Schur blocks only shrink, so old values are upper bounds
+    taken: np.ndarray  # shells chosen
+    pivots: list[np.ndarray] = field(default_factory=list)  # function indices of the chosen shells
+    chosen: list[int] = field(default_factory=list)  # the chosen shells, in order
+    values: list[float] = field(default_factory=list)  # the criterion of each when chosen
+
+    @classmethod
+    def start(cls, S: np.ndarray, m: int) -> _ShellPivoting:
+        """Nothing chosen yet: the Schur complement is a copy of S, every shell's bound 1."""
+        n = S.shape[0]
+        A = S.copy()
+        return cls(A, np.arange(n), np.arange(n), np.diagonal(A).copy(), np.ones(m), np.zeros(m, dtype=bool))
+
+    def apply_panel(self, P: np.ndarray, done: np.ndarray, j: int) -> None:
+        """Drop the functions of the panel's shells and subtract its j columns from A."""
+        keep = ~done
+        Pk = P[keep, :j]
+        self.A = self.A[np.ix_(keep, keep)]
+        self.A -= Pk @ Pk.T
+        self.rem = self.rem[keep]
+        self.diag = self.diag[keep]
+        self.loc[self.rem] = np.arange(self.rem.size)
+
+
+def _schur_block(A: np.ndarray, P: np.ndarray, j: int, f: np.ndarray) -> np.ndarray:
+    """Current Schur-complement block of rows/columns ``f`` (panel ``P`` not yet applied to ``A``)."""
+    return A[np.ix_(f, f)] - P[f, :j] @ P[f, :j].T
+
+
+def _fill_panel(
+    state: _ShellPivoting, shells: _Shells, P: np.ndarray, done: np.ndarray, width: int, tol: float
+) -> tuple[int, bool]:
+    """Choose shells into the panel ``P`` until it holds at least ``width`` columns.
+
+    Returns the number of columns filled and whether pivoting stops (no shell left at or
+    above ``tol``, or none positive definite to rounding).
+    """
+    j = 0
+    while j < width:
+        best, best_val = _best_shell(state, shells, P, j)
+        if best < 0 or not best_val > 0.0 or best_val < tol:
+            return j, True
+        f = state.loc[shells.groups[best]]
+        try:
+            C = scipy.linalg.cholesky(_schur_block(state.A, P, j, f), lower=True)
+        except np.linalg.LinAlgError:  # positive only to rounding: nothing independent left
+            return j, True
+        _add_columns(state, P, done, j, f, C)
+        state.taken[best] = True
+        state.pivots.append(shells.groups[best])
+        state.chosen.append(best)
+        state.values.append(best_val)
+        j += f.size
+    return j, False
+
+
+def _add_columns(state: _ShellPivoting, P: np.ndarray, done: np.ndarray, j: int, f: np.ndarray, C: np.ndarray) -> None:
+    """Write the factor columns of the shell at rows ``f`` of A (``C`` the Cholesky factor of
+    its Schur block) into P from column j, and update the Schur diagonal."""
+    rhs = state.A[:, f] - P[:, :j] @ P[f, :j].T
+    new = scipy.linalg.solve_triangular(C, rhs.T, lower=True).T
+    done[f] = True
+    new[done] = 0.0
+    new[f] = C
+    P[:, j : j + f.size] = new
+    state.diag -= np.einsum("ij,ij->i", new, new)
+    state.diag[done] = np.inf  # never a candidate again; keeps min_diag honest
+
+
+def _best_shell(state: _ShellPivoting, shells: _Shells, P: np.ndarray, j: int) -> tuple[int, float]:
+    """The shell with the largest criterion and that value; (-1, -inf) when none is left.
+
+    Branch and bound: exact values only for shells whose bound can still win. Values
+    within TIE_RTOL count as equal and go to the lower shell index, so that rounding
+    (BLAS, panel width) does not decide between equivalent shells. Exact values are
+    cached in ``state.cached`` as bounds for later steps.
+    """
+    full = np.full(shells.by_shell.size, np.inf)
+    full[state.rem] = state.diag
+    min_diag = np.minimum.reduceat(full[shells.by_shell], shells.starts)
+    bound = np.where(state.taken, -np.inf, np.minimum(state.cached, min_diag))
+    evaluated = np.zeros(len(shells.groups), dtype=bool)
+    ids = shells.ids
+    best, best_val = -1, -np.inf
+    while True:
+        s = _next_candidate(bound, state.taken | evaluated, ids, best, best_val)
+        if s < 0:
+            break
+        evaluated[s] = True
+        f = state.loc[shells.groups[s]]
+        rel = shells.inv_own[s] @ _schur_block(state.A, P, j, f) @ shells.inv_own[s].T
+        val = float(np.linalg.eigvalsh(rel)[0])
+        state.cached[s] = bound[s] = val
+        w = TIE_RTOL * abs(best_val) if best >= 0 else 0.0
+        if best < 0 or val > best_val + w or (val >= best_val - w and ids[s] < ids[best]):
+            best, best_val = s, val
+    return best, best_val
+
+
+def _next_candidate(bound: np.ndarray, closed: np.ndarray, ids: np.ndarray, best: int, best_val: float) -> int:
+    """The open shell with the highest bound that could still beat ``best``; -1 when none."""
+    open_ = ~closed & (bound > -np.inf)
+    if best >= 0:
+        w = TIE_RTOL * abs(best_val)
+        open_ &= (bound > best_val + w) | ((bound >= best_val - w) & (ids < ids[best]))
+    cand = np.flatnonzero(open_)
+    if cand.size == 0:
+        return -1
+    top = bound[cand].max()
+    near = cand[bound[cand] >= top - TIE_RTOL * abs(top)]
+    return int(near[np.argmin(ids[near])])
 
 
 def _smallest(S: np.ndarray, idx: np.ndarray) -> float:

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import numpy as np
+from scipy.linalg import eigh_tridiagonal, eigvalsh_tridiagonal, lapack
 
 from .spectrum import (
     COUNT_LEVELS,
@@ -23,8 +24,6 @@ def _selective(S: np.ndarray, vector_level: float, min_vectors: int):
     (LAPACK dsytrd; dsterf for the values; dstemr and the Householder back-transform
     dormqr for the vectors), with as many vectors as the growth figures need.
     None when that would be most of them (the dense path is then cheaper)."""
-    from scipy.linalg import eigh_tridiagonal, eigvalsh_tridiagonal, lapack
-
     n = S.shape[0]
     lwork = int(lapack.dsytrd_lwork(n, lower=1)[0])
     # S is symmetric: hand LAPACK its Fortran-ordered view, which it copies without transposing
@@ -75,7 +74,7 @@ def full_spectrum(S: np.ndarray, vector_level: float, min_vectors: int = 3) -> S
     else:
         values, vectors, colmax = picked
     k = select_null_vectors(values, vector_level, min_vectors)
-    counts = {level_key(t): int(np.searchsorted(values, t, side="left")) for t in COUNT_LEVELS}
+    counts: dict[str, int | None] = {level_key(t): int(np.searchsorted(values, t, side="left")) for t in COUNT_LEVELS}
     return Spectrum(
         n=n,
         values=values,

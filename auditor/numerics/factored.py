@@ -59,58 +59,15 @@ def large_spectrum(
     info["t_largest"] = time.perf_counter() - t0
 
     tri = _Triangles(A)
-    counts: dict[str, int | None] = {level_key(t): None for t in COUNT_LEVELS}
     try:
-        # 1. Decision: is any eigenvalue below tau?
-        t1 = time.perf_counter()
-        below_tau = None
-        factored_shift = None
-        if _cholesky(tri.load(tau)) == 0:
-            below_tau = 0
-            factored_shift = tau
-        info["t_cholesky_tau"] = time.perf_counter() - t1
-        # 2. How many: inertia of S - tau I.
-        if below_tau is None:
-            t1 = time.perf_counter()
-            below_tau = _ldl_negative_count(tri.load(tau))
-            info["t_ldl_tau"] = time.perf_counter() - t1
-        info["below_vector_level"] = below_tau
-        # 3. Smallest eigenpairs from a positive definite shift below the spectrum.
-        t1 = time.perf_counter()
-        if factored_shift is None:
-            factored_shift = _factor_below_spectrum(tri, largest)
-        info["t_cholesky_shift"] = time.perf_counter() - t1
-        info["shift"] = factored_shift
+        below_tau, factored_at_tau = _count_below(tri, tau, info)
+        factored_shift = _positive_definite_shift(tri, tau if factored_at_tau else None, largest, info)
         k = min(n, max(min(below_tau, max_vectors), min_vectors))
-        t1 = time.perf_counter()
-        values, vectors = _smallest_eigenpairs(tri.A, factored_shift, k, tol, maxiter, seed, info)
-        info["t_eigenpairs"] = time.perf_counter() - t1
-        if not info["residual"] <= tol:  # unconverged Ritz pairs would be reported as eigenpairs
-            raise ResourceError(
-                f"the large spectrum path did not converge in {maxiter} iterations for {n} basis functions "
-                f"(residual {info['residual']:.1e} > {tol:.0e}); --spectrum full computes every eigenvalue if S fits"
-            )
-        order = np.argsort(values, kind="stable")
-        if np.any(order != np.arange(order.size)):  # usually sorted already: no copy then
-            values, vectors = values[order], vectors[:, order]
+        values, vectors = _sorted_eigenpairs(tri, factored_shift, k, tol, maxiter, seed, info)
         info["ritz_below_vector_level"] = int(np.searchsorted(values, tau))
-
-        # 4. Counts that are established; the rest stay None.
-        all_below_tau = k >= below_tau
-        for t in COUNT_LEVELS:
-            key = level_key(t)
-            if t <= tau and factored_shift == tau and below_tau == 0:
-                counts[key] = 0  # Cholesky of S - tau I succeeded
-            elif t == tau:
-                counts[key] = below_tau  # Sylvester's law of inertia
-            elif (t < tau and all_below_tau) or (values.size and values[-1] >= t):
-                counts[key] = int(np.searchsorted(values, t, side="left"))
+        counts = _established_counts(values, tau, below_tau, factored_shift, all_below_tau=k >= below_tau)
         if exact_counts:
-            t1 = time.perf_counter()
-            for t in COUNT_LEVELS:
-                if counts[level_key(t)] is None:
-                    counts[level_key(t)] = _ldl_negative_count(tri.load(t))
-            info["t_exact_counts"] = time.perf_counter() - t1
+            _add_exact_counts(tri, counts, info)
     finally:
         tri.restore()
     info["t_total"] = time.perf_counter() - t0
@@ -128,6 +85,90 @@ def large_spectrum(
         # exactly below_tau eigenvalues lie below tau, so the first one not computed is >= tau
         beyond=tau if values.size >= below_tau else None,
     )
+
+
+def _count_below(tri: _Triangles, tau: float, info: dict[str, Any]) -> tuple[int, bool]:
+    """Number of eigenvalues of S below ``tau``, and whether S - tau*I was factored.
+
+    A Cholesky attempt of S - tau*I decides whether there is any; when it fails, the
+    inertia of an LDL^T factorization counts them. When it succeeds (the count is 0), the
+    lower triangle of ``tri`` holds the Cholesky factor of S - tau*I.
+    """
+    t1 = time.perf_counter()
+    factored = _cholesky(tri.load(tau)) == 0
+    info["t_cholesky_tau"] = time.perf_counter() - t1
+    if factored:
+        below_tau = 0
+    else:
+        t1 = time.perf_counter()
+        below_tau = _ldl_negative_count(tri.load(tau))
+        info["t_ldl_tau"] = time.perf_counter() - t1
+    info["below_vector_level"] = below_tau
+    return below_tau, factored
+
+
+def _positive_definite_shift(tri: _Triangles, factored: float | None, largest: float, info: dict[str, Any]) -> float:
+    """A shift whose Cholesky factor of S - shift*I is in the lower triangle of ``tri``.
+
+    ``factored`` when that factor is already there (the shift `_count_below` factored),
+    else a shift below the spectrum, factored here.
+    """
+    t1 = time.perf_counter()
+    shift = factored if factored is not None else _factor_below_spectrum(tri, largest)
+    info["t_cholesky_shift"] = time.perf_counter() - t1
+    info["shift"] = shift
+    return shift
+
+
+def _sorted_eigenpairs(
+    tri: _Triangles, shift: float, k: int, tol: float, maxiter: int, seed: int, info: dict[str, Any]
+) -> tuple[np.ndarray, np.ndarray]:
+    """The k smallest eigenpairs, ascending, from the factor of S - shift*I in ``tri``.
+
+    Raises ResourceError when the Ritz pairs did not converge to ``tol``.
+    """
+    t1 = time.perf_counter()
+    values, vectors = _smallest_eigenpairs(tri.A, shift, k, tol, maxiter, seed, info)
+    info["t_eigenpairs"] = time.perf_counter() - t1
+    if not info["residual"] <= tol:  # unconverged Ritz pairs would be reported as eigenpairs
+        n = tri.A.shape[0]
+        raise ResourceError(
+            f"the large spectrum path did not converge in {maxiter} iterations for {n} basis functions "
+            f"(residual {info['residual']:.1e} > {tol:.0e}); --spectrum full computes every eigenvalue if S fits"
+        )
+    order = np.argsort(values, kind="stable")
+    if np.any(order != np.arange(order.size)):  # usually sorted already: no copy then
+        values, vectors = values[order], vectors[:, order]
+    return values, vectors
+
+
+def _established_counts(
+    values: np.ndarray, tau: float, below_tau: int, factored_shift: float, all_below_tau: bool
+) -> dict[str, int | None]:
+    """Eigenvalue counts below each decade that are established; the rest stay None.
+
+    ``values`` are the computed smallest eigenvalues (ascending) and ``all_below_tau``
+    tells whether they include every eigenvalue below ``tau``.
+    """
+    counts: dict[str, int | None] = {level_key(t): None for t in COUNT_LEVELS}
+    for t in COUNT_LEVELS:
+        key = level_key(t)
+        if t <= tau and factored_shift == tau and below_tau == 0:
+            counts[key] = 0  # Cholesky of S - tau I succeeded
+        elif t == tau:
+            counts[key] = below_tau  # Sylvester's law of inertia
+        elif (t < tau and all_below_tau) or (values.size and values[-1] >= t):
+            counts[key] = int(np.searchsorted(values, t, side="left"))
+    return counts
+
+
+def _add_exact_counts(tri: _Triangles, counts: dict[str, int | None], info: dict[str, Any]) -> None:
+    """Fill each missing count by the inertia of one LDL^T factorization of S - t*I."""
+    t1 = time.perf_counter()
+    for t in COUNT_LEVELS:
+        if counts[level_key(t)] is None:
+            counts[level_key(t)] = _ldl_negative_count(tri.load(t))
+    info["t_exact_counts"] = time.perf_counter() - t1
 
 
 def _factor_below_spectrum(tri: _Triangles, largest: float) -> float:

@@ -6,7 +6,7 @@ import ctypes
 from typing import Any
 
 import numpy as np
-from scipy.linalg import lapack
+from scipy.linalg import cython_blas, cython_lapack, lapack
 
 
 def _fortran_view(S: np.ndarray) -> np.ndarray:
@@ -54,8 +54,6 @@ _ROUTINES: dict[str, Any] = {}
 
 def _routine(name: str):
     if not _ROUTINES:
-        from scipy.linalg import cython_blas, cython_lapack
-
         _ROUTINES.update(
             dgemm=_fortran_routine(cython_blas, "dgemm", 13),
             dsyrk=_fortran_routine(cython_blas, "dsyrk", 10),

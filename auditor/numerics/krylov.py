@@ -84,31 +84,10 @@ def _smallest_eigenpairs(
     worst = np.inf
     solves = 0
     for it in range(1, maxiter + 1):
-        for j in range(depth):
-            blk = slice(j * p, (j + 1) * p)
-            W[...] = Q[:, blk]
-            _, status = lapack.dpotrs(L, W, lower=1, overwrite_b=1)
-            if status != 0:
-                raise RuntimeError(f"dpotrs failed ({status})")
-            solves += p
-            done = Q[:, : (j + 1) * p]
-            H[: (j + 1) * p, blk] = blas.dgemm(1.0, done, W, trans_a=1)
-            if j + 1 < depth:
-                nxt = Q[:, (j + 1) * p : (j + 2) * p]
-                nxt[...] = W
-                for _ in range(2):  # classical Gram-Schmidt, twice, in place
-                    out = blas.dgemm(-1.0, done, blas.dgemm(1.0, done, nxt, trans_a=1), beta=1.0, c=nxt, overwrite_c=1)
-                    if not np.shares_memory(out, nxt):
-                        nxt[...] = out
-                _orthonormalize(nxt)
+        solves += _build_krylov_basis(L, Q, W, H, p, depth)
         last = slice(m - p, m)
         HW = H[:, last].copy()  # Q^T W, for the residuals
-        # the p largest Ritz values of A (the smallest eigenvalues of S), in place on H,
-        # whose upper triangle is complete
-        theta, U = scipy.linalg.eigh(
-            H, lower=False, overwrite_a=True, check_finite=False, subset_by_index=[m - p, m - 1], driver="evr"
-        )
-        theta, U = theta[::-1], np.asfortranarray(U[:, ::-1])
+        theta, U = _leading_ritz_pairs(H, p)
         worst = _worst_residual(Q, W, HW, U[last, :k], theta[:k])
         if worst <= tol or it == maxiter or m >= n:
             vectors = blas.dgemm(1.0, Q, U[:, :k])
@@ -125,6 +104,54 @@ def _smallest_eigenpairs(
     info["residual"] = worst
     values = 1.0 / theta[:k] + shift
     return values, vectors
+
+
+def _build_krylov_basis(L: np.ndarray, Q: np.ndarray, W: np.ndarray, H: np.ndarray, p: int, depth: int) -> int:
+    """Extend the start block Q[:, :p] to the Krylov basis Q (``depth`` blocks of p), in place.
+
+    A = (S - shift*I)^-1 is applied by solves with the Cholesky factor L; the block
+    columns of H = Q^T A Q are filled as the images appear, and W ends as A times the
+    last block. Returns the number of column solves.
+    """
+    solves = 0
+    for j in range(depth):
+        blk = slice(j * p, (j + 1) * p)
+        W[...] = Q[:, blk]
+        _, status = lapack.dpotrs(L, W, lower=1, overwrite_b=1)
+        if status != 0:
+            raise RuntimeError(f"dpotrs failed ({status})")
+        solves += p
+        done = Q[:, : (j + 1) * p]
+        H[: (j + 1) * p, blk] = blas.dgemm(1.0, done, W, trans_a=1)
+        if j + 1 < depth:
+            nxt = Q[:, (j + 1) * p : (j + 2) * p]
+            nxt[...] = W
+            _project_out(done, nxt)
+            _orthonormalize(nxt)
+    return solves
+
+
+def _project_out(done: np.ndarray, nxt: np.ndarray) -> None:
+    """Remove from the block ``nxt`` its components along the orthonormal columns of ``done``.
+
+    Classical Gram-Schmidt, twice, in place.
+    """
+    for _ in range(2):
+        out = blas.dgemm(-1.0, done, blas.dgemm(1.0, done, nxt, trans_a=1), beta=1.0, c=nxt, overwrite_c=1)
+        if not np.shares_memory(out, nxt):
+            nxt[...] = out
+
+
+def _leading_ritz_pairs(H: np.ndarray, p: int) -> tuple[np.ndarray, np.ndarray]:
+    """The p largest eigenpairs of H (its upper triangle), largest first; H is overwritten.
+
+    They are the p largest Ritz values of A, i.e. the smallest eigenvalues of S.
+    """
+    m = H.shape[0]
+    theta, U = scipy.linalg.eigh(
+        H, lower=False, overwrite_a=True, check_finite=False, subset_by_index=[m - p, m - 1], driver="evr"
+    )
+    return theta[::-1], np.asfortranarray(U[:, ::-1])
 
 
 def _worst_residual(Q: np.ndarray, W: np.ndarray, HW: np.ndarray, U_last: np.ndarray, theta: np.ndarray) -> float:

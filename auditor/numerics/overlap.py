@@ -4,12 +4,16 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 from functools import lru_cache
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from ..base.elements import ELEMENTS
 from ..inputs.basis import BasisSpec, is_diffuse, load_shells, thaw
 from ..inputs.geometry import Molecule
+
+if TYPE_CHECKING:
+    from pyscf import gto
 
 
 @dataclass(frozen=True)
@@ -60,7 +64,7 @@ def pyscf_labels(mol: Molecule) -> list[str]:
     return [("ghost-" + s) if g else s for s, g in zip(mol.symbols, mol.ghost)]
 
 
-def build_mole(mol: Molecule, spec: BasisSpec):
+def build_mole(mol: Molecule, spec: BasisSpec) -> gto.Mole:
     """pyscf Mole with the molecule's atoms (ångström) and the resolved basis.
 
     Charge and spin are set only so that pyscf accepts the electron count: the
@@ -75,8 +79,8 @@ def build_mole(mol: Molecule, spec: BasisSpec):
 
 
 @lru_cache(maxsize=512)  # a Mole of a small molecule holds a few kB
-def _mole_template(labels: tuple[str, ...], names: tuple[str, ...], cartesian: bool):
-    from pyscf import gto
+def _mole_template(labels: tuple[str, ...], names: tuple[str, ...], cartesian: bool) -> gto.Mole:
+    from pyscf import gto  # pyscf is slow to import: only when a Mole is built
 
     basis: dict[str, list] = {}
     for lab, name in zip(labels, names):
@@ -118,7 +122,7 @@ def function_table(mol: Molecule, spec: BasisSpec) -> FunctionTable:
 
 @lru_cache(maxsize=256)
 def _element_table(el: str, name: str, cartesian: bool) -> FunctionTable:
-    from pyscf import gto
+    from pyscf import gto  # pyscf is slow to import: only when a Mole is built
 
     atom = Molecule((el,), np.zeros((1, 3)), (False,))
     pm = gto.Mole()
@@ -131,10 +135,15 @@ def _element_table(el: str, name: str, cartesian: bool) -> FunctionTable:
     return mole_function_table(pm, atom, BasisSpec(name, {}, cartesian))
 
 
-def mole_function_table(pm, mol: Molecule, spec: BasisSpec) -> FunctionTable:
+def mole_function_table(pm: gto.Mole, mol: Molecule, spec: BasisSpec) -> FunctionTable:
     """Label every function of pyscf Mole ``pm`` (built from ``mol`` with ``spec``)."""
     ao_labels = pm.ao_labels(fmt=False)
-    shell_atom, shell_l, shell_exp, shell_dif, shell_name, shell_first = [], [], [], [], [], []
+    shell_atom: list[int] = []
+    shell_l: list[int] = []
+    shell_exp: list[float] = []
+    shell_dif: list[bool] = []
+    shell_name: list[str] = []
+    shell_first: list[int] = []
     func_shell: list[int] = []
     func_comp: list[str] = []
     f = 0
@@ -174,7 +183,7 @@ def mole_function_table(pm, mol: Molecule, spec: BasisSpec) -> FunctionTable:
     )
 
 
-def normalized_overlap(pm) -> np.ndarray:
+def normalized_overlap(pm: gto.Mole) -> np.ndarray:
     """S with unit diagonal, D^-1/2 S D^-1/2, scaled in place (one N x N array)."""
     S = pm.intor_symmetric("int1e_ovlp")
     d = 1.0 / np.sqrt(np.diagonal(S).copy())

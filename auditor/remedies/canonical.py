@@ -7,6 +7,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..numerics.spectrum import Spectrum
+from .prepared import PreparedGeometry
 
 CANDIDATES: tuple[float, ...] = tuple(10.0**-k for k in range(4, 10))  # 1e-4 ... 1e-9
 MIN_GAP_DECADES = 1.0  # a gap this wide in log10(lambda) is a natural cut
@@ -34,7 +35,12 @@ class Recommendation:
     how_to: str
 
 
-def find_gap(values: np.ndarray, window=GAP_WINDOW, min_decades: float = MIN_GAP_DECADES, min_kept: float = 0.0):
+def find_gap(
+    values: np.ndarray,
+    window: tuple[float, float] = GAP_WINDOW,
+    min_decades: float = MIN_GAP_DECADES,
+    min_kept: float = 0.0,
+) -> tuple[float, float, float, float] | None:
     """Widest gap in log10 of the ascending ``values`` whose midpoint lies in ``window``
     and whose upper edge (the smallest eigenvalue kept) is at least ``min_kept``.
 
@@ -120,7 +126,7 @@ def orthogonalizer(S_raw: np.ndarray, threshold: float) -> np.ndarray:
     return d[:, None] * (U[:, keep] / np.sqrt(w[keep]))
 
 
-def canonical_transform(prep, threshold: float) -> np.ndarray:
+def canonical_transform(prep: PreparedGeometry, threshold: float) -> np.ndarray:
     """X with X^T S X = 1 in pyscf's AO basis, from the unit-diagonal S's eigenvectors
     with eigenvalue >= ``threshold`` (canonical orthogonalization)."""
     return orthogonalizer(prep.mole.intor_symmetric("int1e_ovlp"), threshold)

@@ -11,6 +11,9 @@ from ..base.errors import UsageError
 from ..base.jsonio import OMIT_NONE
 from ..numerics.cholesky import smallest_eigenvalue, verify_mode
 from ..numerics.memory import available_bytes
+from ..numerics.overlap import FunctionTable
+from .canonical import Recommendation
+from .prepared import PreparedGeometry
 from .pruned_basis import function_record, pruned_basis, shell_record
 from .subset import Selection, check_atoms_not_emptied, check_target, select_for_target, shells_from_functions
 from .trial_scf import check_method, trial_scf
@@ -93,7 +96,7 @@ class Remedies:
     trial_scf: dict | None = None
 
 
-def diffuse_element_options(S: np.ndarray, table, target: float) -> list[DiffuseOption]:
+def diffuse_element_options(S: np.ndarray, table: FunctionTable, target: float) -> list[DiffuseOption]:
     """For each element with diffuse shells: drop them on every atom of that element."""
     out = []
     func_el = np.array([str(table.elements[a - 1]) for a in table.func_atom])
@@ -127,7 +130,7 @@ class RemedyPlan:
     problems: list[str] = field(default_factory=list)
     trial_scf: dict | None = None
 
-    def report(self, table) -> Remedies:
+    def report(self, table: FunctionTable) -> Remedies:
         return Remedies(
             target=self.target,
             needed=self.needed,
@@ -163,8 +166,15 @@ def _shell_pruning(s: Selection, table) -> ShellPruning:
         kept=int(s.kept.size),
         kept_by_pivoting=s.prefix,
         added_back=s.added_back,
-        dropped_shells=[shell_record(table, int(i)) for i in s.dropped_shells],
+        dropped_shells=[shell_record(table, int(i)) for i in _shell_sets(s)[1]],
     )
+
+
+def _shell_sets(s: Selection) -> tuple[np.ndarray, np.ndarray]:
+    """The shells a whole-shell selection keeps and those it drops."""
+    if s.kept_shells is None or s.dropped_shells is None:
+        raise ValueError("not a whole-shell selection")
+    return s.kept_shells, s.dropped_shells
 
 
 def _best_shell_selection(
@@ -256,7 +266,7 @@ def _add_shell_pruning(plan: RemedyPlan, prep, atoms, mode, shell_pivoting: bool
     if s is None:
         return
     try:
-        plan.pruned = pruned_basis(prep, s.kept_shells, plan.target, s.smallest_kept)
+        plan.pruned = pruned_basis(prep, _shell_sets(s)[0], plan.target, s.smallest_kept)
     except UsageError as exc:
         plan.problems.append(f"shell-pruned basis: {exc.message}")
         return
@@ -270,7 +280,7 @@ def _add_shell_pruning(plan: RemedyPlan, prep, atoms, mode, shell_pivoting: bool
             plan.target,
             "auditor prune writes it as a pyscf basis (JSON)",
             tolerance=s.tolerance,
-            shells_removed=len(s.dropped_shells),
+            shells_removed=len(_shell_sets(s)[1]),
         )
     )
 
@@ -313,7 +323,12 @@ def rank_alternatives(alternatives: list[Alternative], n: int) -> list[Alternati
 
 
 def plan_remedies(
-    prep, recommendation, smallest: float, target: float, force: bool = False, shell_pivoting: bool = True
+    prep: PreparedGeometry,
+    recommendation: Recommendation,
+    smallest: float,
+    target: float,
+    force: bool = False,
+    shell_pivoting: bool = True,
 ) -> RemedyPlan:
     """Work out every remedy for a prepared geometry and rank them.
 
@@ -354,7 +369,9 @@ class RemedyOptions:
     shell_pivoting: bool = False
 
 
-def make_plan(prep, recommendation, smallest: float, options: RemedyOptions, caution: float) -> RemedyPlan:
+def make_plan(
+    prep: PreparedGeometry, recommendation: Recommendation, smallest: float, options: RemedyOptions, caution: float
+) -> RemedyPlan:
     """`plan_remedies` plus the opt-in trial SCF."""
     target = caution if options.target is None else options.target
     plan = plan_remedies(
@@ -379,7 +396,13 @@ def make_plan(prep, recommendation, smallest: float, options: RemedyOptions, cau
     return plan
 
 
-def remedies_for(prep, recommendation, smallest: float, options: RemedyOptions | None, caution: float) -> Remedies:
+def remedies_for(
+    prep: PreparedGeometry,
+    recommendation: Recommendation,
+    smallest: float,
+    options: RemedyOptions | None,
+    caution: float,
+) -> Remedies:
     """The ``remedies`` part of an audit result."""
     plan = make_plan(prep, recommendation, smallest, options or RemedyOptions(), caution)
     return plan.report(prep.table)

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+from collections.abc import Iterable
 from pathlib import Path
 
 import numpy as np
@@ -11,10 +12,12 @@ from ..base.errors import InputError
 from ..base.files import atomic_write
 from ..base.jsonio import clean
 from ..inputs.pruned import PRUNED_FORMAT
+from ..numerics.overlap import FunctionTable
+from .prepared import PreparedGeometry
 from .subset import check_atoms_not_emptied
 
 
-def function_record(table, i: int) -> dict:
+def function_record(table: FunctionTable, i: int) -> dict:
     """A function named by 1-based number and atom, element, shell, l and exponent."""
     s = int(table.func_shell[i])
     a = int(table.shell_atom[s])
@@ -31,7 +34,7 @@ def function_record(table, i: int) -> dict:
     }
 
 
-def shell_record(table, s: int) -> dict:
+def shell_record(table: FunctionTable, s: int) -> dict:
     """A shell named by atom, element, shell name, l, smallest exponent and size."""
     a = int(table.shell_atom[s])
     return {
@@ -60,7 +63,9 @@ def _shell_entries(pm) -> list[tuple[int, int, list[list[float]]]]:
     return out
 
 
-def pruned_basis(prep, kept_shells, target: float | None = None, smallest: float | None = None) -> dict:
+def pruned_basis(
+    prep: PreparedGeometry, kept_shells: Iterable[int], target: float | None = None, smallest: float | None = None
+) -> dict:
     """The pyscf-ready document of a basis that keeps only ``kept_shells`` (0-based).
 
     Atoms that lose a shell get a label of their own (element plus 1-based atom number,

@@ -18,6 +18,7 @@ Two facts drive the target search:
 from __future__ import annotations
 
 import dataclasses
+from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -38,6 +39,9 @@ from ..numerics.cholesky import (
 #: Relative rounding allowance at the target: lambda_min >= target * (1 - slack) passes.
 #: Without it a target of exactly 1 would fail on diagonals of 1 - 1e-16.
 TARGET_SLACK = 1e-12
+
+#: ``verify`` given as a bool: True is the dense check, False none.
+_VERIFY_ALIASES: dict[bool | str, bool | str] = {True: "eigvalsh", False: "none"}
 
 
 @dataclass(frozen=True)
@@ -84,7 +88,10 @@ def check_target(target: float) -> float:
 
 
 def check_atoms_not_emptied(
-    kept: np.ndarray, atom_of_function: np.ndarray, exempt_atoms=(), what: str = "this selection"
+    kept: np.ndarray,
+    atom_of_function: np.ndarray | Sequence[int],
+    exempt_atoms: Iterable[int] = (),
+    what: str = "this selection",
 ) -> None:
     """Raise UsageError if ``kept`` holds no function of an atom that had some.
 
@@ -103,13 +110,25 @@ def check_atoms_not_emptied(
         )
 
 
-def _factorize(S, tol, shells) -> CholeskyResult:
+def _verify_mode(verify: bool | str) -> bool | str:
+    """The check ``verify`` asks for: "eigvalsh" for True, "none" for False, else as given."""
+    return _VERIFY_ALIASES.get(verify, verify)
+
+
+def _factorize(S: np.ndarray, tol: float, shells: np.ndarray | None) -> CholeskyResult:
     if shells is None:
         return pivoted_cholesky(S, tol)
     return shell_pivoted_cholesky(S, shells, tol)
 
 
-def _prefix_ends(res: CholeskyResult, shells) -> np.ndarray:
+def _shell_record(res: CholeskyResult) -> tuple[np.ndarray, np.ndarray]:
+    """The chosen shells and their criteria of a shell-pivoted factorization."""
+    if res.shell_pivots is None or res.shell_values is None:
+        raise ValueError("not a shell-pivoted factorization")
+    return res.shell_pivots, res.shell_values
+
+
+def _prefix_ends(res: CholeskyResult, shells: np.ndarray | None) -> np.ndarray:
     """Allowed kept-set sizes along the pivot order (0 and every shell boundary)."""
     if shells is None:
         return np.arange(res.rank + 1)
@@ -117,9 +136,9 @@ def _prefix_ends(res: CholeskyResult, shells) -> np.ndarray:
     return np.concatenate([[0], np.cumsum(sizes)])
 
 
-def _reproducing_tol(res: CholeskyResult, k: int, shells) -> float:
+def _reproducing_tol(res: CholeskyResult, k: int, shells: np.ndarray | None) -> float:
     """A tolerance at which the same pivoting stops after exactly ``k`` kept functions."""
-    vals = res.pivot_values if shells is None else res.shell_values
+    vals = res.pivot_values if shells is None else _shell_record(res)[1]
     j = int(np.searchsorted(_prefix_ends(res, shells), k))  # pivots (functions or shells) kept
     if j >= vals.size:
         return res.tol
@@ -133,9 +152,9 @@ def _reproducing_tol(res: CholeskyResult, k: int, shells) -> float:
 def select_for_target(
     S: np.ndarray,
     target: float,
-    shell_of_function=None,
-    atom_of_function=None,
-    exempt_atoms=(),
+    shell_of_function: np.ndarray | Sequence[int] | None = None,
+    atom_of_function: np.ndarray | Sequence[int] | None = None,
+    exempt_atoms: Iterable[int] = (),
     search: str = "shifted",
     verify: bool | str = "eigvalsh",
     refine: bool = True,
@@ -163,7 +182,7 @@ def select_for_target(
     """
     target = check_target(target)
     goal = target * (1.0 - TARGET_SLACK)
-    mode = {True: "eigvalsh", False: "none"}.get(verify, verify)
+    mode = _verify_mode(verify)
     if mode not in ("eigvalsh", "lanczos", "none"):
         raise ValueError(f"unknown verify mode {verify!r}")
     S = check_overlap(S)
@@ -171,112 +190,193 @@ def select_for_target(
     shells = None if shell_of_function is None else np.asarray(shell_of_function)
     if shells is not None:
         _shell_index_lists(shells, n)
-    if search == "tolerance":
-        res, k, facts, eigs, smallest = _search_tolerance(S, goal, shells)
-        ends = _prefix_ends(res, shells)
-        checked = True  # every trial already ran eigvalsh on its kept set
-    elif search in ("shifted", "prefix"):
-        checked = False
-        smallest = np.nan
-        res = _factorize(S, goal, shells)
-        facts, eigs = 1, 0
-        ends = _prefix_ends(res, shells)
-        p = res.pivots
-        if search == "shifted":
-            shifted = S[np.ix_(p, p)]
-            shifted[np.diag_indices_from(shifted)] -= goal
-            info = lapack.dpotrf(shifted.T, lower=1, overwrite_a=1, clean=0)[1]
-            facts += 1
-            good = p.size if info == 0 else int(info) - 1
-            k = int(ends[np.searchsorted(ends, good, side="right") - 1])
-            if refine and 0 < k < n:
-                # the leading k x k block of this factor is the factor of S[p[:k], p[:k]] - goal*I
-                # that the add-back pass extends: keep it (one N x N array at a time)
-                res = dataclasses.replace(res, factor=None)
-                prefix_factor = np.asfortranarray(shifted.T[:k, :k])
-                del shifted
-                for j in range(1, k):  # LAPACK left the upper triangle as it was
-                    prefix_factor[:j, j] = 0.0
-            else:
-                del shifted
-        else:
-            lo, hi = 0, ends.size - 1  # ends[lo] passes (empty set); find the last passing index
-            while lo < hi:
-                mid = (lo + hi + 1) // 2
-                eigs += 1
-                if _smallest(S, p[: ends[mid]]) >= goal:
-                    lo = mid
-                else:
-                    hi = mid - 1
-            k = int(ends[lo])
-    else:
-        raise ValueError(f"unknown search {search!r}")
+    found = _find_prefix(S, goal, shells, search, refine)
 
     notes: list[str] = []
-    order = res.pivots[:k].copy()
+    order = found.res.pivots[: found.k].copy()
     blocks: list[int] = []
     factor = None
-    if refine and 0 < k < n:
-        # The add-back pass works on the factor of S[order, order] - goal*I, and a prefix of
-        # its result serves every check below: release the N x N pivoted factor first.
-        res = dataclasses.replace(res, factor=None)
-        order, blocks, factor = _add_back(
-            S, order, _leftover_groups(res, k, shells, n), goal, prefix_factor if search == "shifted" else None
-        )
-        facts += 1
-    pivoted = res.factor
-    if mode != "none" and not (checked and not blocks):
-        while order.size:
-            if mode == "lanczos" and factor is not None:
-                # order is a prefix of the factor's order. The factor of S[order, order] - goal*I
-                # exists, so this value is at least goal: here it is reported, not checked
-                # (only the dense eigvalsh check can shorten the set).
-                smallest = goal + smallest_from_factor(factor[: order.size, : order.size])
-            elif mode == "lanczos" and pivoted is not None:
-                smallest = smallest_from_factor(pivoted[:k, :k])
-            else:
-                smallest = _smallest(S, order)
-            eigs += 1
-            if smallest >= goal:
-                break
-            # Rounding in a positive-definiteness test can admit a set a hair below target.
-            if blocks:
-                order = order[: order.size - blocks.pop()]
-            else:
-                k = int(ends[np.searchsorted(ends, k, side="left") - 1])
-                order = res.pivots[:k].copy()
-            notes.append("shortened after the eigenvalue check (rounding at the target)")
+    if refine and 0 < found.k < n:
+        order, blocks, factor = _offer_back(S, found, order, shells, goal)
+    if mode != "none" and not (found.checked and not blocks):
+        order = _verified(S, found, order, blocks, factor, goal, mode, notes)
     if order.size == 0:
         raise UsageError(f"no kept set reaches target {target:g}")
-    added = order.size - k
     kept = np.sort(order)
-    dropped = np.setdiff1d(np.arange(n), kept)
     if atom_of_function is not None:
         check_atoms_not_emptied(kept, atom_of_function, exempt_atoms, f"target {target:g}")
+    return _selection(found, order, kept, n, target, search, shells, notes)
+
+
+@dataclass
+class _Prefix:
+    """The longest prefix of a pivot order that meets the goal, and what finding it cost.
+
+    ``k`` is the prefix length (a kept-set size in ``ends``, the allowed sizes along
+    ``res.pivots``); ``smallest`` is its smallest eigenvalue when ``checked`` (else NaN);
+    ``prefix_factor`` the lower Cholesky factor of ``S[p[:k], p[:k]] - goal*I`` when the
+    search made it for the add-back pass.
+    """
+
+    res: CholeskyResult
+    k: int
+    ends: np.ndarray
+    factorizations: int
+    eigen_checks: int
+    smallest: float = np.nan
+    checked: bool = False
+    prefix_factor: np.ndarray | None = None
+
+
+def _find_prefix(S: np.ndarray, goal: float, shells: np.ndarray | None, search: str, refine: bool) -> _Prefix:
+    """The longest prefix of the pivot order at or above ``goal``, found as ``search`` says."""
+    if search == "tolerance":
+        res, k, facts, eigs, smallest = _search_tolerance(S, goal, shells)
+        # every trial already ran eigvalsh on its kept set
+        return _Prefix(res, k, _prefix_ends(res, shells), facts, eigs, smallest, checked=True)
+    if search == "shifted":
+        return _search_shifted(S, goal, shells, refine)
+    if search == "prefix":
+        return _search_prefix(S, goal, shells)
+    raise ValueError(f"unknown search {search!r}")
+
+
+def _search_shifted(S: np.ndarray, goal: float, shells: np.ndarray | None, refine: bool) -> _Prefix:
+    """One pivoted factorization at tol=goal, then one Cholesky of ``S[p, p] - goal*I``:
+    its first failing leading minor ends the longest passing prefix.
+
+    With ``refine`` (and a prefix that is neither empty nor everything) the factor of the
+    prefix is kept for the add-back pass and the pivoted factor released.
+    """
+    n = S.shape[0]
+    res = _factorize(S, goal, shells)
+    ends = _prefix_ends(res, shells)
+    p = res.pivots
+    shifted = S[np.ix_(p, p)]
+    shifted[np.diag_indices_from(shifted)] -= goal
+    info = lapack.dpotrf(shifted.T, lower=1, overwrite_a=1, clean=0)[1]
+    good = p.size if info == 0 else int(info) - 1
+    k = int(ends[np.searchsorted(ends, good, side="right") - 1])
+    prefix_factor = None
+    if refine and 0 < k < n:
+        # the leading k x k block of this factor is the factor of S[p[:k], p[:k]] - goal*I
+        # that the add-back pass extends: keep it (one N x N array at a time)
+        res = dataclasses.replace(res, factor=None)
+        prefix_factor = np.asfortranarray(shifted.T[:k, :k])
+        del shifted
+        for j in range(1, k):  # LAPACK left the upper triangle as it was
+            prefix_factor[:j, j] = 0.0
+    else:
+        del shifted
+    return _Prefix(res, k, ends, 2, 0, prefix_factor=prefix_factor)
+
+
+def _search_prefix(S: np.ndarray, goal: float, shells: np.ndarray | None) -> _Prefix:
+    """One pivoted factorization at tol=goal, then bisection over the prefix length with
+    eigvalsh checks."""
+    res = _factorize(S, goal, shells)
+    ends = _prefix_ends(res, shells)
+    p = res.pivots
+    eigs = 0
+    lo, hi = 0, ends.size - 1  # ends[lo] passes (empty set); find the last passing index
+    while lo < hi:
+        mid = (lo + hi + 1) // 2
+        eigs += 1
+        if _smallest(S, p[: ends[mid]]) >= goal:
+            lo = mid
+        else:
+            hi = mid - 1
+    return _Prefix(res, int(ends[lo]), ends, 1, eigs)
+
+
+def _offer_back(
+    S: np.ndarray, found: _Prefix, order: np.ndarray, shells: np.ndarray | None, goal: float
+) -> tuple[np.ndarray, list[int], np.ndarray | None]:
+    """The add-back pass after the prefix ``order``: `_add_back` over the units left out."""
+    # The add-back pass works on the factor of S[order, order] - goal*I, and a prefix of
+    # its result serves every check after it: release the N x N pivoted factor first.
+    found.res = dataclasses.replace(found.res, factor=None)
+    groups = _leftover_groups(found.res, found.k, shells, S.shape[0])
+    added = _add_back(S, order, groups, goal, found.prefix_factor)
+    found.factorizations += 1
+    return added
+
+
+def _verified(
+    S: np.ndarray,
+    found: _Prefix,
+    order: np.ndarray,
+    blocks: list[int],
+    factor: np.ndarray | None,
+    goal: float,
+    mode: bool | str,
+    notes: list[str],
+) -> np.ndarray:
+    """Check the kept set ``order`` and shorten it until its smallest eigenvalue is at or
+    above ``goal``: first by the groups added back (``blocks``, popped), then along the
+    pivot order. Updates ``found`` (``smallest``, ``k``, ``eigen_checks``) and ``notes``.
+
+    ``factor`` is the factor of ``S[order, order] - goal*I`` from the add-back pass, if any.
+    """
+    pivoted = found.res.factor
+    while order.size:
+        if mode == "lanczos" and factor is not None:
+            # order is a prefix of the factor's order. The factor of S[order, order] - goal*I
+            # exists, so this value is at least goal: here it is reported, not checked
+            # (only the dense eigvalsh check can shorten the set).
+            found.smallest = goal + smallest_from_factor(factor[: order.size, : order.size])
+        elif mode == "lanczos" and pivoted is not None:
+            found.smallest = smallest_from_factor(pivoted[: found.k, : found.k])
+        else:
+            found.smallest = _smallest(S, order)
+        found.eigen_checks += 1
+        if found.smallest >= goal:
+            break
+        # Rounding in a positive-definiteness test can admit a set a hair below target.
+        if blocks:
+            order = order[: order.size - blocks.pop()]
+        else:
+            found.k = int(found.ends[np.searchsorted(found.ends, found.k, side="left") - 1])
+            order = found.res.pivots[: found.k].copy()
+        notes.append("shortened after the eigenvalue check (rounding at the target)")
+    return order
+
+
+def _selection(
+    found: _Prefix,
+    order: np.ndarray,
+    kept: np.ndarray,
+    n: int,
+    target: float,
+    search: str,
+    shells: np.ndarray | None,
+    notes: list[str],
+) -> Selection:
+    """The Selection for the kept set ``order`` (``kept`` the same, ascending) of n functions."""
     kept_shells = dropped_shells = None
     if shells is not None:
         kept_shells = np.unique(shells[kept])
         dropped_shells = np.setdiff1d(np.arange(int(shells.max()) + 1), kept_shells)
     return Selection(
         kept=kept,
-        dropped=dropped,
+        dropped=np.setdiff1d(np.arange(n), kept),
         order=order,
-        smallest_kept=float(smallest),
+        smallest_kept=float(found.smallest),
         target=target,
-        tolerance=_reproducing_tol(res, k, shells),
-        factorizations=facts,
-        eigen_checks=eigs,
+        tolerance=_reproducing_tol(found.res, found.k, shells),
+        factorizations=found.factorizations,
+        eigen_checks=found.eigen_checks,
         search=search,
         kept_shells=kept_shells,
         dropped_shells=dropped_shells,
         notes=notes,
-        prefix=k,
-        added_back=added,
+        prefix=found.k,
+        added_back=order.size - found.k,
     )
 
 
 def shells_from_functions(
-    S: np.ndarray, functions: Selection, shell_of_function, verify: bool | str = "eigvalsh"
+    S: np.ndarray, functions: Selection, shell_of_function: np.ndarray | Sequence[int], verify: bool | str = "eigvalsh"
 ) -> Selection | None:
     """A whole-shell kept set seeded by a function-level selection.
 
@@ -290,7 +390,7 @@ def shells_from_functions(
     groups = _shell_index_lists(shells, n)
     target = functions.target
     goal = target * (1.0 - TARGET_SLACK)
-    mode = {True: "eigvalsh", False: "none"}.get(verify, verify)
+    mode = _verify_mode(verify)
     bad = set(shells[functions.dropped].tolist())
     seed = [s for s in dict.fromkeys(shells[functions.order].tolist()) if s not in bad]
     if not seed:
@@ -298,7 +398,8 @@ def shells_from_functions(
     order = np.concatenate([groups[s] for s in seed])
     k = order.size
     order, blocks, factor = _add_back(S, order, [groups[s] for s in sorted(bad)], goal)
-    smallest, eigs, notes = np.nan, 0, []
+    smallest, eigs = np.nan, 0
+    notes: list[str] = []
     while mode != "none":
         if mode == "lanczos" and factor is not None:
             smallest = goal + smallest_from_factor(factor[: order.size, : order.size])
@@ -331,19 +432,22 @@ def shells_from_functions(
     )
 
 
-def _leftover_groups(res: CholeskyResult, k: int, shells, n: int) -> list[np.ndarray]:
+def _leftover_groups(res: CholeskyResult, k: int, shells: np.ndarray | None, n: int) -> list[np.ndarray]:
     """Units not in the kept prefix: the rest of the pivot order, then those never pivoted."""
     if shells is None:
         rest = np.concatenate([res.pivots[k:], res.dropped])
         return [np.array([i]) for i in rest]
     groups = _shell_index_lists(shells, n)
     j = int(np.searchsorted(_prefix_ends(res, shells), k))
-    later = [int(s) for s in res.shell_pivots[j:]]
-    never = sorted(set(range(len(groups))) - {int(s) for s in res.shell_pivots})
+    shell_pivots = _shell_record(res)[0]
+    later = [int(s) for s in shell_pivots[j:]]
+    never = sorted(set(range(len(groups))) - {int(s) for s in shell_pivots})
     return [groups[s] for s in later + never]
 
 
-def _add_back(S: np.ndarray, order: np.ndarray, groups: list[np.ndarray], goal: float, L: np.ndarray | None = None):
+def _add_back(
+    S: np.ndarray, order: np.ndarray, groups: list[np.ndarray], goal: float, L: np.ndarray | None = None
+) -> tuple[np.ndarray, list[int], np.ndarray | None]:
     """Greedily append each group (in turn) while ``S[kept, kept] - goal*I`` stays positive
     definite, by extending its Cholesky factor (``L``, lower, when the caller has it). A
     group that fails once can never fit later (adding functions only lowers the smallest
@@ -363,7 +467,9 @@ def _add_back(S: np.ndarray, order: np.ndarray, groups: list[np.ndarray], goal: 
     starts = np.cumsum([0] + [g.size for g in groups])
     # Rows of the growing factor for every candidate column, block by block.
     W = [scipy.linalg.solve_triangular(L, S[np.ix_(order, cand)], lower=True, check_finite=False)]
-    kept, sizes, tails = [order], [], []
+    kept = [order]
+    sizes: list[int] = []
+    tails: list[tuple[np.ndarray, np.ndarray]] = []
     for gi, g in enumerate(groups):
         cols = slice(starts[gi], starts[gi + 1])
         Wg = np.vstack([w[:, cols] for w in W])
@@ -393,11 +499,13 @@ def _add_back(S: np.ndarray, order: np.ndarray, groups: list[np.ndarray], goal: 
     return order, sizes, factor
 
 
-def _search_tolerance(S, target, shells, max_steps: int = 60):
+def _search_tolerance(
+    S: np.ndarray, target: float, shells: np.ndarray | None, max_steps: int = 60
+) -> tuple[CholeskyResult, int, int, int, float]:
     """Bisection on log10(tol) in [target, first pivot]; each trial factorizes and checks."""
     facts = eigs = 0
 
-    def trial(tol):
+    def trial(tol: float) -> tuple[CholeskyResult, float]:
         nonlocal facts, eigs
         res = _factorize(S, tol, shells)
         facts += 1
@@ -407,7 +515,7 @@ def _search_tolerance(S, target, shells, max_steps: int = 60):
     res_lo, low = trial(target)
     if low >= target:
         return res_lo, res_lo.rank, facts, eigs, low
-    first = (res_lo.pivot_values if shells is None else res_lo.shell_values)[0]
+    first = (res_lo.pivot_values if shells is None else _shell_record(res_lo)[1])[0]
     ends = _prefix_ends(res_lo, shells)
     lo, hi = np.log10(target), np.log10(first)
     res_hi, high = trial(first)

@@ -10,10 +10,15 @@ the other costs. Guarded by a size limit and a per-run time limit.
 from __future__ import annotations
 
 import time
+from typing import TYPE_CHECKING, Any
 
 from ..base.errors import UsageError
 from ..inputs.pruned import load_pruned_doc
 from .canonical import orthogonalizer
+from .prepared import PreparedGeometry
+
+if TYPE_CHECKING:
+    from pyscf import gto
 
 MAX_FUNCTIONS = 400
 TIME_LIMIT = 120.0  # seconds per SCF run
@@ -29,7 +34,7 @@ def check_method(method: str) -> str:
     name = method.strip().lower()
     if name in HF_NAMES:
         return "hf"
-    from pyscf.dft import libxc
+    from pyscf.dft import libxc  # pyscf is slow to import: only when a trial SCF is asked for
 
     try:
         libxc.parse_xc(name)
@@ -38,10 +43,12 @@ def check_method(method: str) -> str:
     return name
 
 
-def run_scf(mol, method: str, threshold: float, time_limit: float = TIME_LIMIT, conv_tol: float = 1e-9) -> dict:
+def run_scf(
+    mol: gto.Mole, method: str, threshold: float, time_limit: float = TIME_LIMIT, conv_tol: float = 1e-9
+) -> dict:
     """One SCF on pyscf Mole ``mol`` with canonical orthogonalization at ``threshold``
     (0 keeps every direction). Returns convergence, cycles, energy and timing."""
-    from pyscf import dft, scf
+    from pyscf import dft, scf  # pyscf is slow to import: only when a trial SCF runs
 
     method = check_method(method)
     mf = scf.HF(mol) if method == "hf" else dft.KS(mol)
@@ -83,7 +90,7 @@ def run_scf(mol, method: str, threshold: float, time_limit: float = TIME_LIMIT, 
     }
 
 
-def scf_mole(prep):
+def scf_mole(prep: PreparedGeometry) -> gto.Mole:
     """The prepared pyscf Mole with the molecule's charge and spin (the audit ignores them)."""
     m = prep.mole.copy()
     m.charge = int(prep.molecule.charge)
@@ -93,7 +100,7 @@ def scf_mole(prep):
 
 
 def trial_scf(
-    prep,
+    prep: PreparedGeometry,
     method: str,
     threshold: float,
     pruned_doc: dict | None,
@@ -104,7 +111,7 @@ def trial_scf(
     difference in microhartree. Skipped, with the reason, above ``max_functions``."""
     method = check_method(method)
     n = prep.table.n_functions
-    out = {
+    out: dict[str, Any] = {
         "method": method,
         "max_functions": max_functions,
         "time_limit_seconds": time_limit,
