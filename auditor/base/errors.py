@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-#: Exit codes of the command line (documented in the README).
+#: Exit codes of the command line (documented in docs/cli.md).
 EXIT_OK = 0  # every geometry passed or earned a caution
 EXIT_FAIL = 1  # at least one geometry failed the policy
 EXIT_USAGE = 2  # bad options or arguments

@@ -105,7 +105,7 @@ def audit_prepared(
 ) -> AuditResult:
     """Run the whole audit on a prepared geometry + basis.
 
-    ``remedies``: True (default options), a ``prune.RemedyOptions``, or False to skip them.
+    ``remedies``: True (default options), an ``auditor.RemedyOptions``, or False to skip them.
     """
     policy = policy or Policy()
     mol, table, S = prep.molecule, prep.table, prep.S
@@ -198,7 +198,7 @@ def audit(
     None), or a Molecule. ``basis`` is a name pyscf knows or a basis file;
     ``basis_for`` overrides it per element ({'H': 'cc-pvtz'} or ['H=cc-pvtz']);
     ``ghost`` marks atoms (1-based) as ghost atoms; ``remedies`` is True, False or a
-    ``auditor.prune.RemedyOptions`` (target, opt-in trial SCF).
+    ``auditor.RemedyOptions`` (target, opt-in trial SCF).
     """
     if hasattr(source, "intor") and hasattr(source, "nao_nr"):
         mol, mole_spec = _from_mole(source)

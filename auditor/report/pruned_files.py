@@ -50,7 +50,7 @@ def explain_markdown(result, plan: RemedyPlan, files: dict[str, str]) -> str:
         "## Using them",
         "",
         "```python",
-        "from auditor.prune import load_pruned",
+        "from auditor import load_pruned",
         f"mol = load_pruned('{files['basis']}')          # a pyscf Mole",
         "# or, with pyscf alone:",
         f"import json; from pyscf import gto; d = json.load(open('{files['basis']}'))",

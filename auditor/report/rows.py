@@ -6,7 +6,7 @@ from __future__ import annotations
 import math
 import sys
 
-#: Column order of summary.csv / summary.parquet (documented in the README).
+#: Column order of summary.csv / summary.parquet (documented in docs/json.md).
 COLUMNS = (
     "path",
     "frame",

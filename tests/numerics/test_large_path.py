@@ -225,7 +225,7 @@ def test_memory_guard_names_needed_and_available():
     assert "16.0 GB" in msg  # available, as given
     assert f"{estimate_bytes(30000, 'full') / gib:.1f} GB" in msg  # needed
     assert "large spectrum path" in msg  # 30000 functions fit on the large path
-    # measured peaks of the large path: 1.09-1.20 copies of S (README benchmark); the guard
+    # measured peaks of the large path: 1.09-1.20 copies of S (docs/benchmarks.md); the guard
     # must count at least S itself and stay below 1.4 copies
     needed = check_memory(30000, "large", available=16 * gib)
     assert 8 * 30000**2 < needed < 1.4 * 8 * 30000**2
