@@ -9,21 +9,25 @@ from .spectrum import (
     COUNT_LEVELS,
     GROWTH_LEVEL,
     Spectrum,
+    cause_count,
+    column_growth,
+    complete_groups,
+    degeneracy_tolerance,
     gershgorin_lower_bound,
     level_key,
     max_transform_element,
-    select_null_vectors,
 )
 
 #: below this size one dense eigendecomposition costs no more than the selective path
 _SELECTIVE_FROM = 160
 
 
-def _selective(S: np.ndarray, vector_level: float, min_vectors: int):
+def _selective(S: np.ndarray, vector_level: float):
     """All eigenvalues and the smallest eigenvectors from one tridiagonal reduction
     (LAPACK dsytrd; dsterf for the values; dstemr and the Householder back-transform
-    dormqr for the vectors), with as many vectors as the growth figures need.
-    None when that would be most of them (the dense path is then cheaper)."""
+    dormqr for the vectors), with as many vectors as the causes and the growth figures
+    need, always whole degenerate groups. None when that would be most of them (the
+    dense path is then cheaper)."""
     n = S.shape[0]
     lwork = int(lapack.dsytrd_lwork(n, lower=1)[0])
     # S is symmetric: hand LAPACK its Fortran-ordered view, which it copies without transposing
@@ -31,13 +35,14 @@ def _selective(S: np.ndarray, vector_level: float, min_vectors: int):
     if info != 0:
         return None
     values = eigvalsh_tridiagonal(d, e, lapack_driver="sterf")
+    tol = degeneracy_tolerance(n, values[-1])
     # the most directions that any threshold up to GROWTH_LEVEL (or the vector level) removes;
     # a growth figure certified there is certified for every smaller threshold too
     r_max = int(np.searchsorted(values, max(GROWTH_LEVEL, vector_level), side="left"))
-    need = max(select_null_vectors(values, vector_level, min_vectors), r_max + 1)
+    need = max(cause_count(values, vector_level, tol), r_max + 1)
     reflectors = np.asfortranarray(a[1:, : n - 1])  # one copy, not one per dormqr call
     blocks: list[np.ndarray] = []
-    m, target = 0, min(n, need)
+    m, target = 0, complete_groups(values, min(n, need), tol)
     while True:
         if target > n // 3:
             return None
@@ -49,31 +54,36 @@ def _selective(S: np.ndarray, vector_level: float, min_vectors: int):
         z[1:] = zq
         blocks.append(z)
         m = target
-        colmax = np.concatenate([np.abs(b).max(axis=0) for b in blocks])
-        if m == n or max_transform_element(values, colmax, r_max) is not None:
-            return values, np.concatenate(blocks, axis=1), colmax
+        vectors = np.concatenate(blocks, axis=1) if len(blocks) > 1 else blocks[0]
+        growth = column_growth(vectors, values, tol)
+        if m == n or max_transform_element(values, growth, r_max) is not None:
+            return values, vectors, growth, tol
         # columns past m add at most 1/sqrt(lambda_j) each: those with lambda_j below 1/g^2
-        # could still beat the maximum g found so far, so form exactly those
-        g = float(np.max(colmax[r_max:] / np.sqrt(values[r_max:m])))
-        target = max(m + 1, min(n, int(np.searchsorted(values, 1.0 / g**2, side="left"))))
+        # could still beat the maximum g found so far, so form exactly those (whole groups)
+        g = float(np.max(growth[r_max:]))
+        more = max(m + 1, min(n, int(np.searchsorted(values, 1.0 / g**2, side="left"))))
+        target = complete_groups(values, more, tol)
 
 
-def full_spectrum(S: np.ndarray, vector_level: float, min_vectors: int = 3) -> Spectrum:
+def full_spectrum(S: np.ndarray, vector_level: float) -> Spectrum:
     """Every eigenvalue, and the eigenvectors that the causes and the growth figures need.
 
     Small S: one dense eigendecomposition (LAPACK syevd through numpy). Otherwise one
     tridiagonal reduction gives all eigenvalues, and only the smallest eigenvectors are
-    formed (about half the time of the dense path at a few hundred functions).
+    formed (about half the time of the dense path at a few hundred functions). The cause
+    vectors are those below ``vector_level`` (else the smallest group), whole degenerate
+    groups.
     """
     n = S.shape[0]
     bound = gershgorin_lower_bound(S)
-    picked = _selective(S, vector_level, min_vectors) if n >= _SELECTIVE_FROM else None
+    picked = _selective(S, vector_level) if n >= _SELECTIVE_FROM else None
     if picked is None:
         values, vectors = np.linalg.eigh(S)
-        colmax = np.abs(vectors).max(axis=0)
+        tol = degeneracy_tolerance(n, values[-1])
+        growth = column_growth(vectors, values, tol)
     else:
-        values, vectors, colmax = picked
-    k = select_null_vectors(values, vector_level, min_vectors)
+        values, vectors, growth, tol = picked
+    k = cause_count(values, vector_level, tol)
     counts: dict[str, int | None] = {level_key(t): int(np.searchsorted(values, t, side="left")) for t in COUNT_LEVELS}
     return Spectrum(
         n=n,
@@ -85,5 +95,6 @@ def full_spectrum(S: np.ndarray, vector_level: float, min_vectors: int = 3) -> S
         gershgorin_bound=bound,
         method="full",
         complete=True,
-        column_max=colmax,
+        growth_by_column=growth,
+        degeneracy_tol=tol,
     )

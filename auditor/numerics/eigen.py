@@ -10,16 +10,16 @@ from .memory import check_memory, resolve_method
 from .spectrum import Spectrum
 
 
-def compute_spectrum(S: np.ndarray, vector_level: float, min_vectors: int = 3, method: str = "full") -> Spectrum:
+def compute_spectrum(S: np.ndarray, vector_level: float, method: str = "full") -> Spectrum:
     """Spectrum of the unit-diagonal overlap matrix ``S``.
 
     ``method``: "full" (dense eigendecomposition), "large" (factorizations and
-    subspace iteration, ``auditor.large``; S is used as workspace and restored), or
-    "auto" (large from ``auditor.large.CROSSOVER_N`` functions on, or when the full
-    path would not fit in memory).
+    subspace iteration, ``auditor.numerics.factored``; S is used as workspace and
+    restored), or "auto" (large from ``auditor.numerics.memory.CROSSOVER_N`` functions
+    on, or when the full path would not fit in memory).
     """
     method = resolve_method(S.shape[0], method, s_built=True)
     check_memory(S.shape[0], method, s_built=True)  # ResourceError instead of being killed
     if method == "large":
-        return large_spectrum(S, vector_level, min_vectors)
-    return full_spectrum(S, vector_level, min_vectors)
+        return large_spectrum(S, vector_level)
+    return full_spectrum(S, vector_level)

@@ -23,13 +23,28 @@ from ..base.errors import ResourceError
 from .inplace import _cholesky, _fortran_view, _ldl_negative_count, _Triangles
 from .krylov import _largest_eigenvalue, _smallest_eigenpairs
 from .memory import DEFAULT_MAX_VECTORS
-from .spectrum import COUNT_LEVELS, Spectrum, gershgorin_lower_bound, level_key
+from .spectrum import (
+    COUNT_LEVELS,
+    Spectrum,
+    column_growth,
+    complete_groups,
+    degeneracy_tolerance,
+    gershgorin_lower_bound,
+    group_bounds,
+    level_key,
+)
+
+#: eigenpairs computed past the wanted ones, to see where a degenerate group ends
+GROUP_MARGIN = 4
+#: Ritz values converge to about the square of the residual tolerance (1e-5): eigenvalues
+#: closer than this relative margin count as one group on this path
+RITZ_RTOL = 1e-8
 
 
 def large_spectrum(
     S: np.ndarray,
     vector_level: float,
-    min_vectors: int = 3,
+    min_vectors: int = 1,
     max_vectors: int = DEFAULT_MAX_VECTORS,
     exact_counts: bool = False,
     tol: float = 1e-5,
@@ -40,7 +55,8 @@ def large_spectrum(
     """Spectrum of unit-diagonal S without a full eigendecomposition.
 
     S is used as workspace and restored (symmetric, from its mirror triangle) before
-    returning. Computes the max(m, min_vectors) smallest eigenpairs, where m is the
+    returning. Computes the max(m, min_vectors) smallest eigenpairs (and a few more, to see
+    where the degenerate group at the cut ends), where m is the
     exact number below ``vector_level``, capped at ``max_vectors``. A count at a decade is
     reported only when established (Cholesky success, LDL^T inertia, or all eigenvalues
     below that decade computed); otherwise None. ``exact_counts`` adds one LDL^T per
@@ -63,7 +79,8 @@ def large_spectrum(
         below_tau, factored_at_tau = _count_below(tri, tau, info)
         factored_shift = _positive_definite_shift(tri, tau if factored_at_tau else None, largest, info)
         k = min(n, max(min(below_tau, max_vectors), min_vectors))
-        values, vectors = _sorted_eigenpairs(tri, factored_shift, k, tol, maxiter, seed, info)
+        # a few pairs past k show where the degenerate group at the cut ends
+        values, vectors = _sorted_eigenpairs(tri, factored_shift, min(n, k + GROUP_MARGIN), tol, maxiter, seed, info)
         info["ritz_below_vector_level"] = int(np.searchsorted(values, tau))
         counts = _established_counts(values, tau, below_tau, factored_shift, all_below_tau=k >= below_tau)
         if exact_counts:
@@ -71,20 +88,35 @@ def large_spectrum(
     finally:
         tri.restore()
     info["t_total"] = time.perf_counter() - t0
+    group_tol = degeneracy_tolerance(n, largest) + RITZ_RTOL * float(values[-1])
+    formed = _confirmed_groups(values, group_tol, n)
+    wanted = max(min(below_tau, max_vectors), 1)  # the cause vectors: those below tau, else the smallest group
+    causes = min(formed, complete_groups(values[:formed], min(wanted, formed), group_tol))
     return Spectrum(
         n=n,
         values=values,
-        vectors=vectors,
+        vectors=np.ascontiguousarray(vectors[:, :causes]),
         smallest=float(values[0]),
         largest=largest,
         counts_below=counts,
         gershgorin_bound=bound,
         method="large",
         complete=False,
-        column_max=np.abs(vectors).max(axis=0),
+        growth_by_column=column_growth(vectors[:, :formed], values, group_tol),
+        degeneracy_tol=group_tol,
         # exactly below_tau eigenvalues lie below tau, so the first one not computed is >= tau
         beyond=tau if values.size >= below_tau else None,
     )
+
+
+def _confirmed_groups(values: np.ndarray, tol: float, n: int) -> int:
+    """How many of the computed eigenpairs form whole degenerate groups: up to the last gap
+    seen among them (the last group may go on past what was computed), or all of them when
+    they are the whole spectrum."""
+    if values.size >= n:
+        return values.size
+    bounds = group_bounds(values, tol)
+    return int(bounds[-2]) if bounds.size > 2 else values.size
 
 
 def _count_below(tri: _Triangles, tau: float, info: dict[str, Any]) -> tuple[int, bool]:

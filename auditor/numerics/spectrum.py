@@ -39,16 +39,18 @@ class Spectrum:
     gershgorin_bound: float
     method: str
     complete: bool
-    #: max_i |U_ij| for the eigenvector columns j that were formed (the smallest ones;
-    #: all of them on the dense path); see ``max_transform_element``
-    column_max: np.ndarray | None = None
+    #: `column_growth` of the eigenvector columns that were formed (the smallest ones, whole
+    #: degenerate groups; all of them on the dense path); see ``max_transform_element``
+    growth_by_column: np.ndarray | None = None
+    #: eigenvalues closer than this are one degenerate group (`degeneracy_tolerance`)
+    degeneracy_tol: float = 0.0
     #: a lower bound on the first eigenvalue past ``values`` when they are not all known
     beyond: float | None = None
 
     def growth(self, n_removed: int) -> float | None:
         """max |X| of canonical orthogonalization that removes ``n_removed`` directions,
         when the computed eigenvectors certify it."""
-        return max_transform_element(self.values, self.column_max, n_removed, self.n, self.beyond)
+        return max_transform_element(self.values, self.growth_by_column, n_removed, self.n, self.beyond)
 
     @property
     def condition_number(self) -> float | None:
@@ -77,13 +79,54 @@ def gershgorin_lower_bound(S: np.ndarray) -> float:
     return 1.0 - worst
 
 
-def select_null_vectors(values: np.ndarray, level: float, min_vectors: int) -> int:
-    """How many of the smallest eigenvectors span the near-null space.
+def degeneracy_tolerance(n: int, largest: float) -> float:
+    """Eigenvalues closer than this count as one degenerate group.
 
-    Those below ``level``; if there are none, the ``min_vectors`` smallest.
+    Computed eigenvalues of a symmetric matrix carry rounding errors of about eps * ||S||
+    times a slowly growing function of N (here 32 sqrt(N), a margin of common practice);
+    eigenvectors whose eigenvalues differ by less are not determined one by one (their
+    error is about the perturbation over the gap, Davis-Kahan), only their span is.
     """
-    k = int(np.searchsorted(values, level, side="left"))
-    return max(k, min(min_vectors, values.size))
+    return 32.0 * np.sqrt(max(n, 1)) * np.finfo(float).eps * max(1.0, float(largest))
+
+
+def group_bounds(values: np.ndarray, tol: float) -> np.ndarray:
+    """Start of each group of (near-)equal ascending ``values``, then ``values.size``."""
+    cuts = np.flatnonzero(np.diff(values) > tol) + 1
+    return np.concatenate([[0], cuts, [values.size]]).astype(np.intp)
+
+
+def complete_groups(values: np.ndarray, k: int, tol: float) -> int:
+    """The smallest count >= k that does not split a group of ``values`` (at most their number)."""
+    bounds = group_bounds(values, tol)
+    return int(bounds[np.searchsorted(bounds, k)])
+
+
+def cause_count(values: np.ndarray, level: float, tol: float) -> int:
+    """How many of the smallest eigenvectors span the near-null space: those below ``level``,
+    else the smallest eigenvalue's group, extended to whole degenerate groups, so that any
+    figure summed over them does not depend on the choice of vectors inside a group."""
+    k = max(int(np.searchsorted(values, level, side="left")), min(1, values.size))
+    return complete_groups(values, k, tol)
+
+
+def column_growth(vectors: np.ndarray, values: np.ndarray, tol: float) -> np.ndarray:
+    """For each eigenvector column j (ascending, ending at a group boundary): the largest
+    element of X = U diag(lambda)^-1/2 that its group can give, max_i sqrt(sum over the
+    group g of U_ig^2 / lambda_g). Within a degenerate group the eigenvectors are any
+    orthonormal basis of one space; this value is the largest |X_ij| over all those
+    choices (one of them attains it), and it is the plain max_i |U_ij| / sqrt(lambda_j) for
+    a group of one. Infinite for a non-positive eigenvalue."""
+    m = vectors.shape[1]
+    lam = values[:m]
+    out = np.full(m, np.inf)
+    ok = lam > 0.0
+    out[ok] = np.abs(vectors[:, ok]).max(axis=0) / np.sqrt(lam[ok])
+    bounds = group_bounds(lam, tol)
+    for lo, hi in zip(bounds[:-1], bounds[1:]):
+        if hi - lo > 1 and lam[lo] > 0.0:
+            out[lo:hi] = np.sqrt(float(((vectors[:, lo:hi] ** 2) @ (1.0 / lam[lo:hi])).max()))
+    return out
 
 
 #: thresholds up to this one get an exact max |X| (the candidates and the advice use 1e-4 ... 1e-9)
@@ -92,30 +135,28 @@ GROWTH_LEVEL = 1e-4
 
 def max_transform_element(
     values: np.ndarray,
-    column_max: np.ndarray | None,
+    growth: np.ndarray | None,
     n_removed: int,
     n_total: int | None = None,
     beyond: float | None = None,
 ) -> float | None:
-    """max |X_ij| of X = U_kept diag(lambda_kept)^-1/2 when the ``n_removed`` smallest
-    directions go, or None when the computed columns cannot certify it.
+    """The largest |X_ij| of X = U_kept diag(lambda_kept)^-1/2 when the ``n_removed``
+    smallest directions go (over every valid choice of eigenvectors inside degenerate
+    groups), or None when the computed columns cannot certify it.
 
-    ``column_max`` holds max_i |U_ij| for the m smallest eigenvectors; ``values`` the
-    smallest eigenvalues (at least those m), of ``n_total`` in all (default: all of them
-    are in ``values``). A column j >= m contributes at most 1/sqrt(lambda_m) (unit
-    eigenvectors), so the maximum over the computed kept columns is exact once it
-    reaches that bound. ``beyond`` is a lower bound on lambda_m when ``values`` stops at m.
+    ``growth`` is `column_growth` of the m smallest eigenvectors; ``values`` the smallest
+    eigenvalues (at least those m), of ``n_total`` in all (default: all of them are in
+    ``values``). A column j >= m contributes at most 1/sqrt(lambda_m) (unit eigenvectors),
+    so the maximum over the computed kept columns is exact once it reaches that bound.
+    ``beyond`` is a lower bound on lambda_m when ``values`` stops at m.
     """
     n_total = values.size if n_total is None else n_total
-    if column_max is None or n_removed >= n_total:
+    if growth is None or n_removed >= n_total:
         return None
-    m = column_max.size
-    if n_removed >= m:
+    m = growth.size
+    if n_removed >= m or values[n_removed] <= 0.0:
         return None
-    kept = values[n_removed:m]
-    if kept[0] <= 0.0:
-        return None
-    g = float(np.max(column_max[n_removed:] / np.sqrt(kept)))
+    g = float(np.max(growth[n_removed:]))
     if m < n_total:
         following = values[m] if m < values.size else beyond
         if following is None or following <= 0.0 or g < 1.0 / np.sqrt(following):
