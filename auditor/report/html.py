@@ -13,6 +13,7 @@ import json
 import math
 from html import escape
 from pathlib import Path
+from typing import TYPE_CHECKING, Any
 
 from ..base.files import atomic_write
 from ..base.jsonio import clean
@@ -26,6 +27,9 @@ from .text import (
     remedies_view,
     vectors_note,
 )
+
+if TYPE_CHECKING:
+    from ..pipeline.result import AuditResult
 
 CSS = (
     PAGE_CSS
@@ -64,17 +68,17 @@ details summary { cursor: pointer; color: var(--accent); margin: 4px 0; }
 )
 
 
-def _d(result) -> dict:
+def _d(result: AuditResult | dict) -> dict:
     return clean(result if isinstance(result, dict) else result.as_dict())
 
 
-def _value_attr(value) -> str:
+def _value_attr(value: Any) -> str:
     if value is None or (isinstance(value, float) and not math.isfinite(value)):
         return "null"
     return json.dumps(value)
 
 
-def num(key: str, value, spec: str = ".3e", none: str = "not computed") -> str:
+def num(key: str, value: Any, spec: str = ".3e", none: str = "not computed") -> str:
     """A number as shown, tagged with its JSON path and full value."""
     if value is None or (isinstance(value, float) and not math.isfinite(value)):
         shown = none
@@ -95,7 +99,7 @@ def _img(png: bytes | None, alt: str, caption: str) -> str:
     )
 
 
-def _atoms_text(atoms, limit: int = 12) -> str:
+def _atoms_text(atoms: list, limit: int = 12) -> str:
     text = ", ".join(str(a) for a in atoms[:limit])
     return text + (" …" if len(atoms) > limit else "")
 
@@ -218,7 +222,8 @@ def _causes_tables(d: dict, limit: int = 12) -> str:
 
 
 def _findings(d: dict) -> str:
-    fs = sorted(enumerate(d["findings"]), key=lambda p: (SEVERITY_ORDER.get(p[1]["severity"], 3), p[0]))
+    last = len(SEVERITY_ORDER)  # an unknown severity after the known ones
+    fs = sorted(enumerate(d["findings"]), key=lambda p: (SEVERITY_ORDER.get(p[1]["severity"], last), p[0]))
     if not fs:
         return "<p>No geometry defects, duplicate functions or crowded diffuse shells were found.</p>"
     rows = "".join(
@@ -265,7 +270,7 @@ def _label(key: str) -> str:
     return escape(str(key).replace("_", " "))
 
 
-def _generic(value, key: str, depth: int = 0) -> str:
+def _generic(value: Any, key: str, depth: int = 0) -> str:
     """Any JSON value as HTML: dicts as two-column tables, lists of records as tables."""
     if isinstance(value, bool) or value is None:
         return escape({True: "yes", False: "no", None: "—"}[value])
@@ -453,21 +458,42 @@ def _trial_scf(tri: TrialView) -> list[str]:
     return out
 
 
-def render_html(result, images: dict[str, bytes] | None = None) -> str:
+def render_html(result: AuditResult | dict, images: dict[str, bytes] | None = None) -> str:
     """The HTML text of one result. ``images`` maps "spectrum", "causes" and "molecule" to
     PNG bytes; when None they are drawn here."""
     d = _d(result)
     if images is None:
+        # matplotlib loads only when the figures are drawn here (callers usually pass them)
         from .plots import report_plots
 
         images = report_plots(d)
-    inp, verdict = d["input"], str(d["verdict"])
-    name = Path(inp["path"]).name
-    frame = f", frame {inp['frame']} of {inp['n_frames']}" if inp["n_frames"] > 1 else ""
-    title = f"Basis overlap audit: {name}{frame}"
-    ghosts = f", {len(inp['ghost_atoms'])} of them ghost atoms" if inp["ghost_atoms"] else ""
-    vec_note = vectors_note(d)
     sections = [
+        *_page_top(d),
+        *_figure_sections(d, images),
+        '<h2 id="findings">Findings</h2>',
+        _findings(d),
+        '<h2 id="advice">Canonical orthogonalization</h2>',
+        _advice(d),
+        _remedies(d),
+        '<h2 id="caveats">Read before acting</h2>',
+        '<ul class="caveats">' + "".join(f"<li>{escape(x)}</li>" for x in d["caveats"]) + "</ul>",
+        (
+            f"<footer>auditor {escape(str(d['version']))}, report schema {escape(str(d['schema']))}. "
+            "This page is self-contained: the figures are embedded and nothing is fetched from the network.</footer>"
+        ),
+        "</main></body></html>",
+        "",
+    ]
+    return "\n".join(s for s in sections if s)
+
+
+def _page_top(d: dict) -> list[str]:
+    """Head, title, subtitle, navigation and the verdict box."""
+    inp, verdict = d["input"], str(d["verdict"])
+    frame = f", frame {inp['frame']} of {inp['n_frames']}" if inp["n_frames"] > 1 else ""
+    title = f"Basis overlap audit: {Path(inp['path']).name}{frame}"
+    ghosts = f", {len(inp['ghost_atoms'])} of them ghost atoms" if inp["ghost_atoms"] else ""
+    return [
         "<!DOCTYPE html>",
         '<html lang="en"><head><meta charset="utf-8">',
         '<meta name="viewport" content="width=device-width, initial-scale=1">',
@@ -490,6 +516,12 @@ def render_html(result, images: dict[str, bytes] | None = None) -> str:
             f'data-value="{escape(json.dumps(verdict))}">{escape(verdict.upper())}</span>'
             f"<p>{explanation(d)}</p></section>"
         ),
+    ]
+
+
+def _figure_sections(d: dict, images: dict[str, bytes]) -> list[str]:
+    """The spectrum, causes and geometry sections: heading, figure and tables of each."""
+    return [
         '<h2 id="spectrum">Spectrum of the normalized overlap matrix</h2>',
         _img(
             images.get("spectrum"),
@@ -503,7 +535,8 @@ def render_html(result, images: dict[str, bytes] | None = None) -> str:
         _img(
             images.get("causes"),
             "Bar charts of the near-null-space share per atom, per angular momentum and for diffuse shells",
-            f"Share of each atom, angular momentum and shell kind in {escape(vec_note)}; each chart adds up to 1.",
+            f"Share of each atom, angular momentum and shell kind in {escape(vectors_note(d))}; "
+            "each chart adds up to 1.",
         ),
         _causes_tables(d),
         '<h2 id="geometry">Geometry</h2>',
@@ -515,23 +548,9 @@ def render_html(result, images: dict[str, bytes] | None = None) -> str:
             "red dashed lines or rings mark coincident atoms and short contacts from the findings.",
         ),
         _input_table(d),
-        '<h2 id="findings">Findings</h2>',
-        _findings(d),
-        '<h2 id="advice">Canonical orthogonalization</h2>',
-        _advice(d),
-        _remedies(d),
-        '<h2 id="caveats">Read before acting</h2>',
-        '<ul class="caveats">' + "".join(f"<li>{escape(x)}</li>" for x in d["caveats"]) + "</ul>",
-        (
-            f"<footer>auditor {escape(str(d['version']))}, report schema {escape(str(d['schema']))}. "
-            "This page is self-contained: the figures are embedded and nothing is fetched from the network.</footer>"
-        ),
-        "</main></body></html>",
-        "",
     ]
-    return "\n".join(s for s in sections if s)
 
 
-def write_html(result, path: Path, images: dict[str, bytes] | None = None) -> Path:
+def write_html(result: AuditResult | dict, path: Path, images: dict[str, bytes] | None = None) -> Path:
     atomic_write(path, render_html(result, images))
     return path
