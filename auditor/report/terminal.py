@@ -114,7 +114,7 @@ def worst_table(rows: list[dict], n: int = 10) -> Group:
         t.add_row(
             escape(item_label(r)),
             f"[{STYLE[r['verdict']]}]{r['verdict']}[/]",
-            f"[{STYLE.get(r.get('outcome'), '')}]{r.get('outcome', '')}[/]",
+            f"[{STYLE.get(r.get('outcome') or '', '')}]{r.get('outcome', '')}[/]",
             f"{lam:.2e}" if ok else "",
             ("inf" if math.isinf(cond) else f"{math.log10(cond):.1f}") if ok else "",
             r["top_atom"],
