@@ -390,7 +390,7 @@ def _dropped_shells(sh: ShellPruningView, n: int) -> list[str]:
     rows = "".join(
         f"<tr><td>{escape(x.where)}</td><td>{escape(x.l_letter)}</td>"
         f'<td class="n">{num(f"{x.key}.exponent", x.exponent, ".4g")}</td>'
-        f"<td>{'yes' if x.diffuse else ''}</td>"
+        f"<td>{x.diffuse_mark}</td>"
         f'<td class="n">{num(f"{x.key}.functions", x.functions, "d")}</td></tr>'
         for x in sh.dropped[:MAX_REMEDY_ROWS]
     )

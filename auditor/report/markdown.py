@@ -201,7 +201,7 @@ def _dropped_shell_lines(sh: ShellPruningView) -> list[str]:
         "|---|---|---|---|---|",
     ]
     for s in sh.dropped[:MAX_REMEDY_ROWS]:
-        lines.append(f"| {s.where} | {s.l} | {s.exponent:.4g} | {'yes' if s.diffuse else ''} | {s.functions} |")
+        lines.append(f"| {s.where} | {s.l} | {s.exponent:.4g} | {s.diffuse_mark} | {s.functions} |")
     return lines + _more_rows(len(sh.dropped), 5) + [""]
 
 

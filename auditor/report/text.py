@@ -78,6 +78,11 @@ class DroppedShellRow:
     def l_letter(self) -> str:
         return l_letter(self.l)
 
+    @property
+    def diffuse_mark(self) -> str:
+        """ "yes" for a diffuse shell, else empty."""
+        return "yes" if self.diffuse else ""
+
 
 @dataclass(frozen=True)
 class DroppedFunctionRow:
