@@ -32,6 +32,7 @@ def main() -> None:
     """Console entry point: never a traceback unless AUDITOR_DEBUG is set."""
     try:
         if sys.argv[1:2] == ["gate"]:
+            # imported here, and only for gate: it starts the worker server before anything heavy loads
             from ..gate.workers import start_early
 
             start_early(sys.argv[1:])

@@ -7,6 +7,7 @@ from typing import Annotated
 
 import typer
 
+from ..base.errors import EXIT_USAGE, AuditorError
 from . import options as o
 from .console import err, fail, out
 
@@ -35,13 +36,13 @@ def check(
     trial_max_functions: o.TrialMaxFunctions = 400,
     trial_seconds: o.TrialSeconds = 120.0,
     quiet: o.Quiet = False,
-):
+) -> None:
     """Audit each geometry in one basis; write DIR/<stem>.json, .md and .html per frame.
 
     Exit codes: 0 pass or caution, 1 fail, 2 usage error, 3 unreadable input, 4 too large,
     5 internal error.
     """
-    from ..base.errors import EXIT_USAGE, AuditorError
+    # heavy (numpy, pyscf, matplotlib): imported when the command runs, see the package docstring
     from ..diagnosis.verdict import Policy
     from ..gate.serial import audit_paths
     from ..pipeline.run import make_spec

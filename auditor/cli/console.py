@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import sys
+from typing import NoReturn
 
 import typer
 from rich.console import Console
@@ -12,7 +13,7 @@ err = Console(stderr=True, highlight=False, width=None if sys.stderr.isatty() el
 out = Console(highlight=False, width=None if sys.stdout.isatty() else 160)
 
 
-def fail(message: str, code: int) -> None:
+def fail(message: str, code: int) -> NoReturn:
     """Print ``error: message`` on standard error and exit with ``code``."""
     err.print(f"[bold red]error:[/] {message}")
     raise typer.Exit(code)

@@ -7,6 +7,7 @@ from typing import Annotated
 
 import typer
 
+from ..base.errors import AuditorError
 from .console import fail, out
 
 
@@ -15,9 +16,9 @@ def demo(
     examples: Annotated[
         Path | None, typer.Option("--examples", help="Folder with examples.toml and the geometries.")
     ] = None,
-):
+) -> None:
     """Audit the bundled example geometries and write their reports (and an index)."""
-    from ..base.errors import AuditorError
+    # heavy (numpy, pyscf, matplotlib): imported when the command runs, see the package docstring
     from ..gate.demo import find_examples, run_demo
     from ..report.terminal import print_summary
 

@@ -3,14 +3,25 @@
 from __future__ import annotations
 
 from pathlib import Path
-from typing import Annotated
+from typing import TYPE_CHECKING, Annotated
 
 import typer
 
+from ..base.errors import EXIT_USAGE, AuditorError, UsageError
 from . import options as o
 from .console import err, fail, out
 
+if TYPE_CHECKING:
+    from ..gate.cache import ResultCache
+    from ..gate.engines import DaskEngine, LocalEngine
+    from ..gate.items import GateOptions
+    from ..gate.policy_file import GatePolicy
+    from ..gate.run import GateOutcome
 
+    Engine = LocalEngine | DaskEngine
+
+
+# size: the signature declares one parameter per command-line option
 def gate(
     paths: Annotated[
         list[str],
@@ -86,38 +97,21 @@ def gate(
         ),
     ] = "json",
     quiet: o.Quiet = False,
-):
+) -> None:
     """Audit a set of geometries in parallel and gate it: summary table, JUnit XML, per-item JSON.
 
     Exit codes: 0 every item passes the policy, 1 an item fails, regressed or could not be read, 2 usage error.
     """
-    from ..base.errors import EXIT_USAGE, AuditorError
-
     try:
-        setup = _setup(
-            basis,
-            basis_for,
-            cartesian,
-            unit,
-            ghost,
-            jobs,
-            item_timeout,
-            engine,
-            scheduler,
-            policy_file,
-            caution,
-            fail_level,
-            baseline,
-            drop_decades,
-            cache_dir,
-            no_cache,
-            spectrum,
-            with_remedies,
-            fmt,
+        _check_options(unit, jobs, engine, scheduler, drop_decades, fmt, spectrum, ghost)
+        gate_policy, options = _gate_options(
+            basis, basis_for, cartesian, unit, ghost, policy_file, caution, fail_level, spectrum, with_remedies
         )
+        old = _baseline_rows(baseline)
+        runner = _engine(scheduler, jobs, item_timeout)
+        cache = _cache(cache_dir, no_cache)
     except AuditorError as exc:
         fail(exc.message, EXIT_USAGE)
-    options, runner, cache, gate_policy, old = setup
     try:
         result = _run(paths, options, out_dir, runner, cache, gate_policy, old, drop_decades, fmt == "html", quiet)
     except AuditorError as exc:
@@ -129,36 +123,21 @@ def gate(
     raise typer.Exit(result.exit_code)
 
 
-def _setup(
-    basis,
-    basis_for,
-    cartesian,
-    unit,
-    ghost,
-    jobs,
-    item_timeout,
-    engine,
-    scheduler,
-    policy_file,
-    caution,
-    fail_level,
-    baseline,
-    drop_decades,
-    cache_dir,
-    no_cache,
-    spectrum,
-    with_remedies,
-    fmt,
-):
-    """Check every option; (GateOptions, engine, cache, gate policy, baseline rows)."""
-    from ..base.errors import UsageError
-    from ..gate.baseline import load_baseline
-    from ..gate.cache import ResultCache, default_cache_dir
-    from ..gate.engines import DaskEngine, LocalEngine
-    from ..gate.items import GateOptions
-    from ..gate.policy_file import GatePolicy, load_gate_policy
-    from ..pipeline.run import make_spec
+# The package modules below are imported inside the functions that use them: `auditor gate`
+# starts its worker processes before numpy and pyscf load in this process.
 
+
+def _check_options(
+    unit: str,
+    jobs: int | None,
+    engine: str,
+    scheduler: str | None,
+    drop_decades: float | None,
+    fmt: str,
+    spectrum: str,
+    ghost: str | None,
+) -> None:
+    """Raise a UsageError for the first option value that cannot work."""
     o.check_unit(unit)
     if jobs is not None and jobs < 1:
         raise UsageError(f"--jobs must be at least 1, got {jobs}")
@@ -172,6 +151,25 @@ def _setup(
         raise UsageError(f"--format must be json or html, got {fmt!r}")
     o.check_spectrum_method(spectrum)
     o.check_ghost(ghost)
+
+
+def _gate_options(
+    basis: str,
+    basis_for: list[str] | None,
+    cartesian: bool,
+    unit: str,
+    ghost: str | None,
+    policy_file: Path | None,
+    caution: float | None,
+    fail_level: float | None,
+    spectrum: str,
+    with_remedies: bool,
+) -> tuple[GatePolicy, GateOptions]:
+    """The gate policy (from the policy file, if any) and what every item is audited with."""
+    from ..gate.items import GateOptions
+    from ..gate.policy_file import GatePolicy, load_gate_policy
+    from ..pipeline.run import make_spec
+
     gate_policy = load_gate_policy(policy_file) if policy_file else GatePolicy()
     options = GateOptions(
         make_spec(basis, basis_for, cartesian),
@@ -181,18 +179,45 @@ def _setup(
         spectrum,
         with_remedies,
     )
-    old = load_baseline(baseline) if baseline else None
-    if engine == "dask":
+    return gate_policy, options
+
+
+def _baseline_rows(baseline: Path | None) -> dict | None:
+    from ..gate.baseline import load_baseline
+
+    return load_baseline(baseline) if baseline else None
+
+
+def _engine(scheduler: str | None, jobs: int | None, item_timeout: float | None) -> Engine:
+    """The Dask engine when a scheduler is given (_check_options makes --engine dask and
+    --scheduler go together), else local worker processes."""
+    from ..gate.engines import DaskEngine, LocalEngine
+
+    if scheduler:
         if item_timeout:
             err.print("note: --item-timeout is not enforced on the Dask engine")
-        runner = DaskEngine(scheduler)
-    else:
-        runner = LocalEngine(jobs, item_timeout)
-    cache = None if no_cache else ResultCache(cache_dir or default_cache_dir())
-    return options, runner, cache, gate_policy, old
+        return DaskEngine(scheduler)
+    return LocalEngine(jobs, item_timeout)
 
 
-def _run(paths, options, out_dir, runner, cache, gate_policy, old, drop_decades, html, quiet):
+def _cache(cache_dir: Path | None, no_cache: bool) -> ResultCache | None:
+    from ..gate.cache import ResultCache, default_cache_dir
+
+    return None if no_cache else ResultCache(cache_dir or default_cache_dir())
+
+
+def _run(
+    paths: list[str],
+    options: GateOptions,
+    out_dir: Path,
+    runner: Engine,
+    cache: ResultCache | None,
+    gate_policy: GatePolicy,
+    old: dict | None,
+    drop_decades: float | None,
+    html: bool,
+    quiet: bool,
+) -> GateOutcome:
     """run_gate with a progress bar on a terminal."""
     from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeRemainingColumn
 
@@ -218,7 +243,7 @@ def _run(paths, options, out_dir, runner, cache, gate_policy, old, drop_decades,
         )
 
 
-def _report(result, cache, out_dir, worst, quiet) -> None:
+def _report(result: GateOutcome, cache: ResultCache | None, out_dir: Path, worst: int, quiet: bool) -> None:
     """Errors on standard error; the worst items, improvements and counts on standard output."""
     from ..report.rows import item_label
     from ..report.terminal import worst_table

@@ -2,9 +2,14 @@
 
 from __future__ import annotations
 
-from typing import Annotated
+from typing import TYPE_CHECKING, Annotated
 
 import typer
+
+from ..base.errors import UsageError
+
+if TYPE_CHECKING:
+    from ..remedies.plan import RemedyOptions
 
 Basis = Annotated[str, typer.Option("--basis", "-b", help="Basis name pyscf knows, or a basis file (NWChem format).")]
 BasisFor = Annotated[
@@ -45,15 +50,11 @@ Quiet = Annotated[bool, typer.Option("--quiet", "-q", help="Print nothing but er
 
 
 def check_unit(unit: str) -> None:
-    from ..base.errors import UsageError
-
     if unit.lower() not in ("angstrom", "bohr"):
         raise UsageError(f"--unit must be angstrom or bohr, got {unit!r}")
 
 
 def check_spectrum_method(method: str) -> None:
-    from ..base.errors import UsageError
-
     if method not in ("auto", "full", "large"):
         raise UsageError(f"--spectrum must be auto, full or large, got {method!r}")
 
@@ -65,9 +66,10 @@ def check_ghost(ghost: str | None) -> None:
         parse_atom_numbers(ghost)
 
 
-def remedy_options(target, trial_scf, trial_max_functions, trial_seconds):
+def remedy_options(
+    target: float | None, trial_scf: str | None, trial_max_functions: int, trial_seconds: float
+) -> RemedyOptions:
     """RemedyOptions from the command line, every value checked."""
-    from ..base.errors import UsageError
     from ..remedies.plan import RemedyOptions
     from ..remedies.subset import check_target
     from ..remedies.trial_scf import check_method

@@ -7,10 +7,12 @@ from typing import Annotated
 
 import typer
 
+from ..base.errors import AuditorError, UsageError
 from . import options as o
 from .console import fail, out
 
 
+# size: the signature declares one parameter per command-line option
 def prune(
     geometry: Annotated[Path, typer.Argument(help="XYZ / extended XYZ file.")],
     basis: o.Basis,
@@ -32,14 +34,14 @@ def prune(
     trial_max_functions: o.TrialMaxFunctions = 400,
     trial_seconds: o.TrialSeconds = 120.0,
     quiet: o.Quiet = False,
-):
+) -> None:
     """Write a shell-pruned basis that reaches a target smallest eigenvalue, the canonical
     orthogonalization matrix X, and a Markdown explanation.
 
     Exit codes: 0 written, 2 usage error (bad target, a pruning that empties an atom),
     3 unreadable input, 5 internal error.
     """
-    from ..base.errors import AuditorError, UsageError
+    # heavy (numpy, pyscf, matplotlib): imported when the command runs, see the package docstring
     from ..base.files import protect
     from ..diagnosis.verdict import Policy
     from ..inputs.geometry import load_molecules

@@ -13,13 +13,23 @@ import json
 import math
 from html import escape
 from pathlib import Path
+from typing import TYPE_CHECKING, Any
 
-from ..base.elements import L_LETTERS
 from ..base.files import atomic_write
 from ..base.jsonio import clean
 from ..diagnosis.findings import SEVERITY_ORDER
 from .style import PAGE_CSS
-from .text import vectors_note
+from .text import (
+    FunctionSubsetView,
+    RemediesView,
+    ShellPruningView,
+    TrialView,
+    remedies_view,
+    vectors_note,
+)
+
+if TYPE_CHECKING:
+    from ..pipeline.result import AuditResult
 
 CSS = (
     PAGE_CSS
@@ -52,22 +62,23 @@ pre { background: var(--band); border: 1px solid var(--line); border-radius: 4px
 code { font-size: 0.92em; }
 ul.caveats li { margin-bottom: 4px; }
 details summary { cursor: pointer; color: var(--accent); margin: 4px 0; }
-@media print { nav { display: none; } main { max-width: none; } h2 { break-after: avoid; } figure { break-inside: avoid; } }
 """
+    + "@media print { nav { display: none; } main { max-width: none; } h2 { break-after: avoid; } "
+    + "figure { break-inside: avoid; } }\n"
 )
 
 
-def _d(result) -> dict:
+def _d(result: AuditResult | dict) -> dict:
     return clean(result if isinstance(result, dict) else result.as_dict())
 
 
-def _value_attr(value) -> str:
+def _value_attr(value: Any) -> str:
     if value is None or (isinstance(value, float) and not math.isfinite(value)):
         return "null"
     return json.dumps(value)
 
 
-def num(key: str, value, spec: str = ".3e", none: str = "not computed") -> str:
+def num(key: str, value: Any, spec: str = ".3e", none: str = "not computed") -> str:
     """A number as shown, tagged with its JSON path and full value."""
     if value is None or (isinstance(value, float) and not math.isfinite(value)):
         shown = none
@@ -88,7 +99,7 @@ def _img(png: bytes | None, alt: str, caption: str) -> str:
     )
 
 
-def _atoms_text(atoms, limit: int = 12) -> str:
+def _atoms_text(atoms: list, limit: int = 12) -> str:
     text = ", ".join(str(a) for a in atoms[:limit])
     return text + (" …" if len(atoms) > limit else "")
 
@@ -195,7 +206,8 @@ def _causes_tables(d: dict, limit: int = 12) -> str:
         for i, s in enumerate(c["shells"][:limit])
     )
     lrows = "".join(
-        f'<tr><td>{escape(str(x["l"]))}</td><td class="n">{num(f"causes.angular.{i}.weight", x["weight"], ".3f")}</td></tr>'
+        f"<tr><td>{escape(str(x['l']))}</td>"
+        f'<td class="n">{num(f"causes.angular.{i}.weight", x["weight"], ".3f")}</td></tr>'
         for i, x in enumerate(c["angular"])
     )
     return (
@@ -210,7 +222,8 @@ def _causes_tables(d: dict, limit: int = 12) -> str:
 
 
 def _findings(d: dict) -> str:
-    fs = sorted(enumerate(d["findings"]), key=lambda p: (SEVERITY_ORDER.get(p[1]["severity"], 3), p[0]))
+    last = len(SEVERITY_ORDER)  # an unknown severity after the known ones
+    fs = sorted(enumerate(d["findings"]), key=lambda p: (SEVERITY_ORDER.get(p[1]["severity"], last), p[0]))
     if not fs:
         return "<p>No geometry defects, duplicate functions or crowded diffuse shells were found.</p>"
     rows = "".join(
@@ -257,7 +270,7 @@ def _label(key: str) -> str:
     return escape(str(key).replace("_", " "))
 
 
-def _generic(value, key: str, depth: int = 0) -> str:
+def _generic(value: Any, key: str, depth: int = 0) -> str:
     """Any JSON value as HTML: dicts as two-column tables, lists of records as tables."""
     if isinstance(value, bool) or value is None:
         return escape({True: "yes", False: "no", None: "—"}[value])
@@ -295,20 +308,6 @@ def _generic(value, key: str, depth: int = 0) -> str:
 
 
 MAX_REMEDY_ROWS = 40
-_KNOWN_REMEDY_KEYS = {
-    "target",
-    "needed",
-    "alternatives",
-    "problems",
-    "cholesky_shells",
-    "cholesky_functions",
-    "diffuse_by_element",
-    "trial_scf",
-}
-
-
-def _yes(flag) -> str:
-    return {True: "yes", False: "no"}.get(flag, "—")
 
 
 def _capped_table(n_all: int, what: str, heads: list[str], rows: str) -> str:
@@ -328,168 +327,173 @@ def _fold(n_rows: int, what: str, table: str) -> str:
     return f"<details{state}><summary>{n_rows} {escape(what)}</summary>{table}</details>"
 
 
-def _l(x) -> str:
-    return L_LETTERS[x] if isinstance(x, int) and 0 <= x < len(L_LETTERS) else str(x)
-
-
-def _where(r: dict) -> str:
-    return f"{escape(str(r['element']))}{r['atom']}{' (ghost)' if r.get('ghost') else ''} {escape(str(r['shell']))}"
-
-
 def _remedies(d: dict) -> str:
     rem = d.get("remedies")
-    if not rem:
-        return ""
-    if not isinstance(rem, dict):
+    if rem and not isinstance(rem, dict):
         return '<h2 id="remedies">Remedies</h2>' + _generic(rem, "remedies")
+    view = remedies_view(rem)
+    if view is None:
+        return ""
     n = d["input"]["n_functions"]
-    out = ['<h2 id="remedies">Remedies</h2>']
-    alts = rem.get("alternatives") or []
-    target = num("remedies.target", rem.get("target"), ".1e")
-    if not rem.get("needed") and not alts:
-        out.append(f"<p>The smallest eigenvalue already reaches the target {target}; nothing needs removing.</p>")
-    else:
+    out = ['<h2 id="remedies">Remedies</h2>', _alternatives(view, n)]
+    out += [f"<p>{escape(problem)}</p>" for problem in view.problems]
+    if view.shells:
+        out += _dropped_shells(view.shells, n)
+    if view.functions:
+        out += _dropped_functions(view.functions, n)
+    if view.diffuse_by_element:
         out.append(
-            f"<p>Each remedy below is judged by whether the smallest eigenvalue of what it keeps reaches "
-            f"the target {target}; those that do come first, then those that remove least.</p>"
+            "<h3>Diffuse shells by element</h3>" + _generic(view.diffuse_by_element, "remedies.diffuse_by_element")
         )
-        rows = "".join(
-            f'<tr><td class="n">{num(f"remedies.alternatives.{i}.rank", a.get("rank"), "d", "")}</td>'
-            f"<td>{escape(str(a.get('title', a.get('kind', ''))))}</td>"
-            f'<td class="n">{num(f"remedies.alternatives.{i}.removed", a.get("removed"), "d", "?")} '
-            f"{escape(str(a.get('unit', '')))}</td>"
-            f'<td class="n">{num(f"remedies.alternatives.{i}.smallest_after", a.get("smallest_after"))}</td>'
-            f"<td>{_yes(a.get('reaches_target'))}</td><td>{escape(str(a.get('how', '')))}</td></tr>"
-            for i, a in enumerate(alts)
-        )
-        out.append(
-            '<table><tr><th class="n">rank</th><th>remedy</th>'
-            f'<th class="n">removes (of {n})</th><th class="n">smallest eigenvalue after</th>'
-            f"<th>reaches target</th><th>how</th></tr>{rows}</table>"
-        )
-    for prob in rem.get("problems") or []:
-        out.append(f"<p>Not available: {escape(str(prob))}.</p>")
-    sh = rem.get("cholesky_shells")
-    if sh:
-        how = (
-            "Pivoted Cholesky over whole shells"
-            if sh.get("chosen_by") == "shell pivoting"
-            else "Keeping the shells that the pivoted-Cholesky subset of functions leaves whole"
-        )
-        out.append(
-            f"<h3>Shell-pruned basis</h3><p>{how} (tolerance "
-            f"{num('remedies.cholesky_shells.tolerance', sh.get('tolerance'), '.2e')}) keeps "
-            f"{num('remedies.cholesky_shells.kept', sh.get('kept'), 'd')} of {n} functions; the smallest "
-            f"eigenvalue of the kept set is "
-            f"{num('remedies.cholesky_shells.smallest_kept', sh.get('smallest_kept'))}. Shells dropped:</p>"
-        )
-        dropped = sh.get("dropped_shells") or []
-        rows = "".join(
-            f"<tr><td>{_where(x)}</td><td>{escape(_l(x['l']))}</td>"
-            f'<td class="n">{num(f"remedies.cholesky_shells.dropped_shells.{i}.exponent", x["exponent"], ".4g")}</td>'
-            f"<td>{'yes' if x.get('diffuse') else ''}</td>"
-            f'<td class="n">{num(f"remedies.cholesky_shells.dropped_shells.{i}.functions", x["functions"], "d")}</td></tr>'
-            for i, x in enumerate(dropped[:MAX_REMEDY_ROWS])
-        )
-        out.append(
-            _capped_table(
-                len(dropped),
-                "shells dropped",
-                [
-                    "<th>atom and shell</th>",
-                    "<th>l</th>",
-                    '<th class="n">smallest exponent</th>',
-                    "<th>diffuse</th>",
-                    '<th class="n">functions</th>',
-                ],
-                rows,
-            )
-        )
-    fn = rem.get("cholesky_functions")
-    if fn:
-        out.append(
-            f"<h3>Pivoted-Cholesky subset of functions</h3><p>Tolerance "
-            f"{num('remedies.cholesky_functions.tolerance', fn.get('tolerance'), '.2e')}, found in "
-            f"{num('remedies.cholesky_functions.factorizations', fn.get('factorizations'), 'd')} "
-            f"factorization(s); keeps {num('remedies.cholesky_functions.kept', fn.get('kept'), 'd')} of "
-            f"{n} functions. Single functions are dropped, so the basis is no longer rotationally "
-            "invariant. Functions dropped:</p>"
-        )
-        dropped = fn.get("dropped") or []
-        rows = "".join(
-            f'<tr><td class="n">{x["function"]}</td><td>{_where(x)}</td><td>{escape(str(x["component"]))}</td>'
-            f'<td class="n">{num(f"remedies.cholesky_functions.dropped.{i}.exponent", x["exponent"], ".4g")}</td></tr>'
-            for i, x in enumerate(dropped[:MAX_REMEDY_ROWS])
-        )
-        out.append(
-            _capped_table(
-                len(dropped),
-                "functions dropped",
-                [
-                    '<th class="n">function</th>',
-                    "<th>atom and shell</th>",
-                    "<th>component</th>",
-                    '<th class="n">smallest exponent</th>',
-                ],
-                rows,
-            )
-        )
-    if rem.get("diffuse_by_element"):
-        out.append(
-            "<h3>Diffuse shells by element</h3>" + _generic(rem["diffuse_by_element"], "remedies.diffuse_by_element")
-        )
-    tri = rem.get("trial_scf")
-    if tri:
-        out.append('<h3 id="trial-scf">Trial SCF</h3>')
-        if tri.get("skipped"):
-            out.append(f"<p>{escape(str(tri['skipped']))}.</p>")
-        else:
-            out.append(f"<p>Method {escape(str(tri.get('method', '')))}; energies in hartree.</p>")
-            rows = "".join(
-                f"<tr><td>{escape(str(r.get('basis', '')))}</td>"
-                f'<td class="n">{num(f"remedies.trial_scf.runs.{i}.n_functions", r.get("n_functions"), "d")}</td>'
-                f'<td class="n">{num(f"remedies.trial_scf.runs.{i}.directions_removed", r.get("directions_removed"), "d")}</td>'
-                f"<td>{_yes(r.get('converged'))}</td>"
-                f'<td class="n">{num(f"remedies.trial_scf.runs.{i}.cycles", r.get("cycles"), "d", "")}</td>'
-                f'<td class="n">{num(f"remedies.trial_scf.runs.{i}.energy", r.get("energy"), ".8f", "none")}</td>'
-                f'<td class="n">{num(f"remedies.trial_scf.runs.{i}.seconds", r.get("seconds"), ".1f", "")}</td>'
-                f"<td>{escape(str(r.get('note') or ''))}</td></tr>"
-                for i, r in enumerate(tri.get("runs") or [])
-            )
-            out.append(
-                '<table><tr><th>basis</th><th class="n">functions</th><th class="n">directions removed</th>'
-                '<th>converged</th><th class="n">cycles</th><th class="n">energy (hartree)</th>'
-                f'<th class="n">time (s)</th><th>note</th></tr>{rows}</table>'
-            )
-            diff = tri.get("difference_microhartree")
-            if diff is not None:
-                out.append(
-                    f"<p>Pruned basis minus canonical orthogonalization: "
-                    f"{num('remedies.trial_scf.difference_microhartree', diff, '+.1f')} microhartree.</p>"
-                )
-            if tri.get("reminder"):
-                out.append(f"<p>{escape(str(tri['reminder']))}</p>")
-    for k, v in rem.items():
-        if k not in _KNOWN_REMEDY_KEYS and v not in (None, [], {}):
-            out.append(f"<h3>{_label(k).capitalize()}</h3>" + _generic(v, f"remedies.{k}"))
+    if view.trial:
+        out += _trial_scf(view.trial)
+    for k, v in view.others.items():
+        out.append(f"<h3>{_label(k).capitalize()}</h3>" + _generic(v, f"remedies.{k}"))
     return "\n".join(out)
 
 
-def render_html(result, images: dict[str, bytes] | None = None) -> str:
+def _alternatives(view: RemediesView, n: int) -> str:
+    """The ranked remedies (or the sentence that none is needed)."""
+    target = num("remedies.target", view.target, ".1e")
+    if view.nothing_needed:
+        return f"<p>The smallest eigenvalue already reaches the target {target}; nothing needs removing.</p>"
+    rows = "".join(
+        f'<tr><td class="n">{num(f"{a.key}.rank", a.rank, "d", "")}</td>'
+        f"<td>{escape(a.title)}</td>"
+        f'<td class="n">{num(f"{a.key}.removed", a.removed, "d", "?")} {escape(a.unit)}</td>'
+        f'<td class="n">{num(f"{a.key}.smallest_after", a.smallest_after)}</td>'
+        f"<td>{a.reaches}</td><td>{escape(a.how)}</td></tr>"
+        for a in view.alternatives
+    )
+    return (
+        f"<p>Each remedy below is judged by whether the smallest eigenvalue of what it keeps reaches "
+        f"the target {target}; those that do come first, then those that remove least.</p>\n"
+        '<table><tr><th class="n">rank</th><th>remedy</th>'
+        f'<th class="n">removes (of {n})</th><th class="n">smallest eigenvalue after</th>'
+        f"<th>reaches target</th><th>how</th></tr>{rows}</table>"
+    )
+
+
+def _dropped_shells(sh: ShellPruningView, n: int) -> list[str]:
+    how = (
+        "Pivoted Cholesky over whole shells"
+        if sh.by_shell_pivoting
+        else "Keeping the shells that the pivoted-Cholesky subset of functions leaves whole"
+    )
+    intro = (
+        f"<h3>Shell-pruned basis</h3><p>{how} (tolerance "
+        f"{num(f'{sh.key}.tolerance', sh.tolerance, '.2e')}) keeps "
+        f"{num(f'{sh.key}.kept', sh.kept, 'd')} of {n} functions; the smallest "
+        f"eigenvalue of the kept set is "
+        f"{num(f'{sh.key}.smallest_kept', sh.smallest_kept)}. Shells dropped:</p>"
+    )
+    rows = "".join(
+        f"<tr><td>{escape(x.where)}</td><td>{escape(x.l_letter)}</td>"
+        f'<td class="n">{num(f"{x.key}.exponent", x.exponent, ".4g")}</td>'
+        f"<td>{x.diffuse_mark}</td>"
+        f'<td class="n">{num(f"{x.key}.functions", x.functions, "d")}</td></tr>'
+        for x in sh.dropped[:MAX_REMEDY_ROWS]
+    )
+    heads = [
+        "<th>atom and shell</th>",
+        "<th>l</th>",
+        '<th class="n">smallest exponent</th>',
+        "<th>diffuse</th>",
+        '<th class="n">functions</th>',
+    ]
+    return [intro, _capped_table(len(sh.dropped), "shells dropped", heads, rows)]
+
+
+def _dropped_functions(fn: FunctionSubsetView, n: int) -> list[str]:
+    intro = (
+        f"<h3>Pivoted-Cholesky subset of functions</h3><p>Tolerance "
+        f"{num(f'{fn.key}.tolerance', fn.tolerance, '.2e')}, found in "
+        f"{num(f'{fn.key}.factorizations', fn.factorizations, 'd')} "
+        f"factorization(s); keeps {num(f'{fn.key}.kept', fn.kept, 'd')} of "
+        f"{n} functions. Single functions are dropped, so the basis is no longer rotationally "
+        "invariant. Functions dropped:</p>"
+    )
+    rows = "".join(
+        f'<tr><td class="n">{x.function}</td><td>{escape(x.where)}</td><td>{escape(x.component)}</td>'
+        f'<td class="n">{num(f"{x.key}.exponent", x.exponent, ".4g")}</td></tr>'
+        for x in fn.dropped[:MAX_REMEDY_ROWS]
+    )
+    heads = [
+        '<th class="n">function</th>',
+        "<th>atom and shell</th>",
+        "<th>component</th>",
+        '<th class="n">smallest exponent</th>',
+    ]
+    return [intro, _capped_table(len(fn.dropped), "functions dropped", heads, rows)]
+
+
+def _trial_scf(tri: TrialView) -> list[str]:
+    out = ['<h3 id="trial-scf">Trial SCF</h3>']
+    if tri.skipped:
+        return out + [f"<p>{escape(tri.skipped)}.</p>"]
+    out.append(f"<p>Method {escape(tri.method)}; energies in hartree.</p>")
+    rows = "".join(
+        f"<tr><td>{escape(r.basis)}</td>"
+        f'<td class="n">{num(f"{r.key}.n_functions", r.n_functions, "d")}</td>'
+        f'<td class="n">{num(f"{r.key}.directions_removed", r.directions_removed, "d")}</td>'
+        f"<td>{r.converged_text}</td>"
+        f'<td class="n">{num(f"{r.key}.cycles", r.cycles, "d", "")}</td>'
+        f'<td class="n">{num(f"{r.key}.energy", r.energy, ".8f", "none")}</td>'
+        f'<td class="n">{num(f"{r.key}.seconds", r.seconds, ".1f", "")}</td>'
+        f"<td>{escape(r.note)}</td></tr>"
+        for r in tri.runs
+    )
+    out.append(
+        '<table><tr><th>basis</th><th class="n">functions</th><th class="n">directions removed</th>'
+        '<th>converged</th><th class="n">cycles</th><th class="n">energy (hartree)</th>'
+        f'<th class="n">time (s)</th><th>note</th></tr>{rows}</table>'
+    )
+    if tri.difference_microhartree is not None:
+        out.append(
+            f"<p>Pruned basis minus canonical orthogonalization: "
+            f"{num(f'{tri.key}.difference_microhartree', tri.difference_microhartree, '+.1f')} microhartree.</p>"
+        )
+    if tri.reminder:
+        out.append(f"<p>{escape(tri.reminder)}</p>")
+    return out
+
+
+def render_html(result: AuditResult | dict, images: dict[str, bytes] | None = None) -> str:
     """The HTML text of one result. ``images`` maps "spectrum", "causes" and "molecule" to
     PNG bytes; when None they are drawn here."""
     d = _d(result)
     if images is None:
+        # matplotlib loads only when the figures are drawn here (callers usually pass them)
         from .plots import report_plots
 
         images = report_plots(d)
-    inp, verdict = d["input"], str(d["verdict"])
-    name = Path(inp["path"]).name
-    frame = f", frame {inp['frame']} of {inp['n_frames']}" if inp["n_frames"] > 1 else ""
-    title = f"Basis overlap audit: {name}{frame}"
-    ghosts = f", {len(inp['ghost_atoms'])} of them ghost atoms" if inp["ghost_atoms"] else ""
-    vec_note = vectors_note(d)
     sections = [
+        *_page_top(d),
+        *_figure_sections(d, images),
+        '<h2 id="findings">Findings</h2>',
+        _findings(d),
+        '<h2 id="advice">Canonical orthogonalization</h2>',
+        _advice(d),
+        _remedies(d),
+        '<h2 id="caveats">Read before acting</h2>',
+        '<ul class="caveats">' + "".join(f"<li>{escape(x)}</li>" for x in d["caveats"]) + "</ul>",
+        (
+            f"<footer>auditor {escape(str(d['version']))}, report schema {escape(str(d['schema']))}. "
+            "This page is self-contained: the figures are embedded and nothing is fetched from the network.</footer>"
+        ),
+        "</main></body></html>",
+        "",
+    ]
+    return "\n".join(s for s in sections if s)
+
+
+def _page_top(d: dict) -> list[str]:
+    """Head, title, subtitle, navigation and the verdict box."""
+    inp, verdict = d["input"], str(d["verdict"])
+    frame = f", frame {inp['frame']} of {inp['n_frames']}" if inp["n_frames"] > 1 else ""
+    title = f"Basis overlap audit: {Path(inp['path']).name}{frame}"
+    ghosts = f", {len(inp['ghost_atoms'])} of them ghost atoms" if inp["ghost_atoms"] else ""
+    return [
         "<!DOCTYPE html>",
         '<html lang="en"><head><meta charset="utf-8">',
         '<meta name="viewport" content="width=device-width, initial-scale=1">',
@@ -512,6 +516,12 @@ def render_html(result, images: dict[str, bytes] | None = None) -> str:
             f'data-value="{escape(json.dumps(verdict))}">{escape(verdict.upper())}</span>'
             f"<p>{explanation(d)}</p></section>"
         ),
+    ]
+
+
+def _figure_sections(d: dict, images: dict[str, bytes]) -> list[str]:
+    """The spectrum, causes and geometry sections: heading, figure and tables of each."""
+    return [
         '<h2 id="spectrum">Spectrum of the normalized overlap matrix</h2>',
         _img(
             images.get("spectrum"),
@@ -525,7 +535,8 @@ def render_html(result, images: dict[str, bytes] | None = None) -> str:
         _img(
             images.get("causes"),
             "Bar charts of the near-null-space share per atom, per angular momentum and for diffuse shells",
-            f"Share of each atom, angular momentum and shell kind in {escape(vec_note)}; each chart adds up to 1.",
+            f"Share of each atom, angular momentum and shell kind in {escape(vectors_note(d))}; "
+            "each chart adds up to 1.",
         ),
         _causes_tables(d),
         '<h2 id="geometry">Geometry</h2>',
@@ -537,23 +548,9 @@ def render_html(result, images: dict[str, bytes] | None = None) -> str:
             "red dashed lines or rings mark coincident atoms and short contacts from the findings.",
         ),
         _input_table(d),
-        '<h2 id="findings">Findings</h2>',
-        _findings(d),
-        '<h2 id="advice">Canonical orthogonalization</h2>',
-        _advice(d),
-        _remedies(d),
-        '<h2 id="caveats">Read before acting</h2>',
-        '<ul class="caveats">' + "".join(f"<li>{escape(x)}</li>" for x in d["caveats"]) + "</ul>",
-        (
-            f"<footer>auditor {escape(str(d['version']))}, report schema {escape(str(d['schema']))}. "
-            "This page is self-contained: the figures are embedded and nothing is fetched from the network.</footer>"
-        ),
-        "</main></body></html>",
-        "",
     ]
-    return "\n".join(s for s in sections if s)
 
 
-def write_html(result, path: Path, images: dict[str, bytes] | None = None) -> Path:
+def write_html(result: AuditResult | dict, path: Path, images: dict[str, bytes] | None = None) -> Path:
     atomic_write(path, render_html(result, images))
     return path

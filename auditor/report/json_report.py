@@ -3,12 +3,16 @@
 from __future__ import annotations
 
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from ..base.files import atomic_write
 from ..base.jsonio import dumps
 
+if TYPE_CHECKING:
+    from ..pipeline.result import AuditResult
 
-def to_json(result, compact: bool = False) -> str:
+
+def to_json(result: AuditResult, compact: bool = False) -> str:
     """Deterministic JSON text of a result (non-finite numbers become null).
 
     ``compact``: one line without indentation (what ``gate`` stores per item; about
@@ -21,6 +25,6 @@ def dumps_result(data: dict, compact: bool = False) -> str:
     return dumps(data, compact)
 
 
-def write_json(result, path: Path) -> Path:
+def write_json(result: AuditResult, path: Path) -> Path:
     atomic_write(path, to_json(result))
     return path

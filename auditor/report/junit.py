@@ -57,17 +57,10 @@ def junit_xml(rows: list[dict], suite: str = "auditor gate", seconds: dict | Non
             ET.SubElement(case, "system-out").text = _details(r)
         cases.append(case)
     total = sum(seconds.values())
-    root = ET.Element(
-        "testsuites", name=suite, tests=str(len(rows)), time=f"{total:.3f}", **{k: str(v) for k, v in counts.items()}
-    )
-    ts = ET.SubElement(
-        root,
-        "testsuite",
-        name=suite,
-        tests=str(len(rows)),
-        time=f"{total:.3f}",
-        **{k: str(v) for k, v in counts.items()},
-    )
+    attributes = {"name": suite, "tests": str(len(rows)), "time": f"{total:.3f}"}
+    attributes.update({k: str(v) for k, v in counts.items()})
+    root = ET.Element("testsuites", attributes)
+    ts = ET.SubElement(root, "testsuite", attributes)
     ts.extend(cases)
     ET.indent(root)
     return ET.tostring(root, encoding="unicode", xml_declaration=True) + "\n"

@@ -3,27 +3,52 @@
 from __future__ import annotations
 
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from ..base.files import atomic_write
+from .text import FunctionSubsetView, RemediesView, ShellPruningView, TrialView, remedies_view
+
+if TYPE_CHECKING:
+    from ..pipeline.result import AuditResult
 
 MAX_ROWS = 10
+MAX_REMEDY_ROWS = 2 * MAX_ROWS
 
 
-def _fmt(x, spec=".3e", none="not computed"):
+def _fmt(x: float | None, spec: str = ".3e", none: str = "not computed") -> str:
     return none if x is None else format(x, spec)
 
 
-def _atoms(atoms) -> str:
+def _atoms(atoms: list) -> str:
     return ", ".join(str(a) for a in atoms[:12]) + (" ..." if len(atoms) > 12 else "")
 
 
-def render_markdown(r, extra_sections: list[str] | None = None) -> str:
-    """The Markdown text of result ``r`` (an AuditResult)."""
-    d = r.as_dict()
-    inp, sp, rec = d["input"], d["spectrum"], d["recommendation"]
+def render_markdown(r: AuditResult | dict, extra_sections: list[str] | None = None) -> str:
+    """The Markdown text of result ``r`` (an AuditResult or its JSON dictionary)."""
+    d = r if isinstance(r, dict) else r.as_dict()
+    n_functions = d["input"]["n_functions"]
+    lines = _heading_lines(d)
+    lines += _spectrum_lines(d["spectrum"])
+    lines += _findings_lines(d["findings"])
+    lines += _causes_lines(d["causes"])
+    lines += _orthogonalization_lines(d["recommendation"], n_functions)
+    lines += remedies_lines(d.get("remedies"), n_functions)
+    lines += extra_sections or []
+    lines += caveat_lines(d)
+    lines += [f"<sub>auditor {d['version']}, report schema {d['schema']}</sub>", ""]
+    return "\n".join(lines)
+
+
+def caveat_lines(d: dict) -> list[str]:
+    """The "Read before acting" section: the caveats every report carries."""
+    return ["## Read before acting", ""] + [f"- {c}" for c in d["caveats"]] + [""]
+
+
+def _heading_lines(d: dict) -> list[str]:
+    inp = d["input"]
     frame = f", frame {inp['frame']} of {inp['n_frames']}" if inp["n_frames"] > 1 else ""
     ghosts = f"; ghost atoms {_atoms(inp['ghost_atoms'])}" if inp["ghost_atoms"] else ""
-    lines = [
+    return [
         f"# Basis overlap audit: {Path(inp['path']).name}{frame}",
         "",
         f"**Verdict: {d['verdict'].upper()}**: {d['verdict_reason']}.",
@@ -33,6 +58,12 @@ def render_markdown(r, extra_sections: list[str] | None = None) -> str:
         f"Levels: caution below {d['policy']['caution']:.0e}, fail below {d['policy']['fail']:.0e} "
         "(smallest eigenvalue of the unit-diagonal overlap matrix).",
         "",
+    ]
+
+
+def _spectrum_lines(sp: dict) -> list[str]:
+    counts = sp["counts_below"]
+    return [
         "## Spectrum of the normalized overlap matrix",
         "",
         "| quantity | value |",
@@ -44,21 +75,25 @@ def render_markdown(r, extra_sections: list[str] | None = None) -> str:
         f"| Gershgorin lower bound | {sp['gershgorin_bound']:.3f} |",
         f"| method | {sp['method']} |",
         "",
-        "| below | " + " | ".join(sp["counts_below"]) + " |",
-        "|---" * (len(sp["counts_below"]) + 1) + "|",
-        "| eigenvalues | " + " | ".join("n/c" if v is None else str(v) for v in sp["counts_below"].values()) + " |",
-        "",
-        "## Findings",
+        "| below | " + " | ".join(counts) + " |",
+        "|---" * (len(counts) + 1) + "|",
+        "| eigenvalues | " + " | ".join("n/c" if v is None else str(v) for v in counts.values()) + " |",
         "",
     ]
-    if d["findings"]:
-        lines += ["| severity | kind | atoms | what it means |", "|---|---|---|---|"]
-        for f in d["findings"]:
-            lines.append(f"| {f['severity']} | `{f['kind']}` | {_atoms(f['atoms'])} | {f['message']} |")
-    else:
-        lines.append("No geometry defects, duplicate functions or crowded diffuse shells were found.")
-    c = d["causes"]
-    lines += [
+
+
+def _findings_lines(findings: list[dict]) -> list[str]:
+    lines = ["## Findings", ""]
+    if not findings:
+        return lines + ["No geometry defects, duplicate functions or crowded diffuse shells were found."]
+    lines += ["| severity | kind | atoms | what it means |", "|---|---|---|---|"]
+    for f in findings:
+        lines.append(f"| {f['severity']} | `{f['kind']}` | {_atoms(f['atoms'])} | {f['message']} |")
+    return lines
+
+
+def _causes_lines(c: dict) -> list[str]:
+    lines = [
         "",
         "## Where the near-null space sits",
         "",
@@ -78,12 +113,16 @@ def render_markdown(r, extra_sections: list[str] | None = None) -> str:
             f"| {s['shell']} | {s['l']} | {s['exponent']:.4g} | {'yes' if s['diffuse'] else ''} | {s['weight']:.3f} |"
         )
     lines += ["", "By angular momentum: " + ", ".join(f"{x['l']} {x['weight']:.3f}" for x in c["angular"]) + "."]
-    lines += [
+    return lines
+
+
+def _orthogonalization_lines(rec: dict, n_functions: int) -> list[str]:
+    lines = [
         "",
         "## Canonical orthogonalization",
         "",
         f"Suggested threshold **{rec['threshold']:.1e}**: {rec['reason']}. "
-        f"It removes {_fmt(rec['n_removed'], 'd')} of {inp['n_functions']} functions; the smallest kept "
+        f"It removes {_fmt(rec['n_removed'], 'd')} of {n_functions} functions; the smallest kept "
         f"eigenvalue is {_fmt(rec['smallest_kept'])} and the largest element of the transformation "
         f"X = U Λ^-1/2 is {_fmt(rec['max_transform_element'], '.1f')}.",
         "",
@@ -95,110 +134,111 @@ def render_markdown(r, extra_sections: list[str] | None = None) -> str:
             f"| {cand['threshold']:.0e} | {_fmt(cand['n_removed'], 'd')} | "
             f"{_fmt(cand['smallest_kept'])} | {_fmt(cand['max_transform_element'], '.1f')} |"
         )
-    lines += ["", "To apply it in pyscf:", "", "```python", rec["how_to"], "```", ""]
-    lines += remedies_lines(d.get("remedies"), inp["n_functions"])
-    lines += extra_sections or []
-    lines += ["## Read before acting", ""] + [f"- {c}" for c in d["caveats"]] + [""]
-    lines += [f"<sub>auditor {d['version']}, report schema {d['schema']}</sub>", ""]
-    return "\n".join(lines)
-
-
-def _where(rec: dict) -> str:
-    ghost = " (ghost)" if rec.get("ghost") else ""
-    return f"{rec['element']}{rec['atom']}{ghost} {rec['shell']}"
+    return lines + ["", "To apply it in pyscf:", "", "```python", rec["how_to"], "```", ""]
 
 
 def remedies_lines(rem: dict | None, n_functions: int) -> list[str]:
     """The "Remedies" section: ranked alternatives, what they drop, the trial SCF."""
-    if not rem:
+    view = remedies_view(rem)
+    if view is None:
         return []
     lines = ["## Remedies", ""]
-    if not rem["needed"] and not rem["alternatives"]:
+    if view.nothing_needed:
         return lines + [
-            f"The smallest eigenvalue already meets the target {rem['target']:.1e}; nothing needs removing.",
+            f"The smallest eigenvalue already meets the target {view.target:.1e}; nothing needs removing.",
             "",
         ]
-    lines += [
-        f"Ranked by whether they reach the target smallest eigenvalue {rem['target']:.1e}, then by how "
+    lines += _alternative_lines(view, n_functions)
+    for problem in view.problems:
+        lines += [problem, ""]
+    if view.shells:
+        lines += _dropped_shell_lines(view.shells)
+    if view.functions:
+        lines += _dropped_function_lines(view.functions)
+    if view.trial:
+        lines += _trial_lines(view.trial)
+    return lines + [
+        "Removing functions or directions changes total energies, and the target and thresholds are "
+        "judgement calls (see below).",
+        "",
+    ]
+
+
+def _alternative_lines(view: RemediesView, n_functions: int) -> list[str]:
+    lines = [
+        f"Ranked by whether they reach the target smallest eigenvalue {view.target:.1e}, then by how "
         "little they remove.",
         "",
         "| rank | remedy | removes | smallest eigenvalue after | reaches target | how |",
         "|---|---|---|---|---|---|",
     ]
-    for a in rem["alternatives"]:
-        removed = "?" if a["removed"] is None else f"{a['removed']} {a['unit']}"
+    for a in view.alternatives:
         lines.append(
-            f"| {a['rank']} | {a['title']} | {removed} of {n_functions} | "
-            f"{_fmt(a['smallest_after'])} | {'yes' if a['reaches_target'] else 'no'} | {a['how']} |"
+            f"| {a.rank} | {a.title} | {a.removed_text} of {n_functions} | "
+            f"{_fmt(a.smallest_after)} | {a.reaches} | {a.how} |"
         )
-    lines.append("")
-    for p in rem.get("problems", []):
-        lines += [f"Not available: {p}.", ""]
-    sh = rem.get("cholesky_shells")
-    if sh:
-        how = (
-            "pivoted Cholesky over whole shells"
-            if sh.get("chosen_by") == "shell pivoting"
-            else "shells the pivoted-Cholesky subset of functions leaves whole"
-        )
-        lines += [
-            f"Shells the pruned basis drops ({how}, tolerance {sh['tolerance']:.2e}, then "
-            f"{sh['added_back']} function(s) offered back; {sh['kept']} functions kept):",
-            "",
-            "| atom shell | l | smallest exponent | diffuse | functions |",
-            "|---|---|---|---|---|",
-        ]
-        for s in sh["dropped_shells"][: MAX_ROWS * 2]:
-            lines.append(
-                f"| {_where(s)} | {s['l']} | {s['exponent']:.4g} | {'yes' if s['diffuse'] else ''} | {s['functions']} |"
-            )
-        if len(sh["dropped_shells"]) > MAX_ROWS * 2:
-            lines.append(f"| ... {len(sh['dropped_shells']) - MAX_ROWS * 2} more (see the JSON report) | | | | |")
-        lines.append("")
-    fn = rem.get("cholesky_functions")
-    if fn:
-        lines += [
-            f"Functions the pivoted-Cholesky subset drops (tolerance {fn['tolerance']:.2e}, then "
-            f"{fn['added_back']} offered back; {fn['factorizations']} Cholesky factorizations):",
-            "",
-            "| function | atom shell | component | l | smallest exponent |",
-            "|---|---|---|---|---|",
-        ]
-        for f in fn["dropped"][: MAX_ROWS * 2]:
-            lines.append(f"| {f['function']} | {_where(f)} | {f['component']} | {f['l']} | {f['exponent']:.4g} |")
-        if len(fn["dropped"]) > MAX_ROWS * 2:
-            lines.append(f"| ... {len(fn['dropped']) - MAX_ROWS * 2} more (see the JSON report) | | | | |")
-        lines.append("")
-    tri = rem.get("trial_scf")
-    if tri:
-        lines += ["### Trial SCF", ""]
-        if tri.get("skipped"):
-            lines += [tri["skipped"] + ".", ""]
-        else:
-            lines += [
-                f"Method {tri['method']}; energies in hartree.",
-                "",
-                "| basis | functions | directions removed | converged | cycles | energy |",
-                "|---|---|---|---|---|---|",
-            ]
-            for run in tri["runs"]:
-                energy = _fmt(run["energy"], ".8f", run.get("note") or "none")
-                lines.append(
-                    f"| {run['basis']} | {run['n_functions']} | {run['directions_removed']} | "
-                    f"{'yes' if run['converged'] else 'no'} | {run['cycles']} | {energy} |"
-                )
-            diff = tri.get("difference_microhartree")
-            if diff is not None:
-                lines += ["", f"Pruned minus canonically orthogonalized: {diff:+.1f} microhartree."]
-            lines.append("")
-    lines += [
-        "Removing functions or directions changes total energies, and the target and thresholds are "
-        "judgement calls (see below).",
+    return lines + [""]
+
+
+def _more_rows(n_rows: int, n_columns: int) -> list[str]:
+    """The last row of a table cut at MAX_REMEDY_ROWS: how many more the JSON report holds."""
+    if n_rows <= MAX_REMEDY_ROWS:
+        return []
+    return [f"| ... {n_rows - MAX_REMEDY_ROWS} more (see the JSON report) |" + " |" * (n_columns - 1)]
+
+
+def _dropped_shell_lines(sh: ShellPruningView) -> list[str]:
+    how = (
+        "pivoted Cholesky over whole shells"
+        if sh.by_shell_pivoting
+        else "shells the pivoted-Cholesky subset of functions leaves whole"
+    )
+    lines = [
+        f"Shells the pruned basis drops ({how}, tolerance {sh.tolerance:.2e}, then "
+        f"{sh.added_back} function(s) offered back; {sh.kept} functions kept):",
         "",
+        "| atom shell | l | smallest exponent | diffuse | functions |",
+        "|---|---|---|---|---|",
     ]
-    return lines
+    for s in sh.dropped[:MAX_REMEDY_ROWS]:
+        lines.append(f"| {s.where} | {s.l} | {s.exponent:.4g} | {s.diffuse_mark} | {s.functions} |")
+    return lines + _more_rows(len(sh.dropped), 5) + [""]
 
 
-def write_markdown(result, path: Path, extra_sections: list[str] | None = None) -> Path:
+def _dropped_function_lines(fn: FunctionSubsetView) -> list[str]:
+    lines = [
+        f"Functions the pivoted-Cholesky subset drops (tolerance {fn.tolerance:.2e}, then "
+        f"{fn.added_back} offered back; {fn.factorizations} Cholesky factorizations):",
+        "",
+        "| function | atom shell | component | l | smallest exponent |",
+        "|---|---|---|---|---|",
+    ]
+    for f in fn.dropped[:MAX_REMEDY_ROWS]:
+        lines.append(f"| {f.function} | {f.where} | {f.component} | {f.l} | {f.exponent:.4g} |")
+    return lines + _more_rows(len(fn.dropped), 5) + [""]
+
+
+def _trial_lines(tri: TrialView) -> list[str]:
+    lines = ["### Trial SCF", ""]
+    if tri.skipped:
+        return lines + [tri.skipped + ".", ""]
+    lines += [
+        f"Method {tri.method}; energies in hartree.",
+        "",
+        "| basis | functions | directions removed | converged | cycles | energy |",
+        "|---|---|---|---|---|---|",
+    ]
+    for run in tri.runs:
+        energy = _fmt(run.energy, ".8f", run.note or "none")
+        lines.append(
+            f"| {run.basis} | {run.n_functions} | {run.directions_removed} | "
+            f"{run.converged_text} | {run.cycles} | {energy} |"
+        )
+    if tri.difference_microhartree is not None:
+        lines += ["", f"Pruned minus canonically orthogonalized: {tri.difference_microhartree:+.1f} microhartree."]
+    return lines + [""]
+
+
+def write_markdown(result: AuditResult | dict, path: Path, extra_sections: list[str] | None = None) -> Path:
     atomic_write(path, render_markdown(result, extra_sections))
     return path

@@ -14,6 +14,7 @@ import json
 import math
 from html import escape
 from pathlib import Path
+from typing import TYPE_CHECKING, Any
 from urllib.parse import quote
 
 from ..base.files import atomic_write
@@ -21,6 +22,9 @@ from .html import write_html
 from .plots import set_histogram_png
 from .rows import OUTCOME_RANK, VERDICT_RANK, _int, _number, _text, _verdict, item_label, rank_key, result_row
 from .style import PAGE_CSS
+
+if TYPE_CHECKING:
+    from ..pipeline.result import AuditResult
 
 WORST_SHOWN = 10
 
@@ -99,13 +103,13 @@ def _link(item: dict, text: str) -> str:
     return f'<a href="{escape(href)}">{escape(text)}</a>'
 
 
-def _cell(value, shown: str, numeric: bool = False) -> str:
+def _cell(value: Any, shown: str, numeric: bool = False) -> str:
     sort = "" if value is None else (repr(float(value)) if numeric else str(value))
     cls = ' class="n"' if numeric else ' class="text"'
     return f'<td{cls} data-sort="{escape(sort)}">{escape(shown)}</td>'
 
 
-def _fmt(x, spec: str) -> str:
+def _fmt(x: float | None, spec: str) -> str:
     if x is None:
         return ""
     if math.isinf(x):
@@ -113,7 +117,7 @@ def _fmt(x, spec: str) -> str:
     return format(x, spec)
 
 
-def _row(rank: int, it: dict, has: set) -> str:
+def _row(rank: int, it: dict, has: set[str]) -> str:
     v = _verdict(it)
     lam = _number(it.get("smallest_eigenvalue"))
     cond = _number(it.get("condition_number"))
@@ -121,10 +125,7 @@ def _row(rank: int, it: dict, has: set) -> str:
     cells = [
         _cell(rank, str(rank), True),
         f'<td class="item" data-sort="{escape(_label(it))}">{_link(it, _label(it))}</td>',
-        (
-            f'<td data-sort="{VERDICT_RANK.get(v, 9)}"><span class="badge v-{escape(v if v in VERDICT_RANK else "other")}">'
-            f"{escape(v)}</span></td>"
-        ),
+        f'<td data-sort="{VERDICT_RANK.get(v, 9)}"><span class="badge v-{_badge_class(v)}">{escape(v)}</span></td>',
     ]
     if "outcome" in has:
         o = _text(it.get("outcome"))
@@ -157,7 +158,7 @@ def _row(rank: int, it: dict, has: set) -> str:
     return "<tr>" + "".join(cells) + "</tr>"
 
 
-def _header(has: set) -> str:
+def _header(has: set[str]) -> str:
     cols = [("#", "num"), ("item", "text"), ("verdict", "num")]
     if "outcome" in has:
         cols.append(("gate", "num"))
@@ -190,59 +191,9 @@ def render_set_index(
 ) -> str:
     """The HTML text of the set index (see the module docstring for ``items``)."""
     items = sorted(items, key=rank_key)
-    has = {
-        k
-        for it in items
-        for k in ("outcome", "condition_number", "n_atoms", "basis", "top_atom", "threshold", "n_removed")
-        if _text(it.get(k))
-    }
-    # a column with one value for every item says it once, above the table
-    shared = []
-    for key, label in (("basis", "basis"), ("threshold", "advised threshold")):
-        values = {_text(it.get(key)) for it in items if _text(it.get(key))}
-        if key in has and len(values) == 1 and len(items) > 1:
-            has.discard(key)
-            v = values.pop()
-            shared.append(f"{label} {format(float(v), '.1e') if key == 'threshold' else v}")
+    has, shared = _columns(items)
     if shared:
         note = f"{note} Every item: {'; '.join(shared)}.".strip()
-    counts: dict[str, int] = {}
-    for it in items:
-        counts[_verdict(it)] = counts.get(_verdict(it), 0) + 1
-    order = [v for v in ("fail", "error", "caution", "pass") if v in counts]
-    order += sorted(set(counts) - set(order))
-    tiles = "".join(
-        f'<div class="tile v-{escape(v if v in VERDICT_RANK else "other")}" data-key="count.{escape(v)}" '
-        f'data-value="{counts[v]}"><div class="count">{counts[v]}</div><div class="label">{escape(v)}</div></div>'
-        for v in order
-    )
-    audited = [it for it in items if _number(it.get("smallest_eigenvalue")) is not None]
-    fig = ""
-    if audited:
-        png = set_histogram_png(
-            [_number(it.get("smallest_eigenvalue")) for it in audited], [_verdict(it) for it in audited], policy
-        )
-        fig = (
-            f'<figure><img src="data:image/png;base64,{base64.b64encode(png).decode("ascii")}" '
-            'alt="Histogram of log10 of the smallest overlap eigenvalue over the set, coloured by verdict">'
-            "<figcaption>Each item counted once, coloured by its verdict; the vertical lines are the "
-            "caution and fail levels.</figcaption></figure>"
-        )
-    worst = [it for it in items if _verdict(it) != "pass"][:WORST_SHOWN]
-    worst_html = ""
-    if worst:
-        lis = "".join(
-            f'<li>{_link(it, _label(it))}: <span class="badge v-'
-            f'{escape(_verdict(it) if _verdict(it) in VERDICT_RANK else "other")}">{escape(_verdict(it))}</span> '
-            + (
-                f"smallest eigenvalue {_fmt(_number(it.get('smallest_eigenvalue')), '.2e')}; "
-                if _number(it.get("smallest_eigenvalue")) is not None and "eigenvalue" not in _why(it)
-                else ""
-            )
-            + f"{escape(_why(it))}</li>"
-            for it in worst
-        )
-        worst_html = f'<h2 id="worst">Worst items</h2><ol class="worst">{lis}</ol>'
     levels = ""
     if policy:
         levels = (
@@ -258,9 +209,9 @@ def render_set_index(
             f"<title>{escape(title)}</title><style>{CSS}</style></head><body><main>",
             f"<h1>{escape(title)}</h1>",
             f'<p class="sub">{len(items)} item(s).{escape(levels)} {escape(note)}</p>',
-            f'<div class="tiles">{tiles}</div>',
-            fig,
-            worst_html,
+            f'<div class="tiles">{_tiles(items)}</div>',
+            _histogram(items, policy),
+            _worst(items),
             '<h2 id="items">All items</h2>',
             '<p class="sub">Worst first; click a column heading to sort by it.</p>',
             f'<div class="scroll"><table class="sortable">{_header(has)}<tbody>{rows}</tbody></table></div>',
@@ -270,6 +221,79 @@ def render_set_index(
             "",
         ]
     )
+
+
+def _columns(items: list[dict]) -> tuple[set[str], list[str]]:
+    """The optional columns that some item fills, and the "basis ..." / "advised threshold ..."
+    notes of the columns that hold one value for every item (said once, above the table,
+    instead of as a column)."""
+    has = {
+        k
+        for it in items
+        for k in ("outcome", "condition_number", "n_atoms", "basis", "top_atom", "threshold", "n_removed")
+        if _text(it.get(k))
+    }
+    shared = []
+    for key, label in (("basis", "basis"), ("threshold", "advised threshold")):
+        values = {_text(it.get(key)) for it in items if _text(it.get(key))}
+        if key in has and len(values) == 1 and len(items) > 1:
+            has.discard(key)
+            v = values.pop()
+            shared.append(f"{label} {format(float(v), '.1e') if key == 'threshold' else v}")
+    return has, shared
+
+
+def _badge_class(verdict: str) -> str:
+    return escape(verdict if verdict in VERDICT_RANK else "other")
+
+
+def _tiles(items: list[dict]) -> str:
+    """One tile per verdict with its count, worst verdict first."""
+    counts: dict[str, int] = {}
+    for it in items:
+        counts[_verdict(it)] = counts.get(_verdict(it), 0) + 1
+    order = [v for v in VERDICT_RANK if v in counts]
+    order += sorted(set(counts) - set(order))
+    return "".join(
+        f'<div class="tile v-{_badge_class(v)}" data-key="count.{escape(v)}" '
+        f'data-value="{counts[v]}"><div class="count">{counts[v]}</div><div class="label">{escape(v)}</div></div>'
+        for v in order
+    )
+
+
+def _histogram(items: list[dict], policy: dict | None) -> str:
+    """The histogram of the smallest eigenvalues as an embedded figure ("" when no item has one)."""
+    audited = [it for it in items if _number(it.get("smallest_eigenvalue")) is not None]
+    if not audited:
+        return ""
+    png = set_histogram_png(
+        [_number(it.get("smallest_eigenvalue")) for it in audited], [_verdict(it) for it in audited], policy
+    )
+    return (
+        f'<figure><img src="data:image/png;base64,{base64.b64encode(png).decode("ascii")}" '
+        'alt="Histogram of log10 of the smallest overlap eigenvalue over the set, coloured by verdict">'
+        "<figcaption>Each item counted once, coloured by its verdict; the vertical lines are the "
+        "caution and fail levels.</figcaption></figure>"
+    )
+
+
+def _worst(items: list[dict]) -> str:
+    """The first WORST_SHOWN items that do not pass, with why ("" when every item passes)."""
+    worst = [it for it in items if _verdict(it) != "pass"][:WORST_SHOWN]
+    if not worst:
+        return ""
+    lis = "".join(
+        f'<li>{_link(it, _label(it))}: <span class="badge v-'
+        f'{_badge_class(_verdict(it))}">{escape(_verdict(it))}</span> '
+        + (
+            f"smallest eigenvalue {_fmt(_number(it.get('smallest_eigenvalue')), '.2e')}; "
+            if _number(it.get("smallest_eigenvalue")) is not None and "eigenvalue" not in _why(it)
+            else ""
+        )
+        + f"{escape(_why(it))}</li>"
+        for it in worst
+    )
+    return f'<h2 id="worst">Worst items</h2><ol class="worst">{lis}</ol>'
 
 
 def write_set_index(
@@ -286,7 +310,7 @@ def write_set_index(
     return path
 
 
-def item_from_result(result, report: str = "") -> dict:
+def item_from_result(result: AuditResult | dict, report: str = "") -> dict:
     """An index item read from one AuditResult (or its dict): its summary row and link."""
     d = result if isinstance(result, dict) else result.as_dict()
     inp = d["input"]

@@ -9,22 +9,34 @@ from __future__ import annotations
 
 import io
 import math
+from collections.abc import Iterable, Iterator
+from dataclasses import dataclass
 from pathlib import Path
+from typing import TYPE_CHECKING, Any
 from urllib.parse import quote
 
 import numpy as np
+from ase.data import atomic_numbers, covalent_radii
 from matplotlib import rc_context
+from matplotlib.axes import Axes
 from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.collections import EllipseCollection, LineCollection
 from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
+from matplotlib.patches import Circle
 
+from ..base.elements import L_LETTERS
 from ..base.files import atomic_write
-from .style import BLUE, GREEN, GREY, INK, ORANGE, SKY, VERDICT_COLOURS, VERMILION, WEIGHT_CMAP
+from .style import BLUE, GREEN, GREY, INK, LEVEL_LINES, ORANGE, SKY, VERDICT_COLOURS, VERMILION, WEIGHT_CMAP
 from .text import vectors_note
+
+if TYPE_CHECKING:
+    from ..pipeline.result import AuditResult
 
 DPI = 110
 
-STYLE = {
+#: matplotlib rc settings of every figure (typed loosely: matplotlib types the keys as literals)
+STYLE: dict[Any, Any] = {
     "font.family": "DejaVu Sans",
     "font.size": 9.5,
     "axes.titlesize": 10.5,
@@ -45,27 +57,27 @@ STYLE = {
 }
 
 
-def _new(width: float, height: float, ncols: int = 1, **kw):
+def _new(width: float, height: float, ncols: int = 1, **kw: Any) -> tuple[Figure, Any]:
     fig = Figure(figsize=(width, height), dpi=DPI)
     FigureCanvasAgg(fig)
     axes = fig.subplots(1, ncols, **kw)
     return fig, axes
 
 
-def _png(fig) -> bytes:
+def _png(fig: Figure) -> bytes:
     buf = io.BytesIO()
     fig.savefig(buf, format="png", dpi=DPI, facecolor="white", metadata={"Software": None})
     return buf.getvalue()
 
 
-def _d(result) -> dict:
+def _d(result: AuditResult | dict) -> dict:
     return result if isinstance(result, dict) else result.as_dict()
 
 
 # ---------------------------------------------------------------- spectrum
 
 
-def spectrum_png(result) -> bytes:
+def spectrum_png(result: AuditResult | dict) -> bytes:
     """log10 of the overlap eigenvalues against their rank, with the policy levels and
     the advised threshold as horizontal lines."""
     d = _d(result)
@@ -73,65 +85,23 @@ def spectrum_png(result) -> bytes:
         return _png(_spectrum_figure(d))
 
 
-def _spectrum_figure(d: dict):
+def _spectrum_figure(d: dict) -> Figure:
     sp, pol, rec = d["spectrum"], d["policy"], d["recommendation"]
     n_total = d["input"]["n_functions"]
     ev = np.asarray([v for v in sp["eigenvalues"] if v is not None], dtype=float)
     fig, ax = _new(8.6, 3.9)
     fig.subplots_adjust(left=0.09, right=0.70, top=0.88, bottom=0.14)
-    levels = [pol["caution"], pol["fail"], rec["threshold"]]
+    levels = {"caution": pol["caution"], "fail": pol["fail"], "threshold": rec["threshold"]}
     if ev.size == 0:
         ax.text(0.5, 0.5, "no eigenvalues in the result", ha="center", va="center", transform=ax.transAxes)
         ax.set_yscale("log")
-        ax.set_ylim(min(levels) / 10, 10)
+        ax.set_ylim(min(levels.values()) / 10, 10)
     else:
-        positive = ev[ev > 0]
-        low = min([*levels, *(positive[:1] if positive.size else [])])
-        floor = 10.0 ** (math.floor(math.log10(low)) - 1)
-        clipped = ev <= floor
-        shown = np.where(clipped, floor, ev)
-        idx = np.arange(1, ev.size + 1)
-        ax.set_yscale("log")
-        ax.plot(idx, shown, color=BLUE, lw=1.2, drawstyle="steps-mid", zorder=3)
-        if ev.size <= 300:
-            ax.plot(idx[~clipped], shown[~clipped], "o", ms=2.6, color=BLUE, zorder=4)
-        below = ev < rec["threshold"]
-        if below.any():
-            ax.plot(
-                idx[below & ~clipped], shown[below & ~clipped], "o", ms=4, mfc="white", mec=VERMILION, mew=1.2, zorder=5
-            )
-        if clipped.any():
-            ax.plot(idx[clipped], shown[clipped], "v", ms=7, color=VERMILION, zorder=6)
-            ax.annotate(
-                f"{int(clipped.sum())} eigenvalue(s) ≤ {floor:.0e} (singular), drawn at the floor",
-                xy=(idx[clipped][-1], floor),
-                xytext=(12, 10),
-                textcoords="offset points",
-                fontsize=8.5,
-                color=VERMILION,
-            )
-        top = max(1.0, float(ev.max())) * 3
-        ax.set_ylim(floor / 2, top)
-        ax.set_xlim(0.5, ev.size + 0.5)
-    for value, colour, style, label in (
-        (pol["caution"], ORANGE, (0, (5, 3)), f"caution level {pol['caution']:.0e}"),
-        (pol["fail"], VERMILION, "-", f"fail level {pol['fail']:.0e}"),
-        (rec["threshold"], BLUE, (0, (6, 2, 1.5, 2)), f"advised threshold τ = {rec['threshold']:.1e}"),
-    ):
-        ax.axhline(value, color=colour, ls=style, lw=1.3, zorder=2)
-    handles = [Line2D([], [], color=BLUE, lw=1.2, marker="o", ms=2.6, label="eigenvalue")]
-    if ev.size and (ev < rec["threshold"]).any():
-        handles.append(
-            Line2D([], [], color=VERMILION, lw=0, marker="o", mfc="white", mew=1.2, ms=4, label="removed at τ")
-        )
-    handles += [
-        Line2D([], [], color=ORANGE, ls=(0, (5, 3)), lw=1.3, label=f"caution level {pol['caution']:.0e}"),
-        Line2D([], [], color=VERMILION, ls="-", lw=1.3, label=f"fail level {pol['fail']:.0e}"),
-        Line2D(
-            [], [], color=BLUE, ls=(0, (6, 2, 1.5, 2)), lw=1.3, label=f"advised threshold τ = {rec['threshold']:.1e}"
-        ),
-    ]
-    ax.legend(handles=handles, loc="upper left", bbox_to_anchor=(1.02, 1.0), borderaxespad=0)
+        _draw_eigenvalues(ax, ev, min(levels.values()), rec["threshold"])
+    for key, value in levels.items():
+        line = LEVEL_LINES[key]
+        ax.axhline(value, color=line.colour, ls=line.dashes, lw=line.width, zorder=2)
+    ax.legend(handles=_spectrum_handles(ev, levels), loc="upper left", bbox_to_anchor=(1.02, 1.0), borderaxespad=0)
     partial = ev.size < n_total
     ax.set_xlabel(
         "eigenvalue rank, smallest first (dimensionless)" + (f"; {ev.size} smallest of {n_total}" if partial else "")
@@ -141,19 +111,65 @@ def _spectrum_figure(d: dict):
     return fig
 
 
+def _draw_eigenvalues(ax: Axes, ev: np.ndarray, lowest_level: float, threshold: float) -> None:
+    """The eigenvalues against their rank on a log axis; those at or below a floor a decade
+    under everything else (singular ones included) are drawn on the floor and counted."""
+    positive = ev[ev > 0]
+    low = min([lowest_level, *(positive[:1] if positive.size else [])])
+    floor = 10.0 ** (math.floor(math.log10(low)) - 1)
+    clipped = ev <= floor
+    shown = np.where(clipped, floor, ev)
+    idx = np.arange(1, ev.size + 1)
+    ax.set_yscale("log")
+    ax.plot(idx, shown, color=BLUE, lw=1.2, drawstyle="steps-mid", zorder=3)
+    if ev.size <= 300:
+        ax.plot(idx[~clipped], shown[~clipped], "o", ms=2.6, color=BLUE, zorder=4)
+    below = ev < threshold
+    if below.any():
+        ax.plot(
+            idx[below & ~clipped], shown[below & ~clipped], "o", ms=4, mfc="white", mec=VERMILION, mew=1.2, zorder=5
+        )
+    if clipped.any():
+        ax.plot(idx[clipped], shown[clipped], "v", ms=7, color=VERMILION, zorder=6)
+        ax.annotate(
+            f"{int(clipped.sum())} eigenvalue(s) ≤ {floor:.0e} (singular), drawn at the floor",
+            xy=(idx[clipped][-1], floor),
+            xytext=(12, 10),
+            textcoords="offset points",
+            fontsize=8.5,
+            color=VERMILION,
+        )
+    top = max(1.0, float(ev.max())) * 3
+    ax.set_ylim(floor / 2, top)
+    ax.set_xlim(0.5, ev.size + 0.5)
+
+
+def _spectrum_handles(ev: np.ndarray, levels: dict[str, float]) -> list[Line2D]:
+    """Legend entries: the eigenvalues, those removed at the threshold (if any), each level."""
+    handles = [Line2D([], [], color=BLUE, lw=1.2, marker="o", ms=2.6, label="eigenvalue")]
+    if ev.size and (ev < levels["threshold"]).any():
+        handles.append(
+            Line2D([], [], color=VERMILION, lw=0, marker="o", mfc="white", mew=1.2, ms=4, label="removed at τ")
+        )
+    for key, value in levels.items():
+        line = LEVEL_LINES[key]
+        handles.append(Line2D([], [], color=line.colour, ls=line.dashes, lw=line.width, label=line.label(value)))
+    return handles
+
+
 # ---------------------------------------------------------------- causes
 
 MAX_ATOM_BARS = 16
 
 
-def causes_png(result) -> bytes:
+def causes_png(result: AuditResult | dict) -> bytes:
     """Share of the near-null space per atom and per shell type (angular momentum, diffuse)."""
     d = _d(result)
     with rc_context(STYLE):
         return _png(_causes_figure(d))
 
 
-def _causes_figure(d: dict):
+def _causes_figure(d: dict) -> Figure:
     c = d["causes"]
     fig, (ax_a, ax_l, ax_d) = _new(9.0, 4.0, ncols=3, gridspec_kw={"width_ratios": [3.2, 1.4, 1.0], "wspace": 0.42})
     fig.subplots_adjust(left=0.07, right=0.98, top=0.82, bottom=0.25)
@@ -185,7 +201,7 @@ def _causes_figure(d: dict):
             loc="upper right",
         )
 
-    rank = {l: i for i, l in enumerate("spdfghiklm")}
+    rank = {l: i for i, l in enumerate(L_LETTERS)}
     ang = sorted(c["angular"], key=lambda x: rank.get(str(x["l"]), 99))
     ax_l.bar([x["l"] for x in ang], [x["weight"] for x in ang], color=GREEN, edgecolor=INK, lw=0.5, zorder=3)
     ax_l.set_title("By angular momentum", loc="left")
@@ -239,13 +255,11 @@ def principal_projection(xyz: np.ndarray) -> np.ndarray:
     return p
 
 
-def _radii(elements) -> np.ndarray:
-    from ase.data import atomic_numbers, covalent_radii
-
+def _radii(elements: list[str]) -> np.ndarray:
     return np.array([covalent_radii[atomic_numbers.get(e, 0)] for e in elements])
 
 
-def molecule_png(result) -> bytes:
+def molecule_png(result: AuditResult | dict) -> bytes:
     """The geometry on its principal plane, atoms shaded by their near-null-space weight;
     short contacts and coincident atoms from the findings as red dashed lines."""
     d = _d(result)
@@ -253,16 +267,28 @@ def molecule_png(result) -> bytes:
         return _png(_molecule_figure(d))
 
 
-def _pairs(d: dict):
+def _pairs(d: dict) -> Iterator[tuple[str, int, int, float | None]]:
     for f in d["findings"]:
         if f["kind"] in PAIR_KINDS and len(f["atoms"]) == 2:
             yield f["kind"], f["atoms"][0], f["atoms"][1], f.get("details", {}).get("distance_angstrom")
 
 
-def _molecule_figure(d: dict):
-    from matplotlib.collections import EllipseCollection, LineCollection
-    from matplotlib.patches import Circle
+@dataclass(frozen=True)
+class _Drawing:
+    """The atoms of a molecule figure: projected positions, drawn radii and weights."""
 
+    n: int
+    xyz: np.ndarray  # Å
+    elements: list[str]
+    ghost: np.ndarray  # bool per atom
+    weight: np.ndarray  # share of the near-null space per atom
+    p: np.ndarray  # positions on the principal plane (Å)
+    cov: np.ndarray  # covalent radii (Å)
+    disc: np.ndarray  # drawn radii (Å)
+    pad: float  # margin around the atoms (Å)
+
+
+def _drawing(d: dict) -> _Drawing:
     atoms = d["input"]["atoms"]
     n = len(atoms)
     xyz = np.array([a["xyz"] for a in atoms], dtype=float).reshape(-1, 3)
@@ -276,134 +302,151 @@ def _molecule_figure(d: dict):
     cov = _radii(el) if n else np.zeros(0)
     disc = 0.08 + 0.22 * np.clip(cov, 0.25, 2.0)  # drawn radius in Å
     span = max(float(np.ptp(p, axis=0).max()) if n > 1 else 1.0, 1.0)
-    pad = 0.08 * span + 0.6
-    width_a = float(np.ptp(p[:, 0])) + 2 * pad if n else 1.0
-    height_a = float(np.ptp(p[:, 1])) + 2 * pad if n else 1.0
-    # the figure's height follows the molecule's aspect, so that little paper is wasted
+    return _Drawing(n, xyz, el, ghost, weight, p, cov, disc, 0.08 * span + 0.6)
+
+
+def _molecule_canvas(m: _Drawing, legend: bool) -> tuple[Figure, Axes]:
+    """A figure whose height follows the molecule's aspect, so that little paper is wasted."""
+    width_a = float(np.ptp(m.p[:, 0])) + 2 * m.pad if m.n else 1.0
+    height_a = float(np.ptp(m.p[:, 1])) + 2 * m.pad if m.n else 1.0
     ax_w = 5.0
     ax_h = min(max(ax_w * height_a / width_a, 2.2), 6.5)
-    legend = bool(ghost.any()) or any(True for _ in _pairs(d))
     below = 1.0 if legend else 0.7
     fig_h = ax_h + 0.45 + below
     fig, ax = _new(7.2, fig_h)
     fig.subplots_adjust(left=0.1, right=0.1 + ax_w / 7.2, top=1 - 0.45 / fig_h, bottom=below / fig_h)
     ax.set_aspect("equal", adjustable="box")
     ax.grid(False)
-    handles = []
-    if n:
-        from scipy.spatial import cKDTree
+    return fig, ax
 
-        segs, gsegs = [], []
-        for i, j in sorted(cKDTree(xyz).query_pairs(BOND_FACTOR * 2 * cov.max())):
-            dij = np.linalg.norm(xyz[i] - xyz[j])
-            if 0.01 <= dij < BOND_FACTOR * (cov[i] + cov[j]):
-                (gsegs if ghost[i] or ghost[j] else segs).append(p[[i, j]])
-        ax.add_collection(LineCollection(segs, colors="#A0A0A0", linewidths=2.4, capstyle="round", zorder=1))
-        ax.add_collection(LineCollection(gsegs, colors="#B8B8B8", linewidths=1.6, linestyles="--", zorder=1))
 
-        vmax = max(float(weight.max()), 1e-6)
-        order = np.argsort(weight, kind="stable")  # heaviest drawn last, on top
-        coll = EllipseCollection(
-            2 * disc[order],
-            2 * disc[order],
-            np.zeros(n),
-            units="xy",
-            offsets=p[order],
-            offset_transform=ax.transData,
-            cmap=WEIGHT_CMAP,
-            edgecolors=INK,
-            zorder=3,
-        )
-        coll.set_array(weight[order])
-        coll.set_clim(0, vmax)
-        coll.set_linewidths(0.8)
-        ax.add_collection(coll)
-        if ghost.any():
-            # ghost atoms keep their fill (it carries the weight) inside a dashed ring
-            for i in np.flatnonzero(ghost):
-                ax.add_patch(Circle(p[i], 1.35 * disc[i], fill=False, ec=INK, ls=(0, (2.5, 2)), lw=1.2, zorder=3.6))
-            handles.append(
-                Line2D(
-                    [],
-                    [],
-                    lw=0,
-                    marker="o",
-                    ms=12,
-                    mfc="none",
-                    mec=INK,
-                    mew=1.2,
-                    label="ringed: ghost atom (functions, no nucleus)",
-                )
-            )
-        cax = ax.inset_axes([1.04, 0.0, 0.04, 1.0])
-        cb = fig.colorbar(coll, cax=cax)
-        cb.set_label("share of near-null space (fraction)")
-        cax.grid(False)
-
-        contact = False
-        for kind, i, j, dist in _pairs(d):
-            i, j = i - 1, j - 1
-            if not (0 <= i < n and 0 <= j < n):
-                continue
-            contact = True
-            mid = p[[i, j]].mean(axis=0)
-            sep = np.linalg.norm(p[i] - p[j])
-            if sep < 1.2 * max(disc[i], disc[j]):
-                # too close to see a line: ring the pair instead
-                ax.add_patch(
-                    Circle(
-                        mid, 1.9 * max(disc[i], disc[j]), fill=False, ec=VERMILION, ls=(0, (4, 2.5)), lw=2.0, zorder=6
-                    )
-                )
-                anchor, xytext = mid + np.array([0, 1.9 * max(disc[i], disc[j])]), (0, 4)
-            else:
-                ax.plot(p[[i, j], 0], p[[i, j], 1], color=VERMILION, ls=(0, (4, 2.5)), lw=2.2, zorder=6)
-                anchor, xytext = mid, (0, 4)
-            if dist is not None:
-                ax.annotate(
-                    f"{el[i]}{i + 1}–{el[j]}{j + 1} {dist:.3g} Å",
-                    anchor,
-                    xytext=xytext,
-                    textcoords="offset points",
-                    ha="center",
-                    va="bottom",
-                    color=VERMILION,
-                    fontsize=8.5,
-                    fontweight="bold",
-                    zorder=9,
-                    bbox={"boxstyle": "round,pad=0.15", "fc": "white", "ec": "none", "alpha": 0.85},
-                )
-        if contact:
-            handles.append(
-                Line2D([], [], color=VERMILION, ls=(0, (4, 2.5)), lw=2, label="coincident atoms / short contact")
-            )
-
-        labelled = range(n) if n <= MAX_LABELS else np.argsort(-weight, kind="stable")[:12]
-        placed: list[np.ndarray] = []
-        for i in labelled:
-            offset = (6.0, 5.0)
-            if any(np.linalg.norm(p[i] - q) < 0.5 * disc[i] for q in placed):
-                offset = (6.0, -15.0)  # a second atom on (nearly) the same spot
-            placed.append(p[i])
-            ax.annotate(
-                f"{el[i]}{i + 1}",
-                p[i] + disc[i] * np.array([0.55, 0.55]),
-                xytext=offset,
-                textcoords="offset points",
-                fontsize=8.5,
-                color=INK,
-                zorder=8,
-                bbox={"boxstyle": "round,pad=0.12", "fc": "white", "ec": "none", "alpha": 0.8},
-            )
-        ax.set_xlim(p[:, 0].min() - pad, p[:, 0].max() + pad)
-        ax.set_ylim(p[:, 1].min() - pad, p[:, 1].max() + pad)
+def _molecule_figure(d: dict) -> Figure:
+    m = _drawing(d)
+    pairs = list(_pairs(d))
+    fig, ax = _molecule_canvas(m, bool(m.ghost.any()) or bool(pairs))
+    handles: list[Line2D] = []
+    if m.n:
+        _draw_bonds(ax, m)
+        handles += _draw_atoms(fig, ax, m)
+        handles += _draw_contacts(ax, m, pairs)
+        _label_atoms(ax, m)
+        ax.set_xlim(m.p[:, 0].min() - m.pad, m.p[:, 0].max() + m.pad)
+        ax.set_ylim(m.p[:, 1].min() - m.pad, m.p[:, 1].max() + m.pad)
     if handles:
         fig.legend(handles=handles, loc="lower center", bbox_to_anchor=(0.5, 0.0), ncol=2)
     ax.set_xlabel("first principal axis (Å)")
     ax.set_ylabel("second principal axis (Å)")
-    more = "" if n <= MAX_LABELS else "; the 12 heaviest labelled"
-    ax.set_title(f"Geometry on its principal plane ({n} atoms{more})", loc="left")
+    more = "" if m.n <= MAX_LABELS else "; the 12 heaviest labelled"
+    ax.set_title(f"Geometry on its principal plane ({m.n} atoms{more})", loc="left")
     return fig
+
+
+def _draw_bonds(ax: Axes, m: _Drawing) -> None:
+    """Grey lines between atoms closer than BOND_FACTOR times their covalent-radius sum;
+    dashed when a ghost atom takes part."""
+    # scipy.spatial takes about 0.2 s to import and only this figure needs it
+    from scipy.spatial import cKDTree
+
+    segs: list[np.ndarray] = []
+    gsegs: list[np.ndarray] = []
+    for i, j in sorted(cKDTree(m.xyz).query_pairs(BOND_FACTOR * 2 * m.cov.max())):
+        dij = np.linalg.norm(m.xyz[i] - m.xyz[j])
+        if 0.01 <= dij < BOND_FACTOR * (m.cov[i] + m.cov[j]):
+            (gsegs if m.ghost[i] or m.ghost[j] else segs).append(m.p[[i, j]])
+    ax.add_collection(LineCollection(segs, colors="#A0A0A0", linewidths=2.4, capstyle="round", zorder=1))
+    ax.add_collection(LineCollection(gsegs, colors="#B8B8B8", linewidths=1.6, linestyles="--", zorder=1))
+
+
+def _draw_atoms(fig: Figure, ax: Axes, m: _Drawing) -> list[Line2D]:
+    """Discs shaded by weight (heaviest on top), dashed rings round ghost atoms and the
+    colour bar; returns the legend entry of the rings, if any."""
+    order = np.argsort(m.weight, kind="stable")  # heaviest drawn last, on top
+    coll = EllipseCollection(
+        2 * m.disc[order],
+        2 * m.disc[order],
+        np.zeros(m.n),
+        units="xy",
+        offsets=m.p[order],
+        offset_transform=ax.transData,
+        cmap=WEIGHT_CMAP,
+        edgecolors=INK,
+        zorder=3,
+    )
+    coll.set_array(m.weight[order])
+    coll.set_clim(0, max(float(m.weight.max()), 1e-6))
+    coll.set_linewidth(0.8)
+    ax.add_collection(coll)
+    handles = []
+    if m.ghost.any():
+        # ghost atoms keep their fill (it carries the weight) inside a dashed ring
+        for i in np.flatnonzero(m.ghost):
+            ax.add_patch(Circle(m.p[i], 1.35 * m.disc[i], fill=False, ec=INK, ls=(0, (2.5, 2)), lw=1.2, zorder=3.6))
+        ring = "ringed: ghost atom (functions, no nucleus)"
+        handles.append(Line2D([], [], lw=0, marker="o", ms=12, mfc="none", mec=INK, mew=1.2, label=ring))
+    cax = ax.inset_axes((1.04, 0.0, 0.04, 1.0))
+    cb = fig.colorbar(coll, cax=cax)
+    cb.set_label("share of near-null space (fraction)")
+    cax.grid(False)
+    return handles
+
+
+def _draw_contacts(ax: Axes, m: _Drawing, pairs: list[tuple[str, int, int, float | None]]) -> list[Line2D]:
+    """Coincident atoms and short contacts from the findings: a red dashed line, or a ring
+    round the pair when the two are too close to see a line; returns their legend entry."""
+    contact = False
+    for _, first, second, dist in pairs:
+        i, j = first - 1, second - 1
+        if not (0 <= i < m.n and 0 <= j < m.n):
+            continue
+        contact = True
+        mid = m.p[[i, j]].mean(axis=0)
+        sep = np.linalg.norm(m.p[i] - m.p[j])
+        radius = max(m.disc[i], m.disc[j])
+        if sep < 1.2 * radius:
+            # too close to see a line: ring the pair instead
+            ax.add_patch(Circle(mid, 1.9 * radius, fill=False, ec=VERMILION, ls=(0, (4, 2.5)), lw=2.0, zorder=6))
+            anchor = mid + np.array([0, 1.9 * radius])
+        else:
+            ax.plot(m.p[[i, j], 0], m.p[[i, j], 1], color=VERMILION, ls=(0, (4, 2.5)), lw=2.2, zorder=6)
+            anchor = mid
+        if dist is not None:
+            ax.annotate(
+                f"{m.elements[i]}{i + 1}–{m.elements[j]}{j + 1} {dist:.3g} Å",
+                anchor,
+                xytext=(0, 4),
+                textcoords="offset points",
+                ha="center",
+                va="bottom",
+                color=VERMILION,
+                fontsize=8.5,
+                fontweight="bold",
+                zorder=9,
+                bbox={"boxstyle": "round,pad=0.15", "fc": "white", "ec": "none", "alpha": 0.85},
+            )
+    if not contact:
+        return []
+    return [Line2D([], [], color=VERMILION, ls=(0, (4, 2.5)), lw=2, label="coincident atoms / short contact")]
+
+
+def _label_atoms(ax: Axes, m: _Drawing) -> None:
+    """Element and number beside each atom (the 12 heaviest beyond MAX_LABELS atoms)."""
+    labelled = range(m.n) if m.n <= MAX_LABELS else np.argsort(-m.weight, kind="stable")[:12]
+    placed: list[np.ndarray] = []
+    for i in labelled:
+        offset = (6.0, 5.0)
+        if any(np.linalg.norm(m.p[i] - q) < 0.5 * m.disc[i] for q in placed):
+            offset = (6.0, -15.0)  # a second atom on (nearly) the same spot
+        placed.append(m.p[i])
+        ax.annotate(
+            f"{m.elements[i]}{i + 1}",
+            m.p[i] + m.disc[i] * np.array([0.55, 0.55]),
+            xytext=offset,
+            textcoords="offset points",
+            fontsize=8.5,
+            color=INK,
+            zorder=8,
+            bbox={"boxstyle": "round,pad=0.12", "fc": "white", "ec": "none", "alpha": 0.8},
+        )
 
 
 # ---------------------------------------------------------------- sets
@@ -415,7 +458,7 @@ def set_histogram_png(smallest: list[float | None], verdicts: list[str], policy:
         return _png(_set_histogram_figure(smallest, verdicts, policy))
 
 
-def _set_histogram_figure(smallest, verdicts, policy):
+def _set_histogram_figure(smallest: list[float | None], verdicts: list[str], policy: dict | None) -> Figure:
     fig, ax = _new(8.6, 3.4)
     fig.subplots_adjust(left=0.08, right=0.76, top=0.88, bottom=0.16)
     vals = [(math.log10(v) if v > 0 else None, verd) for v, verd in zip(smallest, verdicts) if v is not None]
@@ -450,13 +493,11 @@ def _set_histogram_figure(smallest, verdicts, policy):
             fontsize=8.5,
             color=VERMILION,
         )
-    if policy:
-        for value, colour, style, label in (
-            (policy.get("caution"), ORANGE, (0, (5, 3)), "caution level"),
-            (policy.get("fail"), VERMILION, "-", "fail level"),
-        ):
-            if value:
-                ax.axvline(math.log10(value), color=colour, ls=style, lw=1.3, label=f"{label} {value:.0e}")
+    for key in ("caution", "fail"):
+        value = (policy or {}).get(key)
+        if value:
+            line = LEVEL_LINES[key]
+            ax.axvline(math.log10(value), color=line.colour, ls=line.dashes, lw=line.width, label=line.label(value))
     ax.set_xlabel("log10 of the smallest eigenvalue of unit-diagonal S (dimensionless)")
     ax.set_ylabel("items (count)")
     ax.yaxis.get_major_locator().set_params(integer=True)
@@ -465,7 +506,7 @@ def _set_histogram_figure(smallest, verdicts, policy):
     return fig
 
 
-def report_plots(result) -> dict[str, bytes]:
+def report_plots(result: AuditResult | dict) -> dict[str, bytes]:
     """The three figures of a single-geometry report, by short name."""
     d = _d(result)
     return {"spectrum": spectrum_png(d), "causes": causes_png(d), "molecule": molecule_png(d)}
@@ -478,7 +519,7 @@ FIGURE_TITLES = {
 }
 
 
-def write_figures(images: dict[str, bytes], out, stem: str) -> list:
+def write_figures(images: dict[str, bytes], out: str | Path, stem: str) -> list[Path]:
     """Write each figure as out/<stem>_<name>.png; returns the paths in FIGURE_TITLES order."""
     paths = []
     for name in FIGURE_TITLES:
@@ -489,7 +530,7 @@ def write_figures(images: dict[str, bytes], out, stem: str) -> list:
     return paths
 
 
-def markdown_figures(paths, stem: str) -> list[str]:
+def markdown_figures(paths: Iterable[Path], stem: str) -> list[str]:
     """Markdown lines that show the figures written beside the report (relative links)."""
     lines = ["## Figures", ""]
     for path in paths:

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import io
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -11,13 +12,17 @@ from ..base.files import atomic_write
 from ..remedies.canonical import canonical_transform
 from ..remedies.plan import RemedyPlan
 from ..remedies.pruned_basis import write_pruned
-from .markdown import remedies_lines
+from .markdown import caveat_lines, remedies_lines
+
+if TYPE_CHECKING:
+    from ..pipeline.result import AuditResult
+    from ..pipeline.run import Prepared
 
 
-def explain_markdown(result, plan: RemedyPlan, files: dict[str, str]) -> str:
+def explain_markdown(result: AuditResult | dict, plan: RemedyPlan, files: dict[str, str]) -> str:
     """The Markdown explanation written next to the pruned basis."""
-    d = result.as_dict()
-    inp, doc = d["input"], plan.pruned
+    d = result if isinstance(result, dict) else result.as_dict()
+    inp, doc = d["input"], _pruned_document(plan)
     name = Path(inp["path"]).name
     lines = [
         f"# Pruned basis for {name}",
@@ -44,7 +49,7 @@ def explain_markdown(result, plan: RemedyPlan, files: dict[str, str]) -> str:
         ),
         (
             f"- `{files['transform']}`: X (functions × kept directions) for canonical orthogonalization of the "
-            f"full basis at {result.recommendation.threshold:.1e}, in pyscf's AO order; X^T S X = 1."
+            f"full basis at {d['recommendation']['threshold']:.1e}, in pyscf's AO order; X^T S X = 1."
         ),
         "",
         "## Using them",
@@ -64,20 +69,26 @@ def explain_markdown(result, plan: RemedyPlan, files: dict[str, str]) -> str:
         "",
     ]
     lines += remedies_lines(d["remedies"], inp["n_functions"])
-    lines += ["## Read before acting", ""] + [f"- {c}" for c in d["caveats"]] + [""]
+    lines += caveat_lines(d)
     return "\n".join(lines)
 
 
-def _fmt_num(x) -> str:
+def _fmt_num(x: float | None) -> str:
     return "not computed" if x is None else f"{x:.3e}"
 
 
-def write_prune_outputs(result, plan: RemedyPlan, prep, out_dir: Path, stem: str) -> list[Path]:
+def _pruned_document(plan: RemedyPlan) -> dict:
+    if plan.pruned is None:  # prune_prepared raises a UsageError before it returns such a plan
+        raise ValueError("the remedy plan holds no shell-pruned basis")
+    return plan.pruned
+
+
+def write_prune_outputs(result: AuditResult, plan: RemedyPlan, prep: Prepared, out_dir: Path, stem: str) -> list[Path]:
     """Write DIR/<stem>.pruned.json, DIR/<stem>.X.npy and DIR/<stem>.prune.md."""
     out_dir = Path(out_dir)
     out_dir.mkdir(parents=True, exist_ok=True)
     files = {"basis": f"{stem}.pruned.json", "transform": f"{stem}.X.npy", "explain": f"{stem}.prune.md"}
-    paths = [write_pruned(plan.pruned, out_dir / files["basis"])]
+    paths = [write_pruned(_pruned_document(plan), out_dir / files["basis"])]
     X = canonical_transform(prep, result.recommendation.threshold)
     buf = io.BytesIO()
     np.save(buf, X)

@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import math
 import sys
+from typing import Any
 
 #: Column order of summary.csv / summary.parquet (documented in docs/json.md).
 COLUMNS = (
@@ -73,7 +74,7 @@ def brief(result: dict) -> dict:
     }
 
 
-def result_row(path: str, frame: int, item: str, result: dict) -> dict:
+def result_row(path: str, frame: int | None, item: str, result: dict) -> dict:
     """Summary row of one audited item, read from its JSON result."""
     spec, rec, atoms = result["spectrum"], result["recommendation"], result["causes"]["atoms"]
     cond = spec["condition_number"]
@@ -116,10 +117,11 @@ def error_row(path: str, frame: int | None, item: str, basis: str, message: str)
 
 
 def item_label(r: dict) -> str:
+    """An item's path, with its frame in brackets when it has one."""
     return r["path"] + (f" [{r['frame']}]" if r.get("frame") is not None else "")
 
 
-def _number(v) -> float | None:
+def _number(v: Any) -> float | None:
     if v is None or v == "":
         return None
     try:
@@ -129,12 +131,12 @@ def _number(v) -> float | None:
     return x if not math.isnan(x) else None
 
 
-def _int(v) -> int | None:
+def _int(v: Any) -> int | None:
     x = _number(v)
     return None if x is None or math.isinf(x) else int(x)
 
 
-def _text(v) -> str:
+def _text(v: Any) -> str:
     """Text of a cell; None, NaN and pandas' missing values are empty."""
     if v is None or (isinstance(v, float) and math.isnan(v)):
         return ""
@@ -153,7 +155,7 @@ def _verdict(item: dict) -> str:
     return v or ("error" if _text(item.get("error")) else "unknown")
 
 
-def rank_key(item: dict):
+def rank_key(item: dict) -> tuple[int, int, float, str, int]:
     """Worst first: blocking gate outcomes, then fail, error, caution, pass; then the
     smallest eigenvalue, ascending."""
     lam = _number(item.get("smallest_eigenvalue"))

@@ -4,17 +4,21 @@ from __future__ import annotations
 
 import io
 import math
+import threading
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from ..base.files import atomic_write
 from .rows import _FLOATS, _INTS, COLUMNS
+
+if TYPE_CHECKING:
+    import pandas as pd
 
 
 def prefetch_libraries() -> None:
     """Import pandas and its Parquet engine in a background thread, so that the import
     overlaps work that waits on other processes (Python's import lock makes a later
     ``import pandas`` wait for this one instead of importing twice)."""
-    import threading
 
     def load() -> None:
         try:
@@ -26,9 +30,9 @@ def prefetch_libraries() -> None:
     threading.Thread(target=load, name="auditor-prefetch", daemon=True).start()
 
 
-def summary_frame(rows: list[dict]):
+def summary_frame(rows: list[dict]) -> pd.DataFrame:
     """pandas DataFrame with the summary columns and stable dtypes."""
-    import pandas as pd
+    import pandas as pd  # pandas takes most of a second to import; only the gate's summary needs it
 
     df = pd.DataFrame([{c: r.get(c, "") for c in COLUMNS} for r in rows], columns=list(COLUMNS))
     for c in _INTS:

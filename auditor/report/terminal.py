@@ -3,19 +3,24 @@
 from __future__ import annotations
 
 import math
+from collections.abc import Iterable, Sequence
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from rich.console import Console, Group
 from rich.markup import escape
 from rich.table import Table
 from rich.text import Text
 
-from ..base.jsonio import to_jsonable
 from .rows import item_label, rank_key
 from .style import TERMINAL_STYLE as STYLE
+from .text import remedies_view
+
+if TYPE_CHECKING:
+    from ..pipeline.result import AuditResult
 
 
-def summary_table(results, errors=()) -> Table:
+def summary_table(results: Iterable[AuditResult], errors: Iterable[tuple[str, str]] = ()) -> Table:
     """One row per audited frame, plus one per input that could not be read."""
     t = Table(show_header=True, header_style="bold", box=None, pad_edge=False)
     for col in ("geometry", "verdict", "functions", "smallest λ", "log10 κ", "τ advised", "removed", "main atom"):
@@ -40,7 +45,10 @@ def summary_table(results, errors=()) -> Table:
     return t
 
 
-def print_summary(results, errors=(), console: Console | None = None) -> None:
+def print_summary(
+    results: Sequence[AuditResult], errors: Iterable[tuple[str, str]] = (), console: Console | None = None
+) -> None:
+    """The summary table, then the first few error-level findings of each result."""
     console = console or Console(highlight=False)
     console.print(summary_table(results, errors))
     for r in results:
@@ -49,44 +57,39 @@ def print_summary(results, errors=(), console: Console | None = None) -> None:
             console.print(f"  [red]{Path(r.input.path).name}[/]: {f.message}", highlight=False)
 
 
-def print_remedies(results, console: Console | None = None, always: bool = False, top: int = 4) -> None:
+def print_remedies(
+    results: Iterable[AuditResult | dict], console: Console | None = None, always: bool = False, top: int = 4
+) -> None:
     """The best few ranked remedies of each result that needs one (or of all, ``always``)."""
     console = console or Console(highlight=False)
     for r in results:
-        rem = to_jsonable(r.remedies)
-        if not rem or not rem["alternatives"] or not (rem["needed"] or always):
+        d = r if isinstance(r, dict) else r.as_dict()
+        view = remedies_view(d.get("remedies"))
+        if view is None or not view.alternatives or not (view.needed or always):
             continue
-        console.print(
-            f"  {Path(r.input.path).name}: remedies for a smallest eigenvalue of {rem['target']:.0e}",
-            highlight=False,
-            markup=False,
-        )
-        for a in rem["alternatives"][:top]:
-            removed = "?" if a["removed"] is None else f"{a['removed']} {a['unit']}"
-            after = "?" if a["smallest_after"] is None else f"{a['smallest_after']:.2e}"
-            mark = "" if a["reaches_target"] else " (misses the target)"
-            console.print(
-                f"    {a['rank']}. {a['title']}: removes {removed}, smallest eigenvalue {after}{mark}",
-                highlight=False,
-                markup=False,
+        lines = [f"  {Path(d['input']['path']).name}: remedies for a smallest eigenvalue of {view.target:.0e}"]
+        for a in view.alternatives[:top]:
+            after = "?" if a.smallest_after is None else f"{a.smallest_after:.2e}"
+            mark = "" if a.reaches_target else " (misses the target)"
+            lines.append(f"    {a.rank}. {a.title}: removes {a.removed_text}, smallest eigenvalue {after}{mark}")
+        tri = view.trial
+        if tri and tri.skipped:
+            lines.append(f"    {tri.skipped}")
+        elif tri and tri.difference_microhartree is not None:
+            lines.append(
+                f"    trial SCF ({tri.method}): pruned minus canonical orthogonalization "
+                f"{tri.difference_microhartree:+.1f} microhartree"
             )
-        tri = rem.get("trial_scf")
-        if tri and tri.get("skipped"):
-            console.print(f"    {tri['skipped']}", highlight=False, markup=False)
-        elif tri and tri.get("difference_microhartree") is not None:
-            console.print(
-                f"    trial SCF ({tri['method']}): pruned minus canonical orthogonalization "
-                f"{tri['difference_microhartree']:+.1f} microhartree",
-                highlight=False,
-                markup=False,
-            )
+        for line in lines:
+            console.print(line, highlight=False, markup=False)
 
 
 def worst_rows(rows: list[dict], n: int) -> list[dict]:
+    """The ``n`` worst rows (see ``rows.rank_key``)."""
     return sorted(rows, key=rank_key)[:n]
 
 
-def worst_table(rows: list[dict], n: int = 10):
+def worst_table(rows: list[dict], n: int = 10) -> Group:
     """rich renderable of the ``n`` worst items (blocking outcomes first, then smallest
     eigenvalue), with the reason of each item that is not plainly ok below the table."""
     t = Table(
@@ -111,7 +114,7 @@ def worst_table(rows: list[dict], n: int = 10):
         t.add_row(
             escape(item_label(r)),
             f"[{STYLE[r['verdict']]}]{r['verdict']}[/]",
-            f"[{STYLE.get(r.get('outcome'), '')}]{r.get('outcome', '')}[/]",
+            f"[{STYLE.get(r.get('outcome') or '', '')}]{r.get('outcome', '')}[/]",
             f"{lam:.2e}" if ok else "",
             ("inf" if math.isinf(cond) else f"{math.log10(cond):.1f}") if ok else "",
             r["top_atom"],

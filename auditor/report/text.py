@@ -1,6 +1,16 @@
-"""Sentences shared by several report formats (one wording, several renderings)."""
+"""Sentences and row records shared by several report formats (one wording, several renderings).
+
+``remedies_view`` reads the ``remedies`` part of a JSON result into plain records; the
+Markdown, HTML and terminal writers each render those records in their own layout (and
+keep their own number formats), so that a remedy is worded the same way everywhere.
+"""
 
 from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+from ..base.elements import L_LETTERS
 
 
 def vectors_note(d: dict) -> str:
@@ -13,3 +23,260 @@ def vectors_note(d: dict) -> str:
     if below is not None and below >= k:
         return f"the {k} eigenvector(s) with eigenvalue below {level:.0e}"
     return f"the {k} smallest eigenvector(s) ({below or 'none'} below {level:.0e})"
+
+
+def yes_no(flag: Any) -> str:
+    """ "yes" or "no" for a JSON flag; a dash when it is missing."""
+    return {True: "yes", False: "no"}.get(flag, "—")
+
+
+def l_letter(l: object) -> str:
+    """The letter of an angular momentum given as a number (s, p, d, ...); anything else as text."""
+    return L_LETTERS[l] if isinstance(l, int) and 0 <= l < len(L_LETTERS) else str(l)
+
+
+def _where(record: dict) -> str:
+    ghost = " (ghost)" if record.get("ghost") else ""
+    return f"{record['element']}{record['atom']}{ghost} {record['shell']}"
+
+
+@dataclass(frozen=True)
+class RemedyRow:
+    """One ranked remedy; ``key`` is its place in the JSON report."""
+
+    key: str
+    rank: int | None
+    title: str
+    removed: int | None
+    unit: str  # "functions" | "directions"
+    smallest_after: float | None
+    reaches_target: bool | None
+    how: str
+
+    @property
+    def removed_text(self) -> str:
+        """What it removes, e.g. "3 functions"; "?" when unknown."""
+        return "?" if self.removed is None else f"{self.removed} {self.unit}"
+
+    @property
+    def reaches(self) -> str:
+        return yes_no(self.reaches_target)
+
+
+@dataclass(frozen=True)
+class DroppedShellRow:
+    """One shell the shell-pruned basis drops."""
+
+    key: str
+    where: str  # element, atom number, "(ghost)" and shell name, e.g. "H5 (ghost) 4s"
+    l: Any  # angular momentum as in the JSON report (a number)
+    exponent: float
+    diffuse: bool
+    functions: int
+
+    @property
+    def l_letter(self) -> str:
+        return l_letter(self.l)
+
+    @property
+    def diffuse_mark(self) -> str:
+        """ "yes" for a diffuse shell, else empty."""
+        return "yes" if self.diffuse else ""
+
+
+@dataclass(frozen=True)
+class DroppedFunctionRow:
+    """One function the pivoted-Cholesky subset drops."""
+
+    key: str
+    function: int  # 1-based
+    where: str
+    component: str
+    l: Any
+    exponent: float
+
+
+@dataclass(frozen=True)
+class ShellPruningView:
+    """The shell-pruned basis: how its shells were chosen and which it drops."""
+
+    key: str
+    by_shell_pivoting: bool  # else: the shells the function subset leaves whole
+    tolerance: float | None
+    added_back: int | None
+    kept: int | None
+    smallest_kept: float | None
+    dropped: list[DroppedShellRow]
+
+
+@dataclass(frozen=True)
+class FunctionSubsetView:
+    """The pivoted-Cholesky subset of single functions and which functions it drops."""
+
+    key: str
+    tolerance: float | None
+    added_back: int | None
+    factorizations: int | None
+    kept: int | None
+    dropped: list[DroppedFunctionRow]
+
+
+@dataclass(frozen=True)
+class TrialRunRow:
+    """One run of the trial SCF (full basis with canonical orthogonalization, or pruned)."""
+
+    key: str
+    basis: str
+    n_functions: int | None
+    directions_removed: int | None
+    converged: bool | None
+    cycles: int | None
+    energy: float | None  # hartree
+    seconds: float | None
+    note: str
+
+    @property
+    def converged_text(self) -> str:
+        return yes_no(self.converged)
+
+
+@dataclass(frozen=True)
+class TrialView:
+    """The trial SCF: why it was skipped, or its runs and the energy difference."""
+
+    key: str
+    method: str
+    skipped: str  # the reason, as one sentence without its full stop; empty when it ran
+    runs: list[TrialRunRow]
+    difference_microhartree: float | None
+    reminder: str
+
+
+#: the parts of the remedies that the records below cover (the HTML report shows any other as it is)
+KNOWN_REMEDY_KEYS = (
+    "target",
+    "needed",
+    "alternatives",
+    "problems",
+    "cholesky_shells",
+    "cholesky_functions",
+    "diffuse_by_element",
+    "trial_scf",
+)
+
+
+@dataclass(frozen=True)
+class RemediesView:
+    """The remedies of one result as plain records, in the order the reports show them."""
+
+    target: float | None
+    needed: bool
+    alternatives: list[RemedyRow]
+    problems: list[str]  # "Not available: <why>." sentences
+    shells: ShellPruningView | None
+    functions: FunctionSubsetView | None
+    diffuse_by_element: list[dict]  # as in the JSON report
+    trial: TrialView | None
+    others: dict[str, Any]  # keys not in KNOWN_REMEDY_KEYS that hold something
+
+    @property
+    def nothing_needed(self) -> bool:
+        """The basis already meets the target and no remedy was worked out."""
+        return not self.needed and not self.alternatives
+
+
+def remedies_view(rem: dict | None) -> RemediesView | None:
+    """The ``remedies`` dictionary of a JSON result as row records; None when it is empty."""
+    if not rem:
+        return None
+    return RemediesView(
+        target=rem.get("target"),
+        needed=bool(rem.get("needed")),
+        alternatives=[_remedy_row(i, a) for i, a in enumerate(rem.get("alternatives") or [])],
+        problems=[f"Not available: {p}." for p in rem.get("problems") or []],
+        shells=_shell_pruning(rem.get("cholesky_shells")),
+        functions=_function_subset(rem.get("cholesky_functions")),
+        diffuse_by_element=list(rem.get("diffuse_by_element") or []),
+        trial=_trial(rem.get("trial_scf")),
+        others={k: v for k, v in rem.items() if k not in KNOWN_REMEDY_KEYS and v not in (None, [], {})},
+    )
+
+
+def _remedy_row(i: int, a: dict) -> RemedyRow:
+    return RemedyRow(
+        key=f"remedies.alternatives.{i}",
+        rank=a.get("rank"),
+        title=str(a.get("title", a.get("kind", ""))),
+        removed=a.get("removed"),
+        unit=str(a.get("unit", "")),
+        smallest_after=a.get("smallest_after"),
+        reaches_target=a.get("reaches_target"),
+        how=str(a.get("how", "")),
+    )
+
+
+def _shell_pruning(sh: dict | None) -> ShellPruningView | None:
+    if not sh:
+        return None
+    key = "remedies.cholesky_shells"
+    dropped = [
+        DroppedShellRow(
+            f"{key}.dropped_shells.{i}", _where(s), s["l"], s["exponent"], bool(s.get("diffuse")), s["functions"]
+        )
+        for i, s in enumerate(sh.get("dropped_shells") or [])
+    ]
+    return ShellPruningView(
+        key=key,
+        by_shell_pivoting=sh.get("chosen_by") == "shell pivoting",
+        tolerance=sh.get("tolerance"),
+        added_back=sh.get("added_back"),
+        kept=sh.get("kept"),
+        smallest_kept=sh.get("smallest_kept"),
+        dropped=dropped,
+    )
+
+
+def _function_subset(fn: dict | None) -> FunctionSubsetView | None:
+    if not fn:
+        return None
+    key = "remedies.cholesky_functions"
+    dropped = [
+        DroppedFunctionRow(f"{key}.dropped.{i}", f["function"], _where(f), str(f["component"]), f["l"], f["exponent"])
+        for i, f in enumerate(fn.get("dropped") or [])
+    ]
+    return FunctionSubsetView(
+        key=key,
+        tolerance=fn.get("tolerance"),
+        added_back=fn.get("added_back"),
+        factorizations=fn.get("factorizations"),
+        kept=fn.get("kept"),
+        dropped=dropped,
+    )
+
+
+def _trial(tri: dict | None) -> TrialView | None:
+    if not tri:
+        return None
+    key = "remedies.trial_scf"
+    runs = [
+        TrialRunRow(
+            key=f"{key}.runs.{i}",
+            basis=str(r.get("basis", "")),
+            n_functions=r.get("n_functions"),
+            directions_removed=r.get("directions_removed"),
+            converged=r.get("converged"),
+            cycles=r.get("cycles"),
+            energy=r.get("energy"),
+            seconds=r.get("seconds"),
+            note=str(r.get("note") or ""),
+        )
+        for i, r in enumerate(tri.get("runs") or [])
+    ]
+    return TrialView(
+        key=key,
+        method=str(tri.get("method", "")),
+        skipped=str(tri["skipped"]) if tri.get("skipped") else "",
+        runs=runs,
+        difference_microhartree=tri.get("difference_microhartree"),
+        reminder=str(tri.get("reminder") or ""),
+    )

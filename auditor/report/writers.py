@@ -3,21 +3,23 @@
 from __future__ import annotations
 
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from .html import write_html
 from .json_report import write_json
 from .markdown import write_markdown
 from .plots import markdown_figures, report_plots, write_figures
 
+if TYPE_CHECKING:
+    from ..pipeline.result import AuditResult
+
 FORMATS = ("json", "md", "html", "all")
 
 
-def write_reports(result, out: Path, formats: str, stem: str) -> list[Path]:
+def write_reports(result: AuditResult, out: Path, formats: str, stem: str) -> list[Path]:
     """Write the requested formats of ``result`` under ``out`` with file stem ``stem``."""
     written = []
-    images = None
-    if formats in ("md", "html", "all"):
-        images = report_plots(result)
+    images = report_plots(result) if formats in ("md", "html", "all") else {}
     if formats in ("json", "all"):
         written.append(write_json(result, out / f"{stem}.json"))
     if formats in ("md", "all"):
