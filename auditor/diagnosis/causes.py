@@ -16,6 +16,9 @@ class Causes:
 
     n_vectors: int
     vectors_below: float
+    #: eigenvalues below ``vectors_below`` (more than ``n_vectors`` when the large path capped
+    #: the vectors it computed; fewer when a degenerate group was completed or none lies below)
+    n_below: int | None
     atoms: list[dict]
     shells: list[dict]
     angular: list[dict]
@@ -25,9 +28,11 @@ class Causes:
 MAX_SHELLS_LISTED = 25
 
 
-def attribute_causes(vectors: np.ndarray, table: FunctionTable, below: float) -> Causes:
-    """Weight of every function in the span of ``vectors`` (orthonormal columns),
-    summed per atom, shell, angular momentum and diffuse/not; each list sums to 1."""
+def attribute_causes(vectors: np.ndarray, table: FunctionTable, below: float, n_below: int | None = None) -> Causes:
+    """Weight of every function in the span of ``vectors`` (orthonormal columns, whole
+    degenerate groups), summed per atom, shell, angular momentum and diffuse/not; each
+    list sums to 1. The weights are the diagonal of the projector onto that span (divided
+    by its dimension), which does not depend on the choice of vectors inside it."""
     k = vectors.shape[1]
     w = np.einsum("ik,ik->i", vectors, vectors) / max(k, 1)
     n_atoms = len(table.elements)
@@ -57,4 +62,4 @@ def attribute_causes(vectors: np.ndarray, table: FunctionTable, below: float) ->
         for s in sorted(range(table.n_shells), key=lambda s: (-shell_w[s], s))[:MAX_SHELLS_LISTED]
     ]
     angular = [{"l": L_LETTERS[l], "weight": r(l_w[l])} for l in sorted(range(l_w.size), key=lambda l: (-l_w[l], l))]
-    return Causes(k, below, atoms, shells, angular, {"diffuse": r(dif_w), "other": r(1.0 - dif_w)})
+    return Causes(k, below, n_below, atoms, shells, angular, {"diffuse": r(dif_w), "other": r(1.0 - dif_w)})

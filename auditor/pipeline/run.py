@@ -113,7 +113,7 @@ def audit_prepared(
     findings: list[Finding] = geometry_findings(mol)
     findings += duplicate_findings(S, table)
     findings += crowding_findings(S, mol, table, troubled=spec.smallest < policy.caution)
-    causes = attribute_causes(spec.vectors, table, below=policy.caution)
+    causes = attribute_causes(spec.vectors, table, below=policy.caution, n_below=spec.count_below(policy.caution))
     verdict, reason = decide(policy, spec.smallest, [f.kind for f in findings])
     recommendation = advise(spec, default_threshold=_default_threshold(policy), min_kept=policy.fail)
     if spec.smallest < policy.caution:

@@ -6,7 +6,7 @@ from pathlib import Path
 from typing import TYPE_CHECKING
 
 from ..base.files import atomic_write
-from .text import FunctionSubsetView, RemediesView, ShellPruningView, TrialView, remedies_view
+from .text import FunctionSubsetView, RemediesView, ShellPruningView, TrialView, remedies_view, vectors_note
 
 if TYPE_CHECKING:
     from ..pipeline.result import AuditResult
@@ -30,7 +30,7 @@ def render_markdown(r: AuditResult | dict, extra_sections: list[str] | None = No
     lines = _heading_lines(d)
     lines += _spectrum_lines(d["spectrum"])
     lines += _findings_lines(d["findings"])
-    lines += _causes_lines(d["causes"])
+    lines += _causes_lines(d)
     lines += _orthogonalization_lines(d["recommendation"], n_functions)
     lines += remedies_lines(d.get("remedies"), n_functions)
     lines += extra_sections or []
@@ -92,14 +92,13 @@ def _findings_lines(findings: list[dict]) -> list[str]:
     return lines
 
 
-def _causes_lines(c: dict) -> list[str]:
+def _causes_lines(d: dict) -> list[str]:
+    c = d["causes"]
     lines = [
         "",
         "## Where the near-null space sits",
         "",
-        f"Share of each function in the {c['n_vectors']} eigenvector(s) "
-        + (f"with eigenvalue below {c['vectors_below']:.0e}" if c["n_vectors"] else "")
-        + " (or the few smallest when none are), summed; each table adds up to 1. "
+        f"Share of each function in {vectors_note(d)}, summed; each table adds up to 1. "
         f"Diffuse shells carry {c['diffuse']['diffuse']:.1%} of it.",
         "",
         "| atom | element | ghost | share |",

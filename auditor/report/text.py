@@ -15,14 +15,21 @@ from ..base.elements import L_LETTERS
 
 def vectors_note(d: dict) -> str:
     """Which eigenvectors the causes were summed over, in words."""
-    c, sp = d["causes"], d["spectrum"]
-    k, level = c["n_vectors"], c["vectors_below"]
-    below = sum(1 for v in sp["eigenvalues"] if v is not None and v < level)
-    if len(sp["eigenvalues"]) < d["input"]["n_functions"]:
-        below = sp["counts_below"].get(format(level, ".0e"), below)
-    if below is not None and below >= k:
-        return f"the {k} eigenvector(s) with eigenvalue below {level:.0e}"
-    return f"the {k} smallest eigenvector(s) ({below or 'none'} below {level:.0e})"
+    c = d["causes"]
+    k, level, below = c["n_vectors"], c["vectors_below"], c.get("n_below")
+    if not below:
+        group = (
+            "the eigenvector of the smallest eigenvalue"
+            if k == 1
+            else (f"the {k} eigenvectors of the smallest eigenvalue, a degenerate group")
+        )
+        return f"{group} (none lies below {level:.0e})"
+    if below > k:
+        return f"the {k} smallest of the {below} eigenvectors with eigenvalue below {level:.0e}"
+    text = f"the {below} eigenvector(s) with eigenvalue below {level:.0e}"
+    if k > below:
+        text += f" and {k - below} more completing a degenerate group (equal eigenvalues: only their span is defined)"
+    return text
 
 
 def yes_no(flag: Any) -> str:
