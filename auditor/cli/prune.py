@@ -66,7 +66,7 @@ def prune(
     except AuditorError as exc:
         fail(exc.message, exc.exit_code)
     if not quiet:
-        doc = plan.pruned
+        doc = plan.pruned or {}  # prune_prepared raises when no pruned basis was found
         out.print(
             f"{geometry.name}: kept {doc['n_functions']} of {doc['n_functions_full']} functions, "
             f"dropped {len(doc['dropped_shells'])} shell(s); smallest eigenvalue "

@@ -15,6 +15,7 @@ from ..inputs.basis import BasisSpec
 from ..inputs.geometry import load_molecules
 from ..pipeline.result import AuditResult
 from ..pipeline.run import audit_prepared, prepare
+from ..remedies.plan import RemedyOptions
 from ..report.naming import report_stem, unique_name
 from ..report.writers import write_reports
 
@@ -42,7 +43,7 @@ def audit_paths(
     ghost: str | None = None,
     spectrum_method: str = "auto",
     on_result: Callable[[AuditResult], None] | None = None,
-    remedies: bool = True,
+    remedies: bool | RemedyOptions = True,
 ) -> RunOutcome:
     """Audit every frame of every file; collect errors per file instead of stopping."""
     with protect([*paths, *spec.files()]):

@@ -239,7 +239,7 @@ def load_shells(name: str, element: str) -> tuple:
     return tuple(_freeze(s) for s in shells)
 
 
-def _bad_exponent(shells):
+def _bad_exponent(shells: list) -> object | None:
     for shell in shells:
         prims = shell[2:] if isinstance(shell[1], int) else shell[1:]
         for p in prims:
@@ -248,7 +248,7 @@ def _bad_exponent(shells):
     return None
 
 
-def _freeze(shell):
+def _freeze(shell: object) -> object:
     if isinstance(shell, list):
         return tuple(_freeze(x) for x in shell)
     return shell
@@ -284,7 +284,7 @@ def parent_basis(name: str) -> str | None:
     return None
 
 
-def _min_exponent_by_l(shells) -> dict[int, float]:
+def _min_exponent_by_l(shells: tuple | list) -> dict[int, float]:
     out: dict[int, float] = {}
     for shell in shells:
         l = shell[0]

@@ -15,6 +15,7 @@ second copy:
 from __future__ import annotations
 
 import time
+from dataclasses import replace
 from typing import Any
 
 import numpy as np
@@ -88,9 +89,18 @@ def large_spectrum(
     finally:
         tri.restore()
     info["t_total"] = time.perf_counter() - t0
+    wanted = max(min(below_tau, max_vectors), 1)  # the cause vectors: those below tau, else the smallest group
+    spectrum = _assemble(values, vectors, largest, counts, bound, wanted)
+    # exactly below_tau eigenvalues lie below tau, so the first one not computed is >= tau
+    return replace(spectrum, beyond=tau if values.size >= below_tau else None)
+
+
+def _assemble(values, vectors, largest: float, counts, bound: float, wanted: int) -> Spectrum:
+    """The Spectrum of the computed pairs: cause vectors and growth figures over whole
+    degenerate groups only."""
+    n = vectors.shape[0]
     group_tol = degeneracy_tolerance(n, largest) + RITZ_RTOL * float(values[-1])
     formed = _confirmed_groups(values, group_tol, n)
-    wanted = max(min(below_tau, max_vectors), 1)  # the cause vectors: those below tau, else the smallest group
     causes = min(formed, complete_groups(values[:formed], min(wanted, formed), group_tol))
     return Spectrum(
         n=n,
@@ -104,8 +114,6 @@ def large_spectrum(
         complete=False,
         growth_by_column=column_growth(vectors[:, :formed], values, group_tol),
         degeneracy_tol=group_tol,
-        # exactly below_tau eigenvalues lie below tau, so the first one not computed is >= tau
-        beyond=tau if values.size >= below_tau else None,
     )
 
 

@@ -5,6 +5,7 @@ from __future__ import annotations
 import math
 import re
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
@@ -28,7 +29,7 @@ from ..numerics.memory import check_memory
 from ..numerics.overlap import FunctionTable, build_mole, function_table, mole_function_table, normalized_overlap
 from ..numerics.spectrum import Spectrum
 from ..remedies.canonical import advise
-from ..remedies.plan import RemedyOptions, make_plan, remedies_for
+from ..remedies.plan import RemedyOptions, RemedyPlan, make_plan, remedies_for
 from ..remedies.subset import check_target
 from .result import AuditResult, InputInfo, SpectrumInfo
 
@@ -44,7 +45,9 @@ class Prepared:
     S: np.ndarray
 
 
-def make_spec(basis: str | BasisSpec | None, basis_for=None, cartesian: bool = False) -> BasisSpec:
+def make_spec(
+    basis: str | BasisSpec | None, basis_for: dict[str, str] | list[str] | None = None, cartesian: bool = False
+) -> BasisSpec:
     """BasisSpec from a name (or file) plus overrides given as dict or ['H=cc-pvtz', ...]."""
     if isinstance(basis, BasisSpec):
         return basis
@@ -69,7 +72,7 @@ def prepare(mol: Molecule, spec: BasisSpec, spectrum_method: str = "large") -> P
     return Prepared(mol, spec, pm, table, normalized_overlap(pm))
 
 
-def _from_mole(pm) -> tuple[Molecule, BasisSpec]:
+def _from_mole(pm: Any) -> tuple[Molecule, BasisSpec]:
     symbols, ghost = [], []
     for i in range(pm.natm):
         raw = re.sub(r"^(ghost-?|x-)", "", pm.atom_pure_symbol(i), flags=re.IGNORECASE)
@@ -101,7 +104,10 @@ def _from_mole(pm) -> tuple[Molecule, BasisSpec]:
 
 
 def audit_prepared(
-    prep: Prepared, policy: Policy | None = None, spectrum_method: str = "auto", remedies=True
+    prep: Prepared,
+    policy: Policy | None = None,
+    spectrum_method: str = "auto",
+    remedies: bool | RemedyOptions = True,
 ) -> AuditResult:
     """Run the whole audit on a prepared geometry + basis.
 
@@ -179,17 +185,17 @@ def _spectrum_info(spec: Spectrum) -> SpectrumInfo:
 
 
 def audit(
-    source,
+    source: Any,
     basis: str | BasisSpec | None = None,
     *,
-    basis_for=None,
+    basis_for: dict[str, str] | list[str] | None = None,
     cartesian: bool = False,
     unit: str = "angstrom",
     ghost: str | list[int] | None = None,
     frame: int = 1,
     policy: Policy | None = None,
     spectrum_method: str = "auto",
-    remedies=True,
+    remedies: bool | RemedyOptions = True,
 ) -> AuditResult:
     """Audit one geometry in one basis and return the result object.
 
@@ -224,7 +230,9 @@ def audit(
     return audit_prepared(prepare(mol, spec, spectrum_method), policy, spectrum_method, remedies)
 
 
-def prune_prepared(prep, policy=None, options: RemedyOptions | None = None):
+def prune_prepared(
+    prep: Prepared, policy: Policy | None = None, options: RemedyOptions | None = None
+) -> tuple[AuditResult, RemedyPlan]:
     """Audit a prepared geometry and work out its pruned basis even when nothing must go.
 
     Returns (AuditResult with remedies, RemedyPlan). Raises UsageError when no shell-pruned

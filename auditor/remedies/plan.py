@@ -4,6 +4,7 @@ subset of functions, a shell-pruned per-atom basis, and dropping one element's d
 from __future__ import annotations
 
 from dataclasses import dataclass, field, replace
+from typing import Any
 
 import numpy as np
 
@@ -143,7 +144,7 @@ class RemedyPlan:
         )
 
 
-def _function_subset(f: Selection, table) -> FunctionSubset:
+def _function_subset(f: Selection, table: FunctionTable) -> FunctionSubset:
     return FunctionSubset(
         tolerance=f.tolerance,
         smallest_kept=f.smallest_kept,
@@ -156,7 +157,7 @@ def _function_subset(f: Selection, table) -> FunctionSubset:
     )
 
 
-def _shell_pruning(s: Selection, table) -> ShellPruning:
+def _shell_pruning(s: Selection, table: FunctionTable) -> ShellPruning:
     chosen = "shell pivoting" if s.search != "from-functions" else "shells the function-level subset leaves whole"
     return ShellPruning(
         chosen_by=chosen,
@@ -178,7 +179,14 @@ def _shell_sets(s: Selection) -> tuple[np.ndarray, np.ndarray]:
 
 
 def _best_shell_selection(
-    S, table, target, functions, atoms, mode, problems, shell_pivoting: bool = True
+    S: np.ndarray,
+    table: FunctionTable,
+    target: float,
+    functions: Selection | None,
+    atoms: np.ndarray,
+    mode: str,
+    problems: list[str],
+    shell_pivoting: bool = True,
 ) -> Selection | None:
     """The whole-shell kept set that drops fewer functions: shell pivoting, or the shells the
     function-level subset leaves untouched (both followed by the add-back pass).
@@ -208,7 +216,16 @@ def _best_shell_selection(
     return min(found, key=lambda s: s.n_dropped)  # ties: shell pivoting (listed first)
 
 
-def _alt(kind, title, removed, unit, smallest, target, how, **extra) -> Alternative:
+def _alt(
+    kind: str,
+    title: str,
+    removed: int | None,
+    unit: str,
+    smallest: float | None,
+    target: float,
+    how: str,
+    **extra: Any,
+) -> Alternative:
     reaches = bool(smallest is not None and smallest >= target)
     return Alternative(kind, title, removed, unit, smallest, reaches, how, **extra)
 
@@ -224,7 +241,7 @@ def _memory_problem(n: int) -> str | None:
     )
 
 
-def _canonical(rec, target: float) -> Alternative:
+def _canonical(rec: Recommendation, target: float) -> Alternative:
     how = "keep the basis; drop eigenvectors of S below the threshold (canonical orthogonalization section)"
     title = f"canonical orthogonalization at {rec.threshold:.1e}"
     return _alt(
@@ -239,7 +256,7 @@ def _canonical(rec, target: float) -> Alternative:
     )
 
 
-def _add_function_subset(plan: RemedyPlan, S, atoms, mode) -> None:
+def _add_function_subset(plan: RemedyPlan, S: np.ndarray, atoms: np.ndarray, mode: str) -> None:
     try:
         f = plan.functions = select_for_target(S, plan.target, atom_of_function=atoms, verify=mode)
     except UsageError as exc:
@@ -259,7 +276,9 @@ def _add_function_subset(plan: RemedyPlan, S, atoms, mode) -> None:
     )
 
 
-def _add_shell_pruning(plan: RemedyPlan, prep, atoms, mode, shell_pivoting: bool) -> None:
+def _add_shell_pruning(
+    plan: RemedyPlan, prep: PreparedGeometry, atoms: np.ndarray, mode: str, shell_pivoting: bool
+) -> None:
     s = plan.shells = _best_shell_selection(
         prep.S, prep.table, plan.target, plan.functions, atoms, mode, plan.problems, shell_pivoting
     )
@@ -285,7 +304,7 @@ def _add_shell_pruning(plan: RemedyPlan, prep, atoms, mode, shell_pivoting: bool
     )
 
 
-def _add_diffuse_options(plan: RemedyPlan, S, table) -> None:
+def _add_diffuse_options(plan: RemedyPlan, S: np.ndarray, table: FunctionTable) -> None:
     plan.diffuse = diffuse_element_options(S, table, plan.target)
     for opt in plan.diffuse:
         if opt.reaches_target:

@@ -34,7 +34,7 @@ def _resolve(name: str) -> str:
 @cache
 def _text(name: str) -> str:
     filename = SCHEMAS[name][0]
-    return resources.files("auditor").joinpath("schemas", filename).read_text(encoding="utf-8")
+    return resources.files("auditor").joinpath("schemas").joinpath(filename).read_text(encoding="utf-8")
 
 
 def load_schema(name: str) -> dict:
@@ -55,7 +55,7 @@ def schema_name(document: dict) -> str:
 @cache
 def _validator(name: str):
     try:
-        import jsonschema  # type: ignore[import-untyped]
+        import jsonschema
     except ImportError:
         raise ModuleNotFoundError(
             "validating auditor documents needs the jsonschema package: "
@@ -72,7 +72,7 @@ def validate(document: dict, name: str | None = None) -> None:
     ``document`` (parsed JSON) matches the schema ``name``; without ``name`` the
     document's own tag decides."""
     validator = _validator(_resolve(name) if name is not None else schema_name(document))
-    from jsonschema.exceptions import best_match  # type: ignore[import-untyped]
+    from jsonschema.exceptions import best_match
 
     error = best_match(validator.iter_errors(document))
     if error is not None:

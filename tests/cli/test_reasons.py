@@ -48,8 +48,9 @@ def test_stray_hydrogen_fails_everywhere(tmp_path, monkeypatch):
 
 def test_scan_frame_with_a_too_short_bond_fails(water):
     # an N-H of 0.47 Å (46 % of the covalent-radius sum) in one frame of a scan
-    r = auditor.audit(auditor.Molecule(("N", "H"), [[0, 0, 0], [0, 0, 0.47]], (False, False)), "cc-pvdz",
-                      remedies=False)
+    r = auditor.audit(
+        auditor.Molecule(("N", "H"), [[0, 0, 0], [0, 0, 0.47]], (False, False)), "cc-pvdz", remedies=False
+    )
     assert r.verdict == "fail" and r.verdict_finding == "impossible_contact"
 
 

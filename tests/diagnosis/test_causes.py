@@ -69,16 +69,25 @@ def test_rotation_inside_a_degenerate_eigenspace_changes_no_figure():
     ga, gb = column_growth(U, w, tol), column_growth(V, w, tol)
     assert np.allclose(ga, gb, rtol=1e-10)
     # and it is attained: no rotation of the group gives a larger element, and one gives it
-    worst = max(np.abs(U[:, lo:hi] @ np.linalg.qr(np.random.default_rng(s).standard_normal((hi - lo,) * 2))[0]).max()
-                for s in range(200))
+    worst = max(
+        np.abs(U[:, lo:hi] @ np.linalg.qr(np.random.default_rng(s).standard_normal((hi - lo,) * 2))[0]).max()
+        for s in range(200)
+    )
     assert worst / np.sqrt(w[lo]) <= ga[lo] * (1 + 1e-9)
 
 
 def test_ghost_planted_near_a_hydrogen_takes_the_blame_with_it_alone():
     # water dimer with a ghost H 0.3 Å from H5: the near-null space is that pair
     sym = ["O", "H", "H", "O", "H", "H", "H"]
-    xyz = [[0.0, 0.0, 0.0], [0.757, 0.586, 0.0], [-0.757, 0.586, 0.0],
-           [0.0, -2.9, 0.0], [0.757, -3.486, 0.0], [-0.757, -3.486, 0.0], [0.757 + 0.3, -3.486, 0.0]]
+    xyz = [
+        [0.0, 0.0, 0.0],
+        [0.757, 0.586, 0.0],
+        [-0.757, 0.586, 0.0],
+        [0.0, -2.9, 0.0],
+        [0.757, -3.486, 0.0],
+        [-0.757, -3.486, 0.0],
+        [0.757 + 0.3, -3.486, 0.0],
+    ]
     mol = make_molecule(sym, xyz, ghost=[False] * 6 + [True])
     r = auditor.audit(mol, "aug-cc-pvdz", remedies=False)
     shares = {a["atom"]: a["weight"] for a in r.causes.atoms}
