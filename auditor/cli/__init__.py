@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import os
 import sys
+from typing import Annotated
 
 import typer
 
@@ -26,6 +27,23 @@ app = typer.Typer(
 )
 for command in (check.check, prune.prune, demo.demo, gate.gate):
     app.command()(command)
+
+
+def _print_version(value: bool) -> None:
+    if value:
+        from .. import __version__
+
+        print(f"auditor {__version__}")
+        raise typer.Exit(0)
+
+
+@app.callback()
+def _options(
+    version: Annotated[
+        bool, typer.Option("--version", callback=_print_version, is_eager=True, help="Print the version and exit.")
+    ] = False,
+) -> None:
+    """Audit Gaussian basis sets for near-linear dependence: overlap spectrum, causes, remedies."""
 
 
 def main() -> None:

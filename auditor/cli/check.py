@@ -13,7 +13,13 @@ from .console import err, fail, out
 
 
 def check(
-    geometry: Annotated[list[Path], typer.Argument(help="XYZ / extended XYZ files (every frame is audited).")],
+    geometry: Annotated[
+        list[str],
+        typer.Argument(
+            help="Geometry files, folders (searched recursively), glob patterns, or @LIST files "
+            "(every frame is audited)."
+        ),
+    ],
     basis: o.Basis,
     basis_for: o.BasisFor = None,
     cartesian: o.Cartesian = False,

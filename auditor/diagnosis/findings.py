@@ -7,10 +7,11 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
 
-from ..base.elements import BOHR_IN_ANGSTROM, NOBLE, covalent_radii
+from ..base.elements import BOHR_IN_ANGSTROM, ELEMENTS, NOBLE, covalent_radii
 from ..inputs.geometry import Molecule
 from ..numerics.overlap import FunctionTable
 from ..numerics.spectrum import SCAN_BYTES, Spectrum
@@ -20,7 +21,13 @@ from .verdict import Policy
 COINCIDENT_ANGSTROM = 0.01  # closer than this, two centres are one: S is singular
 
 
-SHORT_CONTACT_RATIO = 0.6  # d < 0.6 (r_i + r_j): far shorter than any bond
+#: Contacts, as distance over the sum of covalent radii (Cordero et al., Dalton Trans. 2008,
+#: 2832). The shortest chemical bonds are triple bonds at about 0.77-0.79 of that sum
+#: (N2 1.098 Å, CO 1.128 Å, C2H2's C-C 1.203 Å; experimental lengths from memory) and H2 is
+#: 1.19 of it: below CONTACT_CAUTION no bond is known (a caution), below CONTACT_FAIL the
+#: geometry is impossible (a fail). Both are policy settings (common practice, our margins).
+CONTACT_CAUTION = 0.7
+CONTACT_FAIL = 0.5
 
 
 DUPLICATE_OVERLAP = 0.99  # |S_ij| at which two functions are near-copies
@@ -51,18 +58,33 @@ def _atom_name(mol: Molecule, i: int) -> str:
     return f"{mol.symbols[i]}{i + 1}" + (" (ghost)" if mol.ghost[i] else "")
 
 
-def geometry_findings(mol: Molecule) -> list[Finding]:
-    """Coincident atoms, impossible short contacts, and a unit mix-up."""
+def geometry_findings(
+    mol: Molecule, contact_fail: float = CONTACT_FAIL, contact_caution: float = CONTACT_CAUTION
+) -> list[Finding]:
+    """Coincident atoms, impossible and short contacts, a unit mix-up, and an electron count
+    that the multiplicity cannot have. ``contact_fail`` and ``contact_caution`` are the
+    distance / covalent-radius-sum ratios below which a contact is impossible or short."""
     from scipy.spatial import cKDTree  # scipy.spatial is slow to import and only this check needs it
 
-    findings: list[Finding] = []
+    findings = _spin_findings(mol)
     if mol.n_atoms < 2:
         return findings
-    xyz = mol.coords
-    tree = cKDTree(xyz)
+    findings += _coincident(mol, cKDTree(mol.coords))
+    real = np.flatnonzero(~np.asarray(mol.ghost))
+    if real.size < 2:
+        return findings
+    rad = covalent_radii([mol.symbols[i] for i in real])
+    rtree = cKDTree(mol.coords[real])
+    findings += _contacts(mol, real, rad, rtree, contact_fail, contact_caution)
+    unit = _unit_finding(mol, real, mol.coords[real], rad, rtree)
+    return findings + ([unit] if unit else [])
+
+
+def _coincident(mol: Molecule, tree: Any) -> list[Finding]:
+    out = []
     for i, j in sorted(tree.query_pairs(COINCIDENT_ANGSTROM)):
-        d = float(np.linalg.norm(xyz[i] - xyz[j]))
-        findings.append(
+        d = float(np.linalg.norm(mol.coords[i] - mol.coords[j]))
+        out.append(
             Finding(
                 "coincident_atoms",
                 "error",
@@ -72,40 +94,71 @@ def geometry_findings(mol: Molecule) -> list[Finding]:
                 {"distance_angstrom": round(d, 6)},
             )
         )
+    return out
 
-    real = np.flatnonzero(~np.asarray(mol.ghost))
-    if real.size < 2:
-        return findings
-    rad = covalent_radii([mol.symbols[i] for i in real])
-    rxyz = xyz[real]
-    rtree = cKDTree(rxyz)
-    for a, b in sorted(rtree.query_pairs(SHORT_CONTACT_RATIO * 2 * rad.max())):
-        d = float(np.linalg.norm(rxyz[a] - rxyz[b]))
+
+def _contacts(
+    mol: Molecule, real: np.ndarray, rad: np.ndarray, rtree: Any, fail: float, caution: float
+) -> list[Finding]:
+    """Pairs of real atoms closer than ``caution`` (impossible below ``fail``) times the sum
+    of their covalent radii; coincident pairs are reported by `_coincident` instead."""
+    out = []
+    xyz = mol.coords[real]
+    for a, b in sorted(rtree.query_pairs(caution * 2 * rad.max())):
+        d = float(np.linalg.norm(xyz[a] - xyz[b]))
         limit = rad[a] + rad[b]
-        if COINCIDENT_ANGSTROM <= d < SHORT_CONTACT_RATIO * limit:
-            i, j = int(real[a]), int(real[b])
-            findings.append(
-                Finding(
-                    "short_contact",
-                    "warning",
-                    (i + 1, j + 1),
-                    f"{_atom_name(mol, i)} and {_atom_name(mol, j)} are {d:.3f} Å apart, "
-                    f"{d / limit:.0%} of their covalent-radius sum ({limit:.2f} Å): no bond is that short.",
-                    {"distance_angstrom": round(d, 6), "ratio_to_covalent_sum": round(d / limit, 4)},
-                )
+        if not COINCIDENT_ANGSTROM <= d < caution * limit:
+            continue
+        i, j = int(real[a]), int(real[b])
+        impossible = d < fail * limit
+        what = "no chemical bond is that short" if impossible else "shorter than any chemical bond"
+        out.append(
+            Finding(
+                "impossible_contact" if impossible else "short_contact",
+                "error" if impossible else "warning",
+                (i + 1, j + 1),
+                f"{_atom_name(mol, i)} and {_atom_name(mol, j)} are {d:.3f} Å apart, "
+                f"{d / limit:.0%} of their covalent-radius sum ({limit:.2f} Å): {what}.",
+                {"distance_angstrom": round(d, 6), "ratio_to_covalent_sum": round(d / limit, 4)},
             )
-    unit = _unit_finding(mol, real, rxyz, rad, rtree)
-    if unit:
-        findings.append(unit)
-    return findings
+        )
+    return out
 
 
-def _unit_finding(mol, real, rxyz, rad, rtree) -> Finding | None:
+def _spin_findings(mol: Molecule) -> list[Finding]:
+    """An electron count (nuclear charges of the real atoms minus the charge) that the
+    declared multiplicity 2S+1 cannot go with: S must be a multiple of 1/2 with 2S of the
+    parity of the electron count, and 2S cannot exceed the count."""
+    if not mol.multiplicity:
+        return []
+    nelec = sum(ELEMENTS.index(s) + 1 for s, g in zip(mol.symbols, mol.ghost) if not g) - int(mol.charge)
+    unpaired = int(mol.multiplicity) - 1
+    if nelec >= unpaired and (nelec - unpaired) % 2 == 0:
+        return []
+    if nelec < unpaired:
+        why = f"{max(nelec, 0)} electrons cannot have {unpaired} unpaired"
+    else:
+        even = nelec % 2 == 0
+        why = f"an {'even' if even else 'odd'} count needs an {'odd' if even else 'even'} multiplicity"
+    return [
+        Finding(
+            "spin_parity",
+            "warning",
+            (),
+            f"{nelec} electrons (charge {mol.charge:+d}) and multiplicity {mol.multiplicity} do not go together: "
+            f"{why}. The overlap does not depend on them, but a calculation with these settings will not run "
+            "as meant: check the charge and multiplicity of the file.",
+            {"electrons": nelec, "charge": int(mol.charge), "multiplicity": int(mol.multiplicity)},
+        )
+    ]
+
+
+def _unit_finding(mol: Molecule, real: np.ndarray, rxyz: np.ndarray, rad: np.ndarray, rtree: Any) -> Finding | None:
     """Nearest-neighbour distances against covalent-radius sums, atom by atom.
 
     A sane molecule has most ratios near 1; numbers in bohr read as ångström put
-    them near 1.89, ångström read as bohr near 0.53. Noble-gas atoms are left out
-    (their nearest neighbours are not bonded).
+    them near 1.89, ångström read as bohr (or converted to ångström once too often) near
+    0.53. Noble-gas atoms are left out (their nearest neighbours are not bonded).
     """
     keep = np.array([mol.symbols[i] not in NOBLE for i in real])
     if keep.sum() < 2:
@@ -120,27 +173,21 @@ def _unit_finding(mol, real, rxyz, rad, rtree) -> Finding | None:
     bonded = np.mean((ratio > 0.75) & (ratio < 1.3))
     stretched = np.mean((ratio * BOHR_IN_ANGSTROM > 0.75) & (ratio * BOHR_IN_ANGSTROM < 1.3))
     shrunk = np.mean((ratio / BOHR_IN_ANGSTROM > 0.75) & (ratio / BOHR_IN_ANGSTROM < 1.3))
+    if bonded >= 0.2 or max(stretched, shrunk) < 0.6:
+        return None
+    lead = (
+        f"The median nearest-neighbour distance is {median:.2f} times the covalent-radius sum, so the "
+        "coordinates as read are about "
+    )
+    if stretched >= 0.6:
+        text = lead + "1.89 times too large: numbers in bohr read as ångström (use --unit bohr if the file is in bohr)."
+    else:
+        text = lead + (
+            "0.53 times too small: numbers in ångström read as bohr (--unit bohr on an ångström file), "
+            "or converted from bohr to ångström twice; check how the file was made."
+        )
     atoms = tuple(int(i) + 1 for i in real)
-    details = {"median_ratio_to_covalent_sum": round(median, 4)}
-    if bonded < 0.2 and stretched >= 0.6:
-        return Finding(
-            "suspect_units",
-            "error",
-            atoms,
-            f"Every bond is about {median:.2f} times the covalent-radius sum, as if the file "
-            f"held bohr read as ångström: check the unit (--unit bohr).",
-            details,
-        )
-    if bonded < 0.2 and shrunk >= 0.6:
-        return Finding(
-            "suspect_units",
-            "error",
-            atoms,
-            f"Every bond is about {median:.2f} times the covalent-radius sum, as if the file "
-            f"held ångström read as bohr: check the unit.",
-            details,
-        )
-    return None
+    return Finding("suspect_units", "error", atoms, text, {"median_ratio_to_covalent_sum": round(median, 4)})
 
 
 def _row_blocks(n: int, block: int):
@@ -285,18 +332,20 @@ def crowding_findings(S: np.ndarray, mol: Molecule, table: FunctionTable, troubl
 
 
 def near_singular_finding(spec: Spectrum, policy: Policy, causes: Causes) -> Finding:
-    severity = "error" if spec.smallest < policy.fail else "warning"
+    """The spectrum's own finding: its first words are the decision (below which level)."""
+    failing = spec.smallest < policy.fail
+    level = f"the {'fail' if failing else 'caution'} level {policy.fail if failing else policy.caution:.0e}"
     top = [a for a in causes.atoms[:5] if a["weight"] >= 0.05]
     who = ", ".join(f"{a['element']}{a['atom']} ({a['weight']:.0%})" for a in top)
     cond = spec.condition_number
     lost = f"about {math.log10(cond):.1f} digits lost" if cond else "singular to rounding"
     n_caution = spec.count_below(policy.caution)
-    count = f"{n_caution} eigenvalue(s) lie below {policy.caution:.0e}" if n_caution is not None else ""
+    count = f"; {n_caution} eigenvalue(s) lie below {policy.caution:.0e}" if n_caution is not None else ""
     return Finding(
         "near_singular",
-        severity,
+        "error" if failing else "warning",
         tuple(a["atom"] for a in top),
-        f"The smallest overlap eigenvalue is {spec.smallest:.2e} ({lost}); {count}"
+        f"Smallest overlap eigenvalue {spec.smallest:.2e} is below {level} ({lost}){count}"
         + (f"; the near-null space sits mostly on {who}." if who else "."),
         {"smallest": spec.smallest},
     )

@@ -4,11 +4,11 @@ Shared by ``auditor check`` and ``auditor demo``: one bad file never stops the o
 
 from __future__ import annotations
 
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from ..base.errors import EXIT_FAIL, EXIT_OK, AuditorError, failure
+from ..base.errors import EXIT_FAIL, EXIT_INPUT, EXIT_OK, AuditorError, failure
 from ..base.files import protect
 from ..diagnosis.verdict import Policy
 from ..inputs.basis import BasisSpec
@@ -16,8 +16,9 @@ from ..inputs.geometry import load_molecules
 from ..pipeline.result import AuditResult
 from ..pipeline.run import audit_prepared, prepare
 from ..remedies.plan import RemedyOptions
-from ..report.naming import report_stem, unique_name
+from ..report.naming import distinct_labels, report_stem, unique_name
 from ..report.writers import write_reports
+from .items import expand_inputs
 
 
 @dataclass
@@ -34,7 +35,7 @@ class RunOutcome:
 
 
 def audit_paths(
-    paths: list[Path],
+    paths: Sequence[str | Path],
     spec: BasisSpec,
     policy: Policy,
     out: Path | None,
@@ -45,21 +46,28 @@ def audit_paths(
     on_result: Callable[[AuditResult], None] | None = None,
     remedies: bool | RemedyOptions = True,
 ) -> RunOutcome:
-    """Audit every frame of every file; collect errors per file instead of stopping."""
-    with protect([*paths, *spec.files()]):
-        return _audit_each(paths, spec, policy, out, formats, unit, ghost, spectrum_method, on_result, remedies)
+    """Audit every frame of every file named by ``paths`` (files, folders searched
+    recursively, glob patterns and @lists, as for the gate); collect errors per input
+    instead of stopping. Reports of inputs that share a file name get enough of their path
+    in the stem to tell them apart."""
+    files, missing = expand_inputs([str(p) for p in paths])
+    with protect([*files, *spec.files()]):
+        outcome = _audit_each(files, spec, policy, out, formats, unit, ghost, spectrum_method, on_result, remedies)
+    outcome.errors = [(arg, message, EXIT_INPUT) for arg, message in missing] + outcome.errors
+    return outcome
 
 
 def _audit_each(paths, spec, policy, out, formats, unit, ghost, spectrum_method, on_result, remedies) -> RunOutcome:
     outcome = RunOutcome()
     used: set[str] = set()
-    for path in paths:
+    labels = distinct_labels([str(p) for p in paths])
+    for path, label in zip(paths, labels):
         try:
             frames = load_molecules(path, unit=unit, ghost=ghost)
             for mol in frames:
                 result = audit_prepared(prepare(mol, spec, spectrum_method), policy, spectrum_method, remedies)
                 if out is not None:
-                    stem = unique_name(report_stem(str(path), mol.frame + 1, mol.n_frames), used)
+                    stem = unique_name(report_stem(label.replace("/", "__"), mol.frame + 1, mol.n_frames), used)
                     outcome.written += write_reports(result, out, formats, stem)
                 outcome.results.append(result)
                 if on_result:

@@ -45,13 +45,15 @@ class Molecule:
         nelec = sum(ELEMENTS.index(s) + 1 for s, g in zip(self.symbols, self.ghost) if not g) - int(self.charge)
         return nelec % 2
 
-    def with_ghosts(self, numbers: list[int]) -> Molecule:
-        """Mark 1-based atom ``numbers`` as ghost atoms."""
+    def with_ghosts(self, numbers: list[int], option: str = "--ghost") -> Molecule:
+        """Mark 1-based atom ``numbers`` as ghost atoms (``option`` names the setting in messages)."""
         ghost = list(self.ghost)
         for k in numbers:
             if not 1 <= k <= self.n_atoms:
-                raise UsageError(f"--ghost names atom {k}, but {self.source} has {self.n_atoms} atoms")
+                raise UsageError(f"{option} names atom {k}, but {self.source} has {self.n_atoms} atoms")
             ghost[k - 1] = True
+        if all(ghost):
+            raise UsageError(f"{option} leaves {self.source} with no real atom: every atom would be a ghost atom")
         return replace(self, ghost=tuple(ghost))
 
 

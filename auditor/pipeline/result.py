@@ -59,6 +59,7 @@ class AuditResult:
     input: InputInfo
     verdict: str
     verdict_reason: str
+    verdict_finding: str | None
     policy: dict
     spectrum: SpectrumInfo
     findings: tuple[Finding, ...]

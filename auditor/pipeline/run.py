@@ -12,7 +12,7 @@ import numpy as np
 from .. import __version__
 from ..base.elements import element_symbol
 from ..base.errors import InputError, ResourceError, UsageError
-from ..diagnosis.causes import attribute_causes
+from ..diagnosis.causes import Causes, attribute_causes
 from ..diagnosis.findings import (
     SEVERITY_ORDER,
     Finding,
@@ -21,15 +21,15 @@ from ..diagnosis.findings import (
     geometry_findings,
     near_singular_finding,
 )
-from ..diagnosis.verdict import Policy, decide
+from ..diagnosis.verdict import BROKEN_KINDS, Decision, Policy, decide
 from ..inputs.basis import BasisSpec, check_basis_name, parse_overrides
 from ..inputs.geometry import Molecule, molecule_from_atoms, parse_atom_numbers, read_geometry
 from ..numerics.eigen import compute_spectrum
 from ..numerics.memory import check_memory
 from ..numerics.overlap import FunctionTable, build_mole, function_table, mole_function_table, normalized_overlap
 from ..numerics.spectrum import Spectrum
-from ..remedies.canonical import advise
-from ..remedies.plan import RemedyOptions, RemedyPlan, make_plan, remedies_for
+from ..remedies.canonical import Recommendation, advise, broken_geometry_advice
+from ..remedies.plan import Remedies, RemedyOptions, RemedyPlan, make_plan, remedies_for
 from ..remedies.subset import check_target
 from .result import AuditResult, InputInfo, SpectrumInfo
 
@@ -65,7 +65,10 @@ def prepare(mol: Molecule, spec: BasisSpec, spectrum_method: str = "large") -> P
 
     The memory guard runs before S is built: ResourceError when S plus the spectrum
     step of ``spectrum_method`` cannot fit ("large" checks only what any audit needs).
+    A geometry without a real atom is a UsageError: nothing would carry nuclei or electrons.
     """
+    if mol.n_atoms and all(mol.ghost):
+        raise UsageError(f"{mol.source}: no real atom: all {mol.n_atoms} atoms are ghost atoms")
     pm = build_mole(mol, spec)
     check_memory(pm.nao, spectrum_method)
     table = function_table(mol, spec)
@@ -112,35 +115,62 @@ def audit_prepared(
     """Run the whole audit on a prepared geometry + basis.
 
     ``remedies``: True (default options), an ``auditor.RemedyOptions``, or False to skip them.
+    A broken geometry (coincident atoms, an impossible contact, a unit mix-up) gets no
+    threshold and no remedy: the file must be fixed first.
     """
     policy = policy or Policy()
-    mol, table, S = prep.molecule, prep.table, prep.S
-    spec = compute_spectrum(S, vector_level=policy.caution, method=spectrum_method)
-    findings: list[Finding] = geometry_findings(mol)
-    findings += duplicate_findings(S, table)
-    findings += crowding_findings(S, mol, table, troubled=spec.smallest < policy.caution)
-    causes = attribute_causes(spec.vectors, table, below=policy.caution, n_below=spec.count_below(policy.caution))
-    verdict, reason = decide(policy, spec.smallest, [f.kind for f in findings])
-    recommendation = advise(spec, default_threshold=_default_threshold(policy), min_kept=policy.fail)
-    if spec.smallest < policy.caution:
-        findings.insert(0, near_singular_finding(spec, policy, causes))
-    findings.sort(key=lambda f: SEVERITY_ORDER[f.severity])  # stable: keeps order within a severity
-    remedy_part = None
-    if remedies is not False:
-        options = remedies if isinstance(remedies, RemedyOptions) else RemedyOptions()
-        remedy_part = remedies_for(prep, recommendation, spec.smallest, options, policy.caution)
+    spec = compute_spectrum(prep.S, vector_level=policy.caution, method=spectrum_method)
+    causes = attribute_causes(spec.vectors, prep.table, below=policy.caution, n_below=spec.count_below(policy.caution))
+    findings = _findings(prep, spec, policy, causes)
+    decision = decide(policy, spec.smallest, findings)
+    broken = decision.finding in BROKEN_KINDS
+    if broken:
+        recommendation = broken_geometry_advice(spec, decision.finding or "")
+    else:
+        recommendation = advise(spec, _default_threshold(policy), policy.fail, prep.spec.cartesian)
     return AuditResult(
         version=__version__,
         input=_input_info(prep),
-        spectrum=_spectrum_info(spec),
-        verdict=verdict,
-        verdict_reason=reason,
+        verdict=decision.verdict,
+        verdict_reason=decision.reason,
+        verdict_finding=decision.finding,
         policy=policy.as_dict(),
+        spectrum=_spectrum_info(spec),
         findings=tuple(findings),
         causes=causes,
         recommendation=recommendation,
-        remedies=remedy_part,
+        remedies=_remedies(prep, recommendation, spec.smallest, policy, remedies, decision if broken else None),
     )
+
+
+def _findings(prep: Prepared, spec: Spectrum, policy: Policy, causes: Causes) -> list[Finding]:
+    """Every finding, errors first (stable within a severity)."""
+    mol, table, S = prep.molecule, prep.table, prep.S
+    findings: list[Finding] = geometry_findings(mol, policy.contact_fail, policy.contact_caution)
+    findings += duplicate_findings(S, table)
+    findings += crowding_findings(S, mol, table, troubled=spec.smallest < policy.caution)
+    if spec.smallest < policy.caution:
+        findings.insert(0, near_singular_finding(spec, policy, causes))
+    findings.sort(key=lambda f: SEVERITY_ORDER[f.severity])
+    return findings
+
+
+def _remedies(
+    prep: Prepared,
+    recommendation: Recommendation,
+    smallest: float,
+    policy: Policy,
+    remedies: bool | RemedyOptions,
+    broken: Decision | None,
+) -> Remedies | None:
+    if remedies is False:
+        return None
+    options = remedies if isinstance(remedies, RemedyOptions) else RemedyOptions()
+    if broken is not None:
+        target = policy.caution if options.target is None else options.target
+        why = f"the geometry is broken ({broken.finding}): fix the geometry first; no remedy is offered for it"
+        return Remedies(target=target, needed=smallest < target, alternatives=[], problems=[why])
+    return remedies_for(prep, recommendation, smallest, options, policy.caution)
 
 
 def _default_threshold(policy: Policy) -> float:
@@ -225,7 +255,7 @@ def audit(
         mol = frames[frame - 1]
     numbers = parse_atom_numbers(ghost) if isinstance(ghost, str) else list(ghost or [])
     if numbers:
-        mol = mol.with_ghosts(numbers)
+        mol = mol.with_ghosts(numbers, option="ghost=")
     spec = make_spec(basis, basis_for, cartesian)
     return audit_prepared(prepare(mol, spec, spectrum_method), policy, spectrum_method, remedies)
 
@@ -244,6 +274,8 @@ def prune_prepared(
     options = replace(options or RemedyOptions(), force=True, shell_pivoting=True)
     check_target(policy.caution if options.target is None else options.target)
     result = audit_prepared(prep, policy, remedies=False)
+    if result.verdict_finding in BROKEN_KINDS:
+        raise UsageError(f"{prep.molecule.source}: {result.verdict_reason} Fix the geometry before pruning its basis.")
     plan = make_plan(prep, result.recommendation, result.spectrum.smallest, options, policy.caution)
     if plan.pruned is None:
         memory = [p for p in plan.problems if p.startswith("remedies skipped")]

@@ -24,15 +24,20 @@ class Candidate:
 
 @dataclass(frozen=True)
 class Recommendation:
-    """The advised threshold tau for X = U_k Lambda_k^-1/2 (eigenvalues >= tau kept)."""
+    """The advised threshold tau for X = U_k Lambda_k^-1/2 (eigenvalues >= tau kept); None
+    when the geometry is broken (the file must be fixed first). ``versus_library`` says
+    what following the advice changes against pyscf's own default threshold."""
 
-    threshold: float
+    threshold: float | None
     reason: str
     n_removed: int | None
     smallest_kept: float | None
     max_transform_element: float | None
     candidates: list[Candidate]
     how_to: str
+    library_default: float
+    same_as_library_default: bool
+    versus_library: str
 
 
 def find_gap(
@@ -77,13 +82,22 @@ def candidate(spec: Spectrum, threshold: float) -> Candidate:
     return Candidate(threshold, n_removed, smallest_kept, growth)
 
 
-def advise(spec: Spectrum, default_threshold: float, min_kept: float = 0.0) -> Recommendation:
+def library_default_threshold() -> float:
+    """The threshold below which pyscf drops eigenvectors of its S by default
+    (``pyscf.scf.hf.overlap_zero_eigenvalue_threshold``, 1e-6 in pyscf 2.x), as installed."""
+    from pyscf.scf import hf  # read from the installed pyscf (a user's configuration can change it)
+
+    return float(getattr(hf, "overlap_zero_eigenvalue_threshold", 1e-6))
+
+
+def advise(spec: Spectrum, default_threshold: float, min_kept: float = 0.0, cartesian: bool = False) -> Recommendation:
     """Recommend a canonical-orthogonalization threshold.
 
     A gap of at least MIN_GAP_DECADES in the log-spectrum inside GAP_WINDOW, above
     which the kept eigenvalues are at least ``min_kept`` (the policy's fail level),
     is the natural place; otherwise ``default_threshold``. Candidates
-    1e-4 ... 1e-9 are tabulated so that the user can judge.
+    1e-4 ... 1e-9 are tabulated so that the user can judge; the advice is compared with
+    what pyscf does by default.
     """
     gap = find_gap(spec.values, min_kept=min_kept)
     if gap is not None:
@@ -107,6 +121,7 @@ def advise(spec: Spectrum, default_threshold: float, min_kept: float = 0.0) -> R
         "unit diagonal for spherical basis sets (for Cartesian d/f shells use the normalized-S "
         "transformation X instead)"
     )
+    library = library_default_threshold()
     return Recommendation(
         threshold=tau,
         reason=reason,
@@ -115,6 +130,61 @@ def advise(spec: Spectrum, default_threshold: float, min_kept: float = 0.0) -> R
         max_transform_element=chosen.max_transform_element,
         candidates=[candidate(spec, t) for t in CANDIDATES],
         how_to=how_to,
+        library_default=library,
+        same_as_library_default=_same(tau, library),
+        versus_library=_versus_library(chosen, candidate(spec, library), cartesian),
+    )
+
+
+def _same(a: float, b: float) -> bool:
+    return abs(a - b) <= 1e-12 * max(abs(a), abs(b))
+
+
+def _versus_library(chosen: Candidate, library: Candidate, cartesian: bool) -> str:
+    """What following the advice changes against pyscf's default, in one or two sentences."""
+    name = f"pyscf's default (pyscf.scf.hf.overlap_zero_eigenvalue_threshold = {library.threshold:.0e})"
+    if cartesian:
+        caveat = (
+            " For this Cartesian basis pyscf applies its threshold to its own S, which is not unit-diagonal,"
+            " so the directions it removes can differ from these."
+        )
+    else:
+        caveat = ""
+    if _same(chosen.threshold, library.threshold):
+        return (
+            f"This is {name}: an SCF in pyscf already removes these directions, so following the advice "
+            f"changes nothing there.{caveat}"
+        )
+
+    def what(c: Candidate) -> str:
+        kept = "not computed" if c.smallest_kept is None else f"{c.smallest_kept:.2e}"
+        growth = "not computed" if c.max_transform_element is None else f"{c.max_transform_element:.1f}"
+        removed = "an unknown number of" if c.n_removed is None else str(c.n_removed)
+        return f"removes {removed} direction(s), smallest kept eigenvalue {kept}, largest element of X {growth}"
+
+    return (
+        f"Against {name}, which {what(library)}, the advised {chosen.threshold:.1e} {what(chosen)}: "
+        f"set it as shown to change pyscf's behaviour.{caveat}"
+    )
+
+
+def broken_geometry_advice(spec: Spectrum, finding: str) -> Recommendation:
+    """No threshold for a broken geometry (coincident atoms, an impossible contact, a unit
+    mix-up): the file must be fixed first. The candidates stay, for reference only."""
+    return Recommendation(
+        threshold=None,
+        reason=(
+            f"the geometry is broken ({finding}): fix the geometry first; no threshold is advised, and the "
+            "table only shows what each threshold would remove"
+        ),
+        n_removed=None,
+        smallest_kept=None,
+        max_transform_element=None,
+        candidates=[candidate(spec, t) for t in CANDIDATES],
+        how_to="",
+        library_default=library_default_threshold(),
+        same_as_library_default=False,
+        versus_library="",
     )
 
 

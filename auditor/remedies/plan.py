@@ -365,7 +365,8 @@ def plan_remedies(
         return plan
     mode = verify_mode(table.n_functions)
     atoms = table.func_atom - 1
-    plan.alternatives.append(_canonical(recommendation, target))
+    if recommendation.threshold is not None:  # none is advised for a broken geometry
+        plan.alternatives.append(_canonical(recommendation, target))
     _add_function_subset(plan, S, atoms, mode)
     _add_shell_pruning(plan, prep, atoms, mode, shell_pivoting)
     _add_diffuse_options(plan, S, table)
@@ -401,7 +402,7 @@ def make_plan(
             plan.trial_scf = trial_scf(
                 prep,
                 options.trial_scf,
-                recommendation.threshold,
+                target if recommendation.threshold is None else recommendation.threshold,
                 plan.pruned,
                 options.trial_max_functions,
                 options.trial_time_limit,

@@ -20,6 +20,7 @@ from ..base.jsonio import clean
 from ..diagnosis.findings import SEVERITY_ORDER
 from .style import PAGE_CSS
 from .text import (
+    X_NOTE,
     FunctionSubsetView,
     RemediesView,
     ShellPruningView,
@@ -107,11 +108,11 @@ def _atoms_text(atoms: list, limit: int = 12) -> str:
 def explanation(d: dict) -> str:
     """One paragraph (HTML) that says what the verdict means for this geometry."""
     sp, c, rec, inp = d["spectrum"], d["causes"], d["recommendation"], d["input"]
-    parts = [escape(d["verdict_reason"][:1].upper() + d["verdict_reason"][1:]) + "."]
+    parts = [escape(d["verdict_reason"])]
     lc = sp["log10_condition"]
     smallest = (
         ""
-        if "smallest eigenvalue" in d["verdict_reason"]
+        if "overlap eigenvalue" in d["verdict_reason"]
         else f" (smallest eigenvalue {num('spectrum.smallest', sp['smallest'])})"
     )
     if lc is None:
@@ -125,7 +126,11 @@ def explanation(d: dict) -> str:
             f"{num('spectrum.log10_condition', lc, '.1f')}{smallest}: roughly that many decimal "
             "digits are lost when the basis is orthogonalized."
         )
-    errors = [f for f in d["findings"] if f["severity"] == "error" and f["kind"] != "near_singular"]
+    errors = [
+        f
+        for f in d["findings"]
+        if f["severity"] == "error" and f["kind"] not in ("near_singular", d.get("verdict_finding"))
+    ]
     if errors:
         parts.append("The geometry itself needs attention first: " + escape(errors[0]["message"]))
     top = [(i, a) for i, a in enumerate(c["atoms"][:3]) if a["weight"] >= 0.05]
@@ -137,7 +142,9 @@ def explanation(d: dict) -> str:
             f"The near-null space sits mostly on {who}; diffuse shells carry "
             f"{num('causes.diffuse.diffuse', c['diffuse']['diffuse'], '.0%')} of it."
         )
-    if rec["n_removed"]:
+    if rec["threshold"] is None:
+        parts.append("Fix the geometry first: no orthogonalization threshold or remedy is advised for a broken file.")
+    elif rec["n_removed"]:
         parts.append(
             f"Canonical orthogonalization with threshold "
             f"{num('recommendation.threshold', rec['threshold'], '.1e')} removes "
@@ -237,6 +244,9 @@ def _findings(d: dict) -> str:
 
 def _advice(d: dict) -> str:
     rec, n = d["recommendation"], d["input"]["n_functions"]
+    if rec["threshold"] is None:
+        head = f"<p>No threshold is advised: {escape(rec['reason'])}.</p>"
+        return head + _candidates_table(rec)
     head = (
         f"<p>Advised threshold <strong>τ = {num('recommendation.threshold', rec['threshold'], '.1e')}</strong>: "
         f"{escape(rec['reason'])}. Eigenvectors of S with eigenvalue below τ are dropped and the rest are "
@@ -244,8 +254,14 @@ def _advice(d: dict) -> str:
         f"{num('recommendation.n_removed', rec['n_removed'], 'd')} of "
         f"{num('input.n_functions', n, 'd')} functions; the smallest kept eigenvalue is "
         f"{num('recommendation.smallest_kept', rec['smallest_kept'])} and the largest element of X is "
-        f"{num('recommendation.max_transform_element', rec['max_transform_element'], '.1f')}.</p>"
+        f"{num('recommendation.max_transform_element', rec['max_transform_element'], '.1f')}. "
+        f"{escape(rec['versus_library'])}</p>"
     )
+    how = f"<h3>Applying it in pyscf</h3><pre><code>{escape(rec['how_to'])}</code></pre>"
+    return head + _candidates_table(rec) + how
+
+
+def _candidates_table(rec: dict) -> str:
     rows = []
     for i, c in enumerate(rec["candidates"]):
         chosen = ' class="chosen"' if c["threshold"] == rec["threshold"] else ""
@@ -262,8 +278,7 @@ def _advice(d: dict) -> str:
         + "".join(rows)
         + "</table>"
     )
-    how = f"<h3>Applying it in pyscf</h3><pre><code>{escape(rec['how_to'])}</code></pre>"
-    return head + table + how
+    return table + f'<p class="sub">{escape(X_NOTE)}</p>'
 
 
 def _label(key: str) -> str:

@@ -21,7 +21,11 @@ def _details(r: dict) -> str:
         "condition number: " + ("infinite (singular to rounding)" if math.isinf(cond) else f"{cond:.3e}"),
         f"functions: {r['n_functions']}, atoms: {r['n_atoms']}, basis: {r['basis']}",
         f"atom with the largest near-null-space weight: {r['top_atom'] or '-'}",
-        f"advised orthogonalization threshold: {r['threshold']:.1e} (removes {r['n_removed']} function(s))",
+        (
+            "advised orthogonalization threshold: none (fix the geometry first)"
+            if math.isnan(r["threshold"])
+            else f"advised orthogonalization threshold: {r['threshold']:.1e} (removes {r['n_removed']} function(s))"
+        ),
     ]
     if r.get("change"):
         lines.append(f"since the baseline: {r['change']}")

@@ -6,7 +6,16 @@ from pathlib import Path
 from typing import TYPE_CHECKING
 
 from ..base.files import atomic_write
-from .text import FunctionSubsetView, RemediesView, ShellPruningView, TrialView, remedies_view, vectors_note
+from .text import (
+    X_NOTE,
+    FunctionSubsetView,
+    RemediesView,
+    ShellPruningView,
+    TrialView,
+    advice_sentence,
+    remedies_view,
+    vectors_note,
+)
 
 if TYPE_CHECKING:
     from ..pipeline.result import AuditResult
@@ -51,7 +60,7 @@ def _heading_lines(d: dict) -> list[str]:
     return [
         f"# Basis overlap audit: {Path(inp['path']).name}{frame}",
         "",
-        f"**Verdict: {d['verdict'].upper()}**: {d['verdict_reason']}.",
+        f"**Verdict: {d['verdict'].upper()}**: {d['verdict_reason']}",
         "",
         f"Geometry `{inp['path']}`{frame}; basis {inp['basis']}; {inp['n_atoms']} atoms{ghosts}; "
         f"{inp['n_functions']} basis functions in {inp['n_shells']} shells. "
@@ -120,10 +129,7 @@ def _orthogonalization_lines(rec: dict, n_functions: int) -> list[str]:
         "",
         "## Canonical orthogonalization",
         "",
-        f"Suggested threshold **{rec['threshold']:.1e}**: {rec['reason']}. "
-        f"It removes {_fmt(rec['n_removed'], 'd')} of {n_functions} functions; the smallest kept "
-        f"eigenvalue is {_fmt(rec['smallest_kept'])} and the largest element of the transformation "
-        f"X = U Λ^-1/2 is {_fmt(rec['max_transform_element'], '.1f')}.",
+        advice_sentence(rec, n_functions) + (f" {rec['versus_library']}" if rec["versus_library"] else ""),
         "",
         "| threshold | functions removed | smallest kept eigenvalue | largest element of X |",
         "|---|---|---|---|",
@@ -133,7 +139,10 @@ def _orthogonalization_lines(rec: dict, n_functions: int) -> list[str]:
             f"| {cand['threshold']:.0e} | {_fmt(cand['n_removed'], 'd')} | "
             f"{_fmt(cand['smallest_kept'])} | {_fmt(cand['max_transform_element'], '.1f')} |"
         )
-    return lines + ["", "To apply it in pyscf:", "", "```python", rec["how_to"], "```", ""]
+    lines += ["", X_NOTE, ""]
+    if not rec["how_to"]:
+        return lines
+    return lines + ["To apply it in pyscf:", "", "```python", rec["how_to"], "```", ""]
 
 
 def remedies_lines(rem: dict | None, n_functions: int) -> list[str]:

@@ -18,3 +18,16 @@ def unique_name(base: str, used: set[str]) -> str:
         name, k = f"{base}-{k}", k + 1
     used.add(name)
     return name
+
+
+def distinct_labels(paths: list[str]) -> list[str]:
+    """Short labels for ``paths``: the file name, or as many trailing folders as it takes to
+    tell apart inputs that share a file name (``a/x.xyz`` and ``b/x.xyz``)."""
+    parts = [Path(p).parts for p in paths]
+    labels = []
+    for mine in parts:
+        depth = 1
+        while depth < len(mine) and any(other != mine and other[-depth:] == mine[-depth:] for other in parts):
+            depth += 1
+        labels.append("/".join(mine[-depth:]))
+    return labels

@@ -91,13 +91,15 @@ def _spectrum_figure(d: dict) -> Figure:
     ev = np.asarray([v for v in sp["eigenvalues"] if v is not None], dtype=float)
     fig, ax = _new(8.6, 3.9)
     fig.subplots_adjust(left=0.09, right=0.70, top=0.88, bottom=0.14)
-    levels = {"caution": pol["caution"], "fail": pol["fail"], "threshold": rec["threshold"]}
+    levels = {"caution": pol["caution"], "fail": pol["fail"]}
+    if rec["threshold"] is not None:  # none is advised for a broken geometry
+        levels["threshold"] = rec["threshold"]
     if ev.size == 0:
         ax.text(0.5, 0.5, "no eigenvalues in the result", ha="center", va="center", transform=ax.transAxes)
         ax.set_yscale("log")
         ax.set_ylim(min(levels.values()) / 10, 10)
     else:
-        _draw_eigenvalues(ax, ev, min(levels.values()), rec["threshold"])
+        _draw_eigenvalues(ax, ev, min(levels.values()), levels.get("threshold"))
     for key, value in levels.items():
         line = LEVEL_LINES[key]
         ax.axhline(value, color=line.colour, ls=line.dashes, lw=line.width, zorder=2)
@@ -111,7 +113,7 @@ def _spectrum_figure(d: dict) -> Figure:
     return fig
 
 
-def _draw_eigenvalues(ax: Axes, ev: np.ndarray, lowest_level: float, threshold: float) -> None:
+def _draw_eigenvalues(ax: Axes, ev: np.ndarray, lowest_level: float, threshold: float | None) -> None:
     """The eigenvalues against their rank on a log axis; those at or below a floor a decade
     under everything else (singular ones included) are drawn on the floor and counted."""
     positive = ev[ev > 0]
@@ -124,7 +126,7 @@ def _draw_eigenvalues(ax: Axes, ev: np.ndarray, lowest_level: float, threshold: 
     ax.plot(idx, shown, color=BLUE, lw=1.2, drawstyle="steps-mid", zorder=3)
     if ev.size <= 300:
         ax.plot(idx[~clipped], shown[~clipped], "o", ms=2.6, color=BLUE, zorder=4)
-    below = ev < threshold
+    below = ev < threshold if threshold is not None else np.zeros(ev.shape, dtype=bool)
     if below.any():
         ax.plot(
             idx[below & ~clipped], shown[below & ~clipped], "o", ms=4, mfc="white", mec=VERMILION, mew=1.2, zorder=5
@@ -147,7 +149,7 @@ def _draw_eigenvalues(ax: Axes, ev: np.ndarray, lowest_level: float, threshold: 
 def _spectrum_handles(ev: np.ndarray, levels: dict[str, float]) -> list[Line2D]:
     """Legend entries: the eigenvalues, those removed at the threshold (if any), each level."""
     handles = [Line2D([], [], color=BLUE, lw=1.2, marker="o", ms=2.6, label="eigenvalue")]
-    if ev.size and (ev < levels["threshold"]).any():
+    if ev.size and "threshold" in levels and (ev < levels["threshold"]).any():
         handles.append(
             Line2D([], [], color=VERMILION, lw=0, marker="o", mfc="white", mew=1.2, ms=4, label="removed at τ")
         )

@@ -89,7 +89,8 @@ def write_prune_outputs(result: AuditResult, plan: RemedyPlan, prep: Prepared, o
     out_dir.mkdir(parents=True, exist_ok=True)
     files = {"basis": f"{stem}.pruned.json", "transform": f"{stem}.X.npy", "explain": f"{stem}.prune.md"}
     paths = [write_pruned(_pruned_document(plan), out_dir / files["basis"])]
-    X = canonical_transform(prep, result.recommendation.threshold)
+    tau = result.recommendation.threshold
+    X = canonical_transform(prep, plan.target if tau is None else tau)
     buf = io.BytesIO()
     np.save(buf, X)
     atomic_write(out_dir / files["transform"], buf.getvalue())

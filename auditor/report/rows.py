@@ -25,6 +25,7 @@ COLUMNS = (
     "change",
     "note",
     "reason",
+    "finding",
     "error",
 )
 
@@ -51,24 +52,20 @@ VERDICT_RANK = {"fail": 0, "error": 1, "caution": 2, "pass": 3}
 
 
 def main_reason(result: dict) -> str:
-    """The sentence that best explains a verdict: the first error-level finding, else the verdict's reason."""
-    for f in result.get("findings", []):
-        if f.get("severity") == "error":
-            return f["message"]
-    return result.get("verdict_reason", "")
+    """The one sentence that decided the verdict (the deciding finding's own message)."""
+    return str(result.get("verdict_reason", ""))
 
 
 def brief(result: dict) -> dict:
     """The parts of a JSON result that ``result_row`` and the input check of a cached
     result read, in the same layout (a few hundred bytes instead of the whole report)."""
     inp, spec, rec = result["input"], result["spectrum"], result["recommendation"]
-    errors = [f for f in result.get("findings", []) if f.get("severity") == "error"][:1]
     return {
         "input": {k: inp.get(k) for k in ("path", "frame", "n_frames", "basis", "n_atoms", "n_functions")},
         "spectrum": {k: spec.get(k) for k in ("smallest", "condition_number")},
         "verdict": result["verdict"],
         "verdict_reason": result.get("verdict_reason", ""),
-        "findings": [{"severity": f["severity"], "message": f["message"]} for f in errors],
+        "verdict_finding": result.get("verdict_finding"),
         "causes": {"atoms": result["causes"]["atoms"][:1]},
         "recommendation": {k: rec.get(k) for k in ("threshold", "n_removed")},
     }
@@ -88,10 +85,11 @@ def result_row(path: str, frame: int | None, item: str, result: dict) -> dict:
         "smallest_eigenvalue": spec["smallest"],
         "condition_number": math.inf if cond is None else cond,
         "verdict": result["verdict"],
-        "top_atom": f"{atoms[0]['element']}{atoms[0]['atom']}" if atoms else "",
-        "threshold": rec["threshold"],
+        "top_atom": f"{atoms[0]['element']}{atoms[0]['atom']}" if atoms and result["verdict"] != "pass" else "",
+        "threshold": math.nan if rec["threshold"] is None else rec["threshold"],
         "n_removed": rec["n_removed"],
         "reason": main_reason(result),
+        "finding": result.get("verdict_finding") or "",
         "error": "",
     }
 
@@ -112,6 +110,7 @@ def error_row(path: str, frame: int | None, item: str, basis: str, message: str)
         "threshold": math.nan,
         "n_removed": None,
         "reason": message,
+        "finding": "",
         "error": message,
     }
 

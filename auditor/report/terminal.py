@@ -12,6 +12,7 @@ from rich.markup import escape
 from rich.table import Table
 from rich.text import Text
 
+from .naming import distinct_labels
 from .rows import item_label, rank_key
 from .style import TERMINAL_STYLE as STYLE
 from .text import remedies_view
@@ -20,41 +21,52 @@ if TYPE_CHECKING:
     from ..pipeline.result import AuditResult
 
 
-def summary_table(results: Iterable[AuditResult], errors: Iterable[tuple[str, str]] = ()) -> Table:
-    """One row per audited frame, plus one per input that could not be read."""
+def summary_table(results: Sequence[AuditResult], errors: Iterable[tuple[str, str]] = ()) -> Table:
+    """One row per audited frame, plus one per input that could not be read. Inputs that
+    share a file name are shown with enough of their path to tell them apart."""
+    errors = list(errors)
+    labels = distinct_labels([r.input.path for r in results] + [p for p, _ in errors])
     t = Table(show_header=True, header_style="bold", box=None, pad_edge=False)
     for col in ("geometry", "verdict", "functions", "smallest λ", "log10 κ", "τ advised", "removed", "main atom"):
         t.add_column(col, justify="left" if col in ("geometry", "verdict", "main atom") else "right")
-    for r in results:
-        name = Path(r.input.path).name + (f" [{r.input.frame}]" if r.input.n_frames > 1 else "")
-        top = r.causes.atoms[0] if r.causes.atoms else None
-        lc = r.spectrum.log10_condition
-        rec = r.recommendation
-        t.add_row(
-            name,
-            f"[{STYLE[r.verdict]}]{r.verdict}[/]",
-            str(r.input.n_functions),
-            f"{r.spectrum.smallest:.2e}",
-            "inf" if lc is None else f"{lc:.1f}",
-            f"{rec.threshold:.1e}",
-            "?" if rec.n_removed is None else str(rec.n_removed),
-            f"{top['element']}{top['atom']} ({top['weight']:.0%})" if top else "",
-        )
-    for path, msg in errors:
-        t.add_row(Path(path).name, f"[{STYLE['unreadable']}]unreadable[/]", "", "", "", "", "", msg)
+    for r, label in zip(results, labels):
+        t.add_row(*_summary_cells(r, label))
+    for (_, msg), label in zip(errors, labels[len(results) :]):
+        t.add_row(escape(label), f"[{STYLE['unreadable']}]unreadable[/]", "", "", "", "", "", escape(msg))
     return t
+
+
+def _summary_cells(r: AuditResult, label: str) -> list[str]:
+    name = label + (f" [{r.input.frame}]" if r.input.n_frames > 1 else "")
+    top = r.causes.atoms[0] if r.causes.atoms and r.verdict != "pass" else None
+    lc = r.spectrum.log10_condition
+    rec = r.recommendation
+    return [
+        escape(name),
+        f"[{STYLE[r.verdict]}]{r.verdict}[/]",
+        str(r.input.n_functions),
+        f"{r.spectrum.smallest:.2e}",
+        "inf" if lc is None else f"{lc:.1f}",
+        "—" if rec.threshold is None else f"{rec.threshold:.1e}",
+        "?" if rec.n_removed is None else str(rec.n_removed),
+        f"{top['element']}{top['atom']} ({top['weight']:.0%})" if top else "",
+    ]
 
 
 def print_summary(
     results: Sequence[AuditResult], errors: Iterable[tuple[str, str]] = (), console: Console | None = None
 ) -> None:
-    """The summary table, then the first few error-level findings of each result."""
+    """The summary table, then every error- and warning-level finding of each result, one
+    line each, errors first (findings are sorted so), after the reason that decided it."""
     console = console or Console(highlight=False)
     console.print(summary_table(results, errors))
-    for r in results:
-        serious = [f for f in r.findings if f.severity == "error"]
-        for f in serious[:3]:
-            console.print(f"  [red]{Path(r.input.path).name}[/]: {f.message}", highlight=False)
+    labels = distinct_labels([r.input.path for r in results])
+    for r, label in zip(results, labels):
+        if r.verdict != "pass":
+            console.print(f"  {label}: {r.verdict}: {r.verdict_reason}", highlight=False, markup=False, soft_wrap=True)
+        for f in r.findings:
+            if f.severity in ("error", "warning") and f.kind != r.verdict_finding:
+                console.print(f"  {label}: {f.severity}: {f.message}", highlight=False, markup=False, soft_wrap=True)
 
 
 def print_remedies(

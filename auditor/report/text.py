@@ -32,6 +32,29 @@ def vectors_note(d: dict) -> str:
     return text
 
 
+#: what "largest element of X" means (one wording for every format)
+X_NOTE = (
+    "The largest element of X is the largest |X_ij| over every valid choice of eigenvectors: inside a group "
+    "of equal eigenvalues the eigenvectors are not unique, and the figure is the worst case, which one choice "
+    "attains."
+)
+
+
+def advice_sentence(rec: dict, n_functions: int) -> str:
+    """The advised threshold and what it removes, or why none is advised (plain text)."""
+    if rec["threshold"] is None:
+        return f"No threshold is advised: {rec['reason']}."
+
+    def fmt(x: Any, spec: str) -> str:
+        return "not computed" if x is None else format(x, spec)
+
+    return (
+        f"Suggested threshold {rec['threshold']:.1e}: {rec['reason']}. It removes {fmt(rec['n_removed'], 'd')} "
+        f"of {n_functions} functions; the smallest kept eigenvalue is {fmt(rec['smallest_kept'], '.3e')} and the "
+        f"largest element of the transformation X = U Λ^-1/2 is {fmt(rec['max_transform_element'], '.1f')}."
+    )
+
+
 def yes_no(flag: Any) -> str:
     """ "yes" or "no" for a JSON flag; a dash when it is missing."""
     return {True: "yes", False: "no"}.get(flag, "—")

@@ -9,7 +9,7 @@ from typer.testing import CliRunner
 
 import auditor
 from auditor.cli import app
-from helpers import WATER, write_xyz
+from helpers import WATER, make_molecule, write_xyz
 
 runner = CliRunner()
 
@@ -46,11 +46,9 @@ def test_stray_hydrogen_fails_everywhere(tmp_path, monkeypatch):
     assert "<failure" in junit and report["verdict_reason"] in junit
 
 
-def test_scan_frame_with_a_too_short_bond_fails(water):
+def test_scan_frame_with_a_too_short_bond_fails():
     # an N-H of 0.47 Å (46 % of the covalent-radius sum) in one frame of a scan
-    r = auditor.audit(
-        auditor.Molecule(("N", "H"), [[0, 0, 0], [0, 0, 0.47]], (False, False)), "cc-pvdz", remedies=False
-    )
+    r = auditor.audit(make_molecule(["N", "H"], [[0, 0, 0], [0, 0, 0.47]]), "cc-pvdz", remedies=False)
     assert r.verdict == "fail" and r.verdict_finding == "impossible_contact"
 
 

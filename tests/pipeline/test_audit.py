@@ -140,10 +140,18 @@ def test_unit_not_flagged_for_sane_or_noble_gas_geometries():
     assert "suspect_units" not in kinds(auditor.audit(h2, "sto-3g"))
 
 
-def test_short_contact():
-    mol = make_molecule(["C", "O"], [[0, 0, 0], [0, 0, 0.5]])
-    r = auditor.audit(mol, "sto-3g")
+def test_short_and_impossible_contacts():
+    # C-O covalent-radius sum 1.42 Å (Cordero 2008): 0.5 Å is 35 % of it, 0.9 Å is 63 %
+    r = auditor.audit(make_molecule(["C", "O"], [[0, 0, 0], [0, 0, 0.5]]), "sto-3g")
+    assert [f.atoms for f in r.findings if f.kind == "impossible_contact"] == [(1, 2)]
+    assert r.verdict == "fail" and r.verdict_finding == "impossible_contact"
+    r = auditor.audit(make_molecule(["C", "O"], [[0, 0, 0], [0, 0, 0.9]]), "sto-3g")
     assert [f.atoms for f in r.findings if f.kind == "short_contact"] == [(1, 2)]
+    assert r.verdict == "caution" or r.verdict_finding == "near_singular"
+    # the policy moves both levels
+    strict = auditor.Policy(contact_caution=0.8, contact_fail=0.7)
+    r = auditor.audit(make_molecule(["C", "O"], [[0, 0, 0], [0, 0, 0.9]]), "sto-3g", policy=strict)
+    assert r.verdict == "fail" and r.verdict_finding == "impossible_contact"
 
 
 def test_diffuse_crowding_and_classification():

@@ -207,12 +207,22 @@ def test_prune_bad_target_is_one_line(tmp_path, bad):
 
 
 def test_prune_emptying_an_atom_exits_with_usage_error(tmp_path):
-    # Coincident helium atoms with one shell each (STO-3G): one of the two must lose it.
-    f = write_xyz(tmp_path / "coin.xyz", ["He", "He", "Ne"], [[0, 0, 0], [0, 0, 0], [0, 0, 3]])
-    res = runner.invoke(app, ["prune", str(f), "-b", "sto-3g", "--out", str(tmp_path / "o")])
+    # Helium atoms 0.3 Å apart with one shell each (STO-3G): a target of 0.5 needs one of
+    # the two shells gone, which would leave an atom without functions.
+    f = write_xyz(tmp_path / "close.xyz", ["He", "He", "Ne"], [[0, 0, 0], [0, 0, 0.3], [0, 0, 3]])
+    res = runner.invoke(app, ["prune", str(f), "-b", "sto-3g", "--target", "0.5", "--out", str(tmp_path / "o")])
     assert res.exit_code == 2
     assert "every basis function of atom" in res.output and "Traceback" not in res.output
     assert len(res.output.strip().splitlines()) == 1
+
+
+def test_prune_refuses_a_broken_geometry(tmp_path):
+    # coincident helium atoms: the file must be fixed, no pruned basis is offered for it
+    f = write_xyz(tmp_path / "coin.xyz", ["He", "He", "Ne"], [[0, 0, 0], [0, 0, 0], [0, 0, 3]])
+    res = runner.invoke(app, ["prune", str(f), "-b", "sto-3g", "--out", str(tmp_path / "o")])
+    assert res.exit_code == 2
+    assert "He1 and He2 sit 0.0000 Å apart" in res.output and "Fix the geometry" in res.output
+    assert not (tmp_path / "o").exists()
 
 
 def test_remedy_options_default_target_is_caution():
