@@ -24,6 +24,7 @@ def check(
     basis: o.Basis,
     basis_for: o.BasisFor = None,
     cartesian: o.Cartesian = False,
+    basis_source: o.BasisSource = "pyscf",
     unit: o.Unit = "angstrom",
     ghost: o.Ghost = None,
     out_dir: Annotated[Path, typer.Option("--out", "-o", help="Folder for the reports.")] = Path("audit_reports"),
@@ -59,7 +60,7 @@ def check(
     if fmt not in FORMATS:
         fail(f"--format must be one of {', '.join(FORMATS)}, got {fmt!r}", EXIT_USAGE)
     try:
-        spec = make_spec(basis, basis_for, cartesian)
+        spec = make_spec(basis, basis_for, cartesian, basis_source)
         policy = Policy(caution=caution, fail=fail_level)
         o.check_unit(unit)
         o.check_ghost(ghost)

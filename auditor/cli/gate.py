@@ -17,6 +17,7 @@ if TYPE_CHECKING:
     from ..gate.items import GateOptions
     from ..gate.policy_file import GatePolicy
     from ..gate.run import GateOutcome
+    from ..inputs.basis import BasisSpec
 
     Engine = LocalEngine | DaskEngine
 
@@ -36,6 +37,7 @@ def gate(
     ],
     basis_for: o.BasisFor = None,
     cartesian: o.Cartesian = False,
+    basis_source: o.BasisSource = "pyscf",
     unit: o.Unit = "angstrom",
     ghost: Annotated[
         str | None, typer.Option("--ghost", help="Atoms (1-based) that carry functions only, in every item.")
@@ -104,8 +106,9 @@ def gate(
     """
     try:
         _check_options(unit, jobs, engine, scheduler, drop_decades, fmt, spectrum, ghost)
+        spec = _spec(basis, basis_for, cartesian, basis_source)
         gate_policy, options = _gate_options(
-            basis, basis_for, cartesian, unit, ghost, policy_file, caution, fail_level, spectrum, with_remedies
+            spec, unit, ghost, policy_file, caution, fail_level, spectrum, with_remedies
         )
         old = _baseline_rows(baseline)
         runner = _engine(scheduler, jobs, item_timeout)
@@ -153,10 +156,14 @@ def _check_options(
     o.check_ghost(ghost)
 
 
+def _spec(basis: str, basis_for: list[str] | None, cartesian: bool, source: str) -> BasisSpec:
+    from ..pipeline.run import make_spec
+
+    return make_spec(basis, basis_for, cartesian, source)
+
+
 def _gate_options(
-    basis: str,
-    basis_for: list[str] | None,
-    cartesian: bool,
+    spec: BasisSpec,
     unit: str,
     ghost: str | None,
     policy_file: Path | None,
@@ -168,12 +175,11 @@ def _gate_options(
     """The gate policy (from the policy file, if any) and what every item is audited with."""
     from ..gate.items import GateOptions
     from ..gate.policy_file import GatePolicy, load_gate_policy
-    from ..pipeline.run import make_spec
 
     gate_policy = load_gate_policy(policy_file) if policy_file else GatePolicy()
     options = GateOptions(
-        make_spec(basis, basis_for, cartesian),
-        gate_policy.levels_for(basis, caution, fail_level),
+        spec,
+        gate_policy.levels_for(spec.default, caution, fail_level),
         unit,
         ghost,
         spectrum,

@@ -16,6 +16,13 @@ BasisFor = Annotated[
     list[str] | None, typer.Option("--basis-for", help="Per-element basis, ELEMENT=BASIS; repeatable.")
 ]
 Cartesian = Annotated[bool, typer.Option("--cartesian", help="Cartesian instead of spherical d, f, ... shells.")]
+BasisSource = Annotated[
+    str,
+    typer.Option(
+        "--basis-source",
+        help="Copy of a named basis set: pyscf (pyscf's library) or bse (basis_set_exchange); copies can differ.",
+    ),
+]
 Unit = Annotated[str, typer.Option("--unit", help="Unit of the coordinates in the files: angstrom or bohr.")]
 Ghost = Annotated[str | None, typer.Option("--ghost", help="Atoms (1-based) that carry functions only, e.g. 4-6,9.")]
 Caution = Annotated[float, typer.Option("--caution", help="Smallest eigenvalue below which the verdict is caution.")]

@@ -25,6 +25,7 @@ def prune(
     ] = None,
     basis_for: o.BasisFor = None,
     cartesian: o.Cartesian = False,
+    basis_source: o.BasisSource = "pyscf",
     unit: o.Unit = "angstrom",
     ghost: o.Ghost = None,
     frame: Annotated[int, typer.Option("--frame", help="Frame of a multi-frame file (1-based).")] = 1,
@@ -53,7 +54,7 @@ def prune(
     try:
         o.check_unit(unit)
         options = o.remedy_options(target, trial_scf, trial_max_functions, trial_seconds)
-        spec = make_spec(basis, basis_for, cartesian)
+        spec = make_spec(basis, basis_for, cartesian, basis_source)
         policy = Policy(caution=caution, fail=fail_level)
         frames = load_molecules(geometry, unit=unit, ghost=ghost)
         if not 1 <= frame <= len(frames):

@@ -19,7 +19,7 @@ from typing import TYPE_CHECKING
 if TYPE_CHECKING:
     import sqlite3
 
-FORMAT = "auditor-cache/4"
+FORMAT = "auditor-cache/5"
 FILE_NAME = "results.sqlite"
 
 

@@ -5,6 +5,8 @@ Policy file layout (every key optional)::
     caution = 1e-5          # levels for every basis ...
     fail = 1e-7
     drop_decades = 1.0      # baseline mode: a drop of the smallest eigenvalue beyond this regresses
+    contact_caution = 0.7   # distance / covalent-radius sum below which a contact earns a caution
+    contact_fail = 0.5      # ... and below which the geometry fails
 
     [basis."aug-cc-pvtz"]   # ... unless the basis has its own
     caution = 1e-6
@@ -47,6 +49,10 @@ class Allowance:
         return fnmatch.fnmatchcase(path, self.pattern)
 
 
+#: contact ratios a policy file may set (see auditor.diagnosis.verdict.Policy)
+CONTACT_KEYS = ("contact_caution", "contact_fail")
+
+
 @dataclass(frozen=True)
 class GatePolicy:
     caution: float | None = None
@@ -54,6 +60,7 @@ class GatePolicy:
     per_basis: dict = field(default_factory=dict)  # lower-case basis name -> {"caution", "fail"}
     allowed: tuple[Allowance, ...] = ()
     drop_decades: float = DEFAULT_DROP_DECADES
+    contacts: dict = field(default_factory=dict)  # contact_caution / contact_fail ratios, when set
 
     def levels_for(self, basis: str, caution: float | None = None, fail: float | None = None) -> Policy:
         """Levels for ``basis``: explicit arguments, then the basis table, then the file, then defaults."""
@@ -62,6 +69,8 @@ class GatePolicy:
         return Policy(
             caution=_first(caution, own.get("caution"), self.caution, default.caution),
             fail=_first(fail, own.get("fail"), self.fail, default.fail),
+            contact_caution=self.contacts.get("contact_caution", default.contact_caution),
+            contact_fail=self.contacts.get("contact_fail", default.contact_fail),
         )
 
     def allowance(self, path: str, frame: int | None) -> Allowance | None:
@@ -97,8 +106,9 @@ def load_gate_policy(path: str | Path) -> GatePolicy:
         raise UsageError(f"{path}: cannot read policy file ({exc.strerror})") from None
     except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
         raise UsageError(f"{path}: not valid TOML ({exc})") from None
-    _check_keys(str(path), data, {"caution", "fail", "drop_decades", "basis", "allow"})
+    _check_keys(str(path), data, {"caution", "fail", "drop_decades", "basis", "allow", *CONTACT_KEYS})
     levels = {k: _level(f"{path}: {k}", data[k]) for k in ("caution", "fail") if k in data}
+    contacts = {k: _level(f"{path}: {k}", data[k]) for k in CONTACT_KEYS if k in data}
     per_basis = {}
     basis_table = data.get("basis", {})
     if not isinstance(basis_table, dict):
@@ -129,7 +139,7 @@ def load_gate_policy(path: str | Path) -> GatePolicy:
     drop = _level(f"{path}: drop_decades", data.get("drop_decades", DEFAULT_DROP_DECADES))
     if drop < 0:
         raise UsageError(f"{path}: drop_decades must not be negative")
-    policy = GatePolicy(levels.get("caution"), levels.get("fail"), per_basis, tuple(allowed), drop)
+    policy = GatePolicy(levels.get("caution"), levels.get("fail"), per_basis, tuple(allowed), drop, contacts)
     for name in ["", *per_basis]:  # fail early on levels that contradict each other
         try:
             policy.levels_for(name)

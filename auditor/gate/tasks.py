@@ -21,20 +21,24 @@ from .items import GateOptions
 BasisCheck = tuple[BasisSpec, tuple[str, ...]]
 
 
-def _pyscf_version() -> str:
+def _version_of(package: str) -> str:
     # here, not at the top: importlib.metadata is slow to import, and needed only when
     # there is something to audit
     from importlib.metadata import PackageNotFoundError, version
 
     try:
-        return version("pyscf")
+        return version(package)
     except PackageNotFoundError:
         return "unknown"
 
 
+def _pyscf_version() -> str:
+    return _version_of("pyscf")
+
+
 def _versions() -> dict:
     """The versions a result depends on, where it is computed."""
-    return {"auditor": __version__, "pyscf": _pyscf_version()}
+    return {"auditor": __version__, "pyscf": _pyscf_version(), "basis_set_exchange": _version_of("basis_set_exchange")}
 
 
 def _geometry(mol: Molecule) -> dict:
@@ -106,7 +110,8 @@ def run_item(payload: str) -> str:
             frame=p["frame"],
             n_frames=p["n_frames"],
         )
-        spec = BasisSpec(p["basis"]["default"], dict(p["basis"]["per_element"]), bool(p["basis"]["cartesian"]))
+        b = p["basis"]
+        spec = BasisSpec(b["default"], dict(b["per_element"]), bool(b["cartesian"]), str(b.get("source", "pyscf")))
         result = audit_prepared(
             prepare(mol, spec, p["spectrum_method"]),
             Policy(**p["policy"]),
@@ -132,7 +137,7 @@ def check_basis_names(spec: BasisSpec, elements: Iterable[str]) -> None:
     for name in sorted({spec.for_element(el) for el in elements}):
         users = sorted(el for el in elements if spec.for_element(el) == name)
         try:
-            load_shells(name, users[0])
+            load_shells(name, users[0], spec.source)
         except InputError as exc:
             if exc.message.startswith("unknown basis name"):
                 raise UsageError(exc.message) from None

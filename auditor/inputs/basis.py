@@ -21,6 +21,8 @@ from ..base.textio import NUMBER, read_text
 #: Heuristic of our own, calibrated on the cc-pVXZ / aug-cc-pVXZ pairs for H and C-O.
 FALLBACK_FRACTION = 0.35
 REFERENCE_BASES = ("cc-pvdz", "def2-svp")
+#: the copies of named basis sets the auditor can read
+SOURCES = ("pyscf", "bse")
 
 
 @dataclass(frozen=True)
@@ -34,6 +36,9 @@ class BasisSpec:
     default: str
     per_element: dict[str, str] = field(default_factory=dict)
     cartesian: bool = False
+    #: where named bases come from: "pyscf" (pyscf's own library, which asks
+    #: basis_set_exchange for names it lacks) or "bse" (basis_set_exchange). Files are files.
+    source: str = "pyscf"
 
     def for_element(self, element: str) -> str:
         return self.per_element.get(element, self.default)
@@ -41,7 +46,8 @@ class BasisSpec:
     def describe(self) -> str:
         extra = ", ".join(f"{el}={name}" for el, name in sorted(self.per_element.items()))
         kind = "cartesian" if self.cartesian else "spherical"
-        return f"{self.default}" + (f" ({extra})" if extra else "") + f" [{kind}]"
+        copy = ", basis_set_exchange" if self.source == "bse" else ""
+        return f"{self.default}" + (f" ({extra})" if extra else "") + f" [{kind}{copy}]"
 
     def files(self) -> list[str]:
         """The basis files this specification names (inputs: never overwritten)."""
@@ -50,6 +56,8 @@ class BasisSpec:
 
     def __post_init__(self) -> None:
         object.__setattr__(self, "per_element", dict(sorted(self.per_element.items())))
+        if self.source not in SOURCES:
+            raise UsageError(f"basis source must be one of {', '.join(SOURCES)}, got {self.source!r}")
 
     def as_dict(self) -> dict:
         return to_jsonable(self)
@@ -207,26 +215,22 @@ def _file_shells(path: str, element: str) -> list:
 
 
 @cache
-def load_shells(name: str, element: str) -> tuple:
+def load_shells(name: str, element: str, source: str = "pyscf") -> tuple:
     """Shells of ``element`` in basis ``name`` (pyscf's internal list format).
 
     ``name`` is a basis name or an NWChem-format file (read by a numbers-only check
-    first). Raises InputError naming what is missing, with close names for typos.
+    first); ``source`` picks the copy of a named basis ("pyscf" or "bse"). Raises
+    InputError naming what is missing, with close names for typos.
     """
-    from pyscf.gto import basis as pbasis  # pyscf is slow to import: only when a basis is loaded
-
     eval_off()
     name = check_basis_name(name)
     path = Path(name).expanduser()
     if path.exists():
         shells = _file_shells(str(path), element)
+    elif source == "bse":
+        shells = _exchange_shells(name, element)
     else:
-        try:
-            shells = pbasis.load(name, element)
-        except Exception:  # pyscf raises BasisNotFoundError, KeyError, RuntimeError, ...
-            if _canon(name) not in pbasis.ALIAS and not pbasis._is_pople_basis(name) and not _in_exchange(name):
-                raise InputError(f"unknown basis name {name!r}{_suggest(name)}") from None
-            raise InputError(f"basis {name!r} has no functions for element {element}") from None
+        shells = _pyscf_shells(name, element)
     if not shells:
         where = f"basis file {name}" if path.exists() else f"basis {name!r}"
         raise InputError(f"{where} has no functions for element {element}")
@@ -237,6 +241,86 @@ def load_shells(name: str, element: str) -> tuple:
             "exponents must be positive and finite"
         )
     return tuple(_freeze(s) for s in shells)
+
+
+def _pyscf_shells(name: str, element: str) -> list:
+    from pyscf.gto import basis as pbasis  # pyscf loads only where the audits run
+
+    try:
+        return pbasis.load(name, element)
+    except Exception:  # pyscf raises BasisNotFoundError, KeyError, RuntimeError, ...
+        if not _known_anywhere(name):
+            raise InputError(f"unknown basis name {name!r}{_suggest(name)}") from None
+        raise InputError(f"basis {name!r} has no functions for element {element}") from None
+
+
+def _known_anywhere(name: str) -> bool:
+    from pyscf.gto import basis as pbasis
+
+    return _canon(name) in pbasis.ALIAS or bool(pbasis._is_pople_basis(name)) or _in_exchange(name)
+
+
+def _exchange_shells(name: str, element: str) -> list:
+    """The shells of ``element`` in basis_set_exchange's copy of ``name``, in pyscf's
+    format: one entry per angular momentum of each shell, general contractions kept."""
+    import basis_set_exchange as bse  # a dependency; imported where needed (it reads its data lazily)
+
+    if not _in_exchange(name):
+        raise InputError(f"basis_set_exchange has no basis named {name!r}{_suggest(name)}")
+    try:
+        data = bse.get_basis(name, elements=[element], header=False)
+    except Exception:  # basis_set_exchange raises KeyError, RuntimeError, ... for a missing element
+        raise InputError(f"basis_set_exchange's {name!r} has no functions for element {element}") from None
+    record: dict = next(iter(data["elements"].values()), {})
+    shells = []
+    for shell in record.get("electron_shells", []):
+        exps = [float(e) for e in shell["exponents"]]
+        columns = [[float(c) for c in row] for row in shell["coefficients"]]
+        moments = shell["angular_momentum"]
+        if len(moments) == 1:  # general contraction: every coefficient row is one contraction
+            shells.append([moments[0], *[[e, *(col[p] for col in columns)] for p, e in enumerate(exps)]])
+        else:  # an SP-type shell: one coefficient row per angular momentum
+            for l, col in zip(moments, columns):
+                shells.append([l, *[[e, col[p]] for p, e in enumerate(exps)]])
+    return sorted(shells, key=lambda sh: sh[0])
+
+
+def shells_digest(shells: tuple | list) -> str:
+    """SHA-256 of the shells as pyscf reads them (exact floats), to tell copies apart."""
+    import hashlib
+    import json
+
+    text = json.dumps(thaw(shells) if isinstance(shells, tuple) else shells, separators=(",", ":"))
+    return hashlib.sha256(text.encode("ascii")).hexdigest()
+
+
+@cache
+def basis_origin(name: str, element: str, source: str = "pyscf") -> dict:
+    """Where the shells of ``element`` in ``name`` came from: pyscf's library (and its
+    version), basis_set_exchange (and its version), or a file (and its SHA-256); with the
+    digest of the shells themselves."""
+    from importlib.metadata import version
+
+    path = Path(name).expanduser()
+    shells = load_shells(name, element, source)
+    record: dict = {"element": element, "basis": name}
+    if path.exists():
+        import hashlib
+
+        record.update(source="file", sha256=hashlib.sha256(path.read_bytes()).hexdigest())
+    elif source == "bse" or not _in_pyscf(name):
+        how = "basis_set_exchange" if source == "bse" else "basis_set_exchange (pyscf's fallback)"
+        record.update(source=how, version=version("basis_set_exchange"))
+    else:
+        record.update(source="pyscf", version=version("pyscf"))
+    record["digest"] = shells_digest(shells)
+    return record
+
+
+def _in_pyscf(name: str) -> bool:
+    from pyscf.gto import basis as pbasis
+
+    return _canon(name) in pbasis.ALIAS or bool(pbasis._is_pople_basis(name))
 
 
 def _bad_exponent(shells: list) -> object | None:

@@ -73,19 +73,19 @@ def build_mole(mol: Molecule, spec: BasisSpec) -> gto.Mole:
     only the coordinates are replaced, which gives the same integrals bit for bit.
     """
     labels = tuple(pyscf_labels(mol))
-    template = _mole_template(labels, tuple(spec.for_element(s) for s in mol.symbols), spec.cartesian)
+    template = _mole_template(labels, tuple(spec.for_element(s) for s in mol.symbols), spec.cartesian, spec.source)
     coords = np.asarray(mol.coords, dtype=float)
     return template.set_geom_(coords, unit="Angstrom", inplace=False)
 
 
 @lru_cache(maxsize=512)  # a Mole of a small molecule holds a few kB
-def _mole_template(labels: tuple[str, ...], names: tuple[str, ...], cartesian: bool) -> gto.Mole:
+def _mole_template(labels: tuple[str, ...], names: tuple[str, ...], cartesian: bool, source: str) -> gto.Mole:
     from pyscf import gto  # pyscf is slow to import: only when a Mole is built
 
     basis: dict[str, list] = {}
     for lab, name in zip(labels, names):
         el = lab.removeprefix("ghost-")
-        basis[lab] = thaw(load_shells(name, el))
+        basis[lab] = thaw(load_shells(name, el, source))
     nelec = sum(ELEMENTS.index(lab) + 1 for lab in labels if not lab.startswith("ghost-"))
     pm = gto.Mole()
     pm.atom = [(lab, (0.0, 0.0, 0.1 * i)) for i, lab in enumerate(labels)]  # replaced by set_geom_
@@ -102,7 +102,7 @@ def _mole_template(labels: tuple[str, ...], names: tuple[str, ...], cartesian: b
 def function_table(mol: Molecule, spec: BasisSpec) -> FunctionTable:
     """Label every function of ``mol`` in ``spec``, in pyscf's AO order (atom by atom),
     assembled from one labelled single-atom table per element."""
-    parts = [_element_table(el, spec.for_element(el), spec.cartesian) for el in mol.symbols]
+    parts = [_element_table(el, spec.for_element(el), spec.cartesian, spec.source) for el in mol.symbols]
     n_sh = np.cumsum([0] + [p.n_shells for p in parts])
     n_fn = np.cumsum([0] + [p.n_functions for p in parts])
     cat = np.concatenate
@@ -121,18 +121,18 @@ def function_table(mol: Molecule, spec: BasisSpec) -> FunctionTable:
 
 
 @lru_cache(maxsize=256)
-def _element_table(el: str, name: str, cartesian: bool) -> FunctionTable:
+def _element_table(el: str, name: str, cartesian: bool, source: str) -> FunctionTable:
     from pyscf import gto  # pyscf is slow to import: only when a Mole is built
 
     atom = Molecule((el,), np.zeros((1, 3)), (False,))
     pm = gto.Mole()
     pm.atom = [(el, (0.0, 0.0, 0.0))]
-    pm.basis = {el: thaw(load_shells(name, el))}
+    pm.basis = {el: thaw(load_shells(name, el, source))}
     pm.cart = cartesian
     pm.spin = (ELEMENTS.index(el) + 1) % 2
     pm.verbose = 0
     pm.build(dump_input=False, parse_arg=False)
-    return mole_function_table(pm, atom, BasisSpec(name, {}, cartesian))
+    return mole_function_table(pm, atom, BasisSpec(name, {}, cartesian, source))
 
 
 def mole_function_table(pm: gto.Mole, mol: Molecule, spec: BasisSpec) -> FunctionTable:

@@ -29,6 +29,8 @@ class InputInfo:
     n_frames: int
     basis: str  # BasisSpec.describe()
     basis_spec: dict  # BasisSpec.as_dict()
+    #: where each element's shells came from and their digests ({"digest", "elements": [...]})
+    basis_data: dict
     n_atoms: int
     n_functions: int
     n_shells: int

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import hashlib
 import math
 import re
 from dataclasses import dataclass
@@ -22,7 +23,7 @@ from ..diagnosis.findings import (
     near_singular_finding,
 )
 from ..diagnosis.verdict import BROKEN_KINDS, Decision, Policy, decide
-from ..inputs.basis import BasisSpec, check_basis_name, parse_overrides
+from ..inputs.basis import BasisSpec, basis_origin, check_basis_name, parse_overrides, shells_digest
 from ..inputs.geometry import Molecule, molecule_from_atoms, parse_atom_numbers, read_geometry
 from ..numerics.eigen import compute_spectrum
 from ..numerics.memory import check_memory
@@ -40,13 +41,16 @@ class Prepared:
 
     molecule: Molecule
     spec: BasisSpec
-    mole: object
+    mole: Any  # a pyscf Mole (pyscf has no type information)
     table: FunctionTable
     S: np.ndarray
 
 
 def make_spec(
-    basis: str | BasisSpec | None, basis_for: dict[str, str] | list[str] | None = None, cartesian: bool = False
+    basis: str | BasisSpec | None,
+    basis_for: dict[str, str] | list[str] | None = None,
+    cartesian: bool = False,
+    source: str = "pyscf",
 ) -> BasisSpec:
     """BasisSpec from a name (or file) plus overrides given as dict or ['H=cc-pvtz', ...]."""
     if isinstance(basis, BasisSpec):
@@ -57,7 +61,7 @@ def make_spec(
         over = {element_symbol(k, "basis_for"): check_basis_name(v, f"basis_for {k}") for k, v in basis_for.items()}
     else:
         over = parse_overrides(basis_for)
-    return BasisSpec(default=check_basis_name(basis), per_element=over, cartesian=cartesian)
+    return BasisSpec(default=check_basis_name(basis), per_element=over, cartesian=cartesian, source=source)
 
 
 def prepare(mol: Molecule, spec: BasisSpec, spectrum_method: str = "large") -> Prepared:
@@ -190,6 +194,7 @@ def _input_info(prep: Prepared) -> InputInfo:
         n_frames=mol.n_frames,
         basis=prep.spec.describe(),
         basis_spec=prep.spec.as_dict(),
+        basis_data=basis_data(prep),
         n_atoms=mol.n_atoms,
         n_functions=t.n_functions,
         n_shells=t.n_shells,
@@ -198,6 +203,27 @@ def _input_info(prep: Prepared) -> InputInfo:
         multiplicity=mol.multiplicity,
         atoms=atoms,
     )
+
+
+def basis_data(prep: Prepared) -> dict:
+    """Where each element's shells came from (pyscf's library, basis_set_exchange or a file,
+    with versions or the file's SHA-256) and a digest of the shells actually used, so that
+    two audits of "the same" basis from different copies can be told apart."""
+    elements = sorted(set(prep.molecule.symbols))
+    if prep.spec.default == "custom":  # a pyscf Mole with its own basis data
+        records = [
+            {
+                "element": el,
+                "basis": "custom",
+                "source": "pyscf Mole (API)",
+                "digest": shells_digest(prep.mole._basis.get(el, prep.mole._basis.get("ghost-" + el, []))),
+            }
+            for el in elements
+        ]
+    else:
+        records = [dict(basis_origin(prep.spec.for_element(el), el, prep.spec.source)) for el in elements]
+    joined = "".join(f"{r['element']}:{r['digest']};" for r in records)
+    return {"digest": hashlib.sha256(joined.encode("ascii")).hexdigest(), "elements": records}
 
 
 def _spectrum_info(spec: Spectrum) -> SpectrumInfo:

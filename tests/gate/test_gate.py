@@ -286,3 +286,15 @@ def test_worst_items_come_in_one_order_everywhere():
     ]
     order = [r["path"] for r in worst_rows(rows, 5)]
     assert order == ["f.xyz", "e.xyz", "g.xyz", "c.xyz", "p.xyz"]
+
+
+def test_policy_file_sets_the_contact_levels(tmp_path):
+    from auditor.gate.policy_file import load_gate_policy
+
+    f = tmp_path / "p.toml"
+    f.write_text("contact_caution = 0.8\ncontact_fail = 0.6\n")
+    levels = load_gate_policy(f).levels_for("cc-pvdz")
+    assert (levels.contact_caution, levels.contact_fail) == (0.8, 0.6)
+    f.write_text("contact_caution = 0.4\ncontact_fail = 0.6\n")  # contradictory
+    with pytest.raises(UsageError, match="contact"):
+        load_gate_policy(f)
