@@ -48,7 +48,7 @@ def _summary_cells(r: AuditResult, label: str) -> list[str]:
         f"{r.spectrum.smallest:.2e}",
         "inf" if lc is None else f"{lc:.1f}",
         "—" if rec.threshold is None else f"{rec.threshold:.1e}",
-        "?" if rec.n_removed is None else str(rec.n_removed),
+        "—" if rec.threshold is None else ("?" if rec.n_removed is None else str(rec.n_removed)),
         f"{top['element']}{top['atom']} ({top['weight']:.0%})" if top else "",
     ]
 
