@@ -9,7 +9,7 @@ import typer
 
 from ..base.errors import EXIT_USAGE, AuditorError
 from . import options as o
-from .console import err, fail, out
+from .console import err, fail, out, stage_display
 
 
 # size: the signature declares one parameter per command-line option
@@ -43,6 +43,12 @@ def check(
     trial_scf: o.TrialScf = None,
     trial_max_functions: o.TrialMaxFunctions = 400,
     trial_seconds: o.TrialSeconds = 120.0,
+    no_remedies: Annotated[
+        bool,
+        typer.Option(
+            "--no-remedies", help="Verdict only: skip the remedies (pivoted-Cholesky subsets, pruned basis) for speed."
+        ),
+    ] = False,
     quiet: o.Quiet = False,
 ) -> None:
     """Audit each geometry in one basis; write DIR/<stem>.json, .md and .html per frame.
@@ -64,13 +70,23 @@ def check(
         policy = Policy(caution=caution, fail=fail_level)
         o.check_unit(unit)
         o.check_ghost(ghost)
-        remedies = o.remedy_options(target, trial_scf, trial_max_functions, trial_seconds)
+        remedies = False if no_remedies else o.remedy_options(target, trial_scf, trial_max_functions, trial_seconds)
         o.check_spectrum_method(spectrum)
     except AuditorError as exc:
         fail(exc.message, exc.exit_code)
-    outcome = audit_paths(
-        geometry, spec, policy, out_dir, fmt, unit=unit, ghost=ghost, remedies=remedies, spectrum_method=spectrum
-    )
+    with stage_display(enabled=not quiet) as on_stage:
+        outcome = audit_paths(
+            geometry,
+            spec,
+            policy,
+            out_dir,
+            fmt,
+            unit=unit,
+            ghost=ghost,
+            remedies=remedies,
+            spectrum_method=spectrum,
+            on_stage=on_stage,
+        )
     for _, message, _ in outcome.errors:
         err.print(f"[bold red]error:[/] {message}")
     if not quiet:

@@ -45,19 +45,25 @@ def audit_paths(
     spectrum_method: str = "auto",
     on_result: Callable[[AuditResult], None] | None = None,
     remedies: bool | RemedyOptions = True,
+    on_stage: Callable[[str, str], None] | None = None,
 ) -> RunOutcome:
     """Audit every frame of every file named by ``paths`` (files, folders searched
     recursively, glob patterns and @lists, as for the gate); collect errors per input
     instead of stopping. Reports of inputs that share a file name get enough of their path
-    in the stem to tell them apart."""
+    in the stem to tell them apart. ``on_stage(label, step)`` is told each step of each audit
+    as it starts (for a progress display)."""
     files, missing = expand_inputs([str(p) for p in paths])
     with protect([*files, *spec.files()]):
-        outcome = _audit_each(files, spec, policy, out, formats, unit, ghost, spectrum_method, on_result, remedies)
+        outcome = _audit_each(
+            files, spec, policy, out, formats, unit, ghost, spectrum_method, on_result, remedies, on_stage
+        )
     outcome.errors = [(arg, message, EXIT_INPUT) for arg, message in missing] + outcome.errors
     return outcome
 
 
-def _audit_each(paths, spec, policy, out, formats, unit, ghost, spectrum_method, on_result, remedies) -> RunOutcome:
+def _audit_each(
+    paths, spec, policy, out, formats, unit, ghost, spectrum_method, on_result, remedies, on_stage
+) -> RunOutcome:
     outcome = RunOutcome()
     used: set[str] = set()
     labels = distinct_labels([str(p) for p in paths])
@@ -65,7 +71,10 @@ def _audit_each(paths, spec, policy, out, formats, unit, ghost, spectrum_method,
         try:
             frames = load_molecules(path, unit=unit, ghost=ghost)
             for mol in frames:
-                result = audit_prepared(prepare(mol, spec, spectrum_method), policy, spectrum_method, remedies)
+                name = label + (f" [{mol.frame + 1}]" if mol.n_frames > 1 else "")
+                stage = None if on_stage is None else (lambda step, name=name: on_stage(name, step))
+                prep = prepare(mol, spec, spectrum_method, stage)
+                result = audit_prepared(prep, policy, spectrum_method, remedies, stage)
                 if out is not None:
                     stem = unique_name(report_stem(label.replace("/", "__"), mol.frame + 1, mol.n_frames), used)
                     outcome.written += write_reports(result, out, formats, stem)

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from collections.abc import Callable
+
 import numpy as np
 
 from .dense import full_spectrum
@@ -10,16 +12,20 @@ from .memory import check_memory, resolve_method
 from .spectrum import Spectrum
 
 
-def compute_spectrum(S: np.ndarray, vector_level: float, method: str = "full") -> Spectrum:
+def compute_spectrum(
+    S: np.ndarray, vector_level: float, method: str = "full", stage: Callable[[str], None] | None = None
+) -> Spectrum:
     """Spectrum of the unit-diagonal overlap matrix ``S``.
 
     ``method``: "full" (dense eigendecomposition), "large" (factorizations and
     subspace iteration, ``auditor.numerics.factored``; S is used as workspace and
     restored), or "auto" (large from ``auditor.numerics.memory.CROSSOVER_N`` functions
-    on, or when the full path would not fit in memory).
+    on, or when the full path would not fit in memory). ``stage`` is told each step's name.
     """
     method = resolve_method(S.shape[0], method, s_built=True)
     check_memory(S.shape[0], method, s_built=True)  # ResourceError instead of being killed
     if method == "large":
-        return large_spectrum(S, vector_level)
+        return large_spectrum(S, vector_level, stage=stage)
+    if stage:
+        stage("eigenvalues (dense)")
     return full_spectrum(S, vector_level)

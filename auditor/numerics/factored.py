@@ -15,6 +15,7 @@ second copy:
 from __future__ import annotations
 
 import time
+from collections.abc import Callable
 from dataclasses import replace
 from typing import Any
 
@@ -52,6 +53,7 @@ def large_spectrum(
     maxiter: int = 200,
     seed: int = 0,
     info: dict[str, Any] | None = None,
+    stage: Callable[[str], None] | None = None,
 ) -> Spectrum:
     """Spectrum of unit-diagonal S without a full eigendecomposition.
 
@@ -63,24 +65,29 @@ def large_spectrum(
     below that decade computed); otherwise None. ``exact_counts`` adds one LDL^T per
     missing decade. ``tol`` bounds the relative residual of the Ritz pairs of
     (S - sigma I)^-1 (eigenvalue errors are about its square); ``info`` receives
-    timings and iteration counts.
+    timings and iteration counts; ``stage`` is told the name of each step as it starts.
     """
 
     info = {} if info is None else info
+    stage = stage or _quiet
     n = S.shape[0]
     A = _fortran_view(S)
     tau = float(vector_level)
     t0 = time.perf_counter()
     bound = gershgorin_lower_bound(S)
+    stage("largest eigenvalue (Lanczos)")
     largest = _largest_eigenvalue(A)
     info["t_largest"] = time.perf_counter() - t0
 
     tri = _Triangles(A)
     try:
-        below_tau, factored_at_tau = _count_below(tri, tau, info)
+        below_tau, factored_at_tau = _count_below(tri, tau, info, stage)
+        if not factored_at_tau:
+            stage("Cholesky factor of S below its spectrum")
         factored_shift = _positive_definite_shift(tri, tau if factored_at_tau else None, largest, info)
         k = min(n, max(min(below_tau, max_vectors), min_vectors))
         # a few pairs past k show where the degenerate group at the cut ends
+        stage(f"{min(n, k + GROUP_MARGIN)} smallest eigenpairs (block Krylov)")
         values, vectors = _sorted_eigenpairs(tri, factored_shift, min(n, k + GROUP_MARGIN), tol, maxiter, seed, info)
         info["ritz_below_vector_level"] = int(np.searchsorted(values, tau))
         counts = _established_counts(values, tau, below_tau, factored_shift, all_below_tau=k >= below_tau)
@@ -127,7 +134,11 @@ def _confirmed_groups(values: np.ndarray, tol: float, n: int) -> int:
     return int(bounds[-2]) if bounds.size > 2 else values.size
 
 
-def _count_below(tri: _Triangles, tau: float, info: dict[str, Any]) -> tuple[int, bool]:
+def _quiet(_: str) -> None:
+    pass
+
+
+def _count_below(tri: _Triangles, tau: float, info: dict[str, Any], stage: Callable[[str], None]) -> tuple[int, bool]:
     """Number of eigenvalues of S below ``tau``, and whether S - tau*I was factored.
 
     A Cholesky attempt of S - tau*I decides whether there is any; when it fails, the
@@ -135,12 +146,14 @@ def _count_below(tri: _Triangles, tau: float, info: dict[str, Any]) -> tuple[int
     lower triangle of ``tri`` holds the Cholesky factor of S - tau*I.
     """
     t1 = time.perf_counter()
+    stage(f"Cholesky attempt of S - {tau:.0e} I")
     factored = _cholesky(tri.load(tau)) == 0
     info["t_cholesky_tau"] = time.perf_counter() - t1
     if factored:
         below_tau = 0
     else:
         t1 = time.perf_counter()
+        stage(f"LDL^T inertia of S - {tau:.0e} I")
         below_tau = _ldl_negative_count(tri.load(tau))
         info["t_ldl_tau"] = time.perf_counter() - t1
     info["below_vector_level"] = below_tau

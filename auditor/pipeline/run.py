@@ -5,6 +5,7 @@ from __future__ import annotations
 import hashlib
 import math
 import re
+from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
 
@@ -64,7 +65,9 @@ def make_spec(
     return BasisSpec(default=check_basis_name(basis), per_element=over, cartesian=cartesian, source=source)
 
 
-def prepare(mol: Molecule, spec: BasisSpec, spectrum_method: str = "large") -> Prepared:
+def prepare(
+    mol: Molecule, spec: BasisSpec, spectrum_method: str = "large", stage: Callable[[str], None] | None = None
+) -> Prepared:
     """Build the pyscf Mole, the function table and S for one molecule.
 
     The memory guard runs before S is built: ResourceError when S plus the spectrum
@@ -73,6 +76,8 @@ def prepare(mol: Molecule, spec: BasisSpec, spectrum_method: str = "large") -> P
     """
     if mol.n_atoms and all(mol.ghost):
         raise UsageError(f"{mol.source}: no real atom: all {mol.n_atoms} atoms are ghost atoms")
+    if stage:
+        stage("overlap matrix (pyscf)")
     pm = build_mole(mol, spec)
     check_memory(pm.nao, spectrum_method)
     table = function_table(mol, spec)
@@ -115,15 +120,19 @@ def audit_prepared(
     policy: Policy | None = None,
     spectrum_method: str = "auto",
     remedies: bool | RemedyOptions = True,
+    stage: Callable[[str], None] | None = None,
 ) -> AuditResult:
     """Run the whole audit on a prepared geometry + basis.
 
     ``remedies``: True (default options), an ``auditor.RemedyOptions``, or False to skip them.
     A broken geometry (coincident atoms, an impossible contact, a unit mix-up) gets no
-    threshold and no remedy: the file must be fixed first.
+    threshold and no remedy: the file must be fixed first. ``stage`` (optional) is told the
+    name of each step as it starts, for progress displays and timings.
     """
     policy = policy or Policy()
-    spec = compute_spectrum(prep.S, vector_level=policy.caution, method=spectrum_method)
+    stage = stage or _quiet
+    spec = compute_spectrum(prep.S, vector_level=policy.caution, method=spectrum_method, stage=stage)
+    stage("findings and causes")
     causes = attribute_causes(spec.vectors, prep.table, below=policy.caution, n_below=spec.count_below(policy.caution))
     findings = _findings(prep, spec, policy, causes)
     decision = decide(policy, spec.smallest, findings)
@@ -132,6 +141,8 @@ def audit_prepared(
         recommendation = broken_geometry_advice(spec, decision.finding or "")
     else:
         recommendation = advise(spec, _default_threshold(policy), policy.fail, prep.spec.cartesian)
+    if remedies is not False and not broken:
+        stage("remedies")
     return AuditResult(
         version=__version__,
         input=_input_info(prep),
@@ -145,6 +156,10 @@ def audit_prepared(
         recommendation=recommendation,
         remedies=_remedies(prep, recommendation, spec.smallest, policy, remedies, decision if broken else None),
     )
+
+
+def _quiet(_: str) -> None:
+    pass
 
 
 def _findings(prep: Prepared, spec: Spectrum, policy: Policy, causes: Causes) -> list[Finding]:

@@ -174,3 +174,24 @@ def test_demo_writes_reports(tmp_path):
     for stem, verdict in (("acetamide", "pass"), ("ethanol_pasted_atom", "fail"), ("benzene_bohr", "fail")):
         assert json.loads((tmp_path / "r" / f"{stem}.json").read_text())["verdict"] == verdict
         assert stem in index
+
+
+def test_no_remedies_gives_the_verdict_only(tmp_path, water_xyz):
+    res = run(
+        "check", water_xyz, "-b", "aug-cc-pvdz", "--caution", "0.05", "--no-remedies", "-o", tmp_path, "-f", "json"
+    )
+    assert res.exit_code == 0, res.output
+    d = json.loads((tmp_path / "water.json").read_text())
+    assert d["verdict"] == "caution" and d["remedies"] is None
+    assert "remedies for" not in res.output
+
+
+def test_stages_are_reported_in_order(water_xyz):
+    import auditor
+
+    seen: list[str] = []
+    mol = auditor.load_molecules(water_xyz)[0]
+    prep = auditor.prepare(mol, auditor.make_spec("cc-pvdz"), stage=seen.append)
+    auditor.audit_prepared(prep, spectrum_method="large", stage=seen.append)
+    assert seen[0] == "overlap matrix (pyscf)" and seen[-1] == "remedies"
+    assert any("Cholesky" in s for s in seen) and any("Krylov" in s for s in seen)
