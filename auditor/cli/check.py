@@ -35,9 +35,12 @@ def check(
     trial_scf: o.TrialScf = None,
     trial_max_functions: o.TrialMaxFunctions = 400,
     trial_seconds: o.TrialSeconds = 120.0,
+    kmesh: o.KMesh = None,
+    precision: o.Precision = None,
     quiet: o.Quiet = False,
 ) -> None:
     """Audit each geometry in one basis; write DIR/<stem>.json, .md and .html per frame.
+    Periodic inputs (CIF, extended XYZ with a Lattice, ...) are audited at every k-point.
 
     Exit codes: 0 pass or caution, 1 fail, 2 usage error, 3 unreadable input, 4 too large,
     5 internal error.
@@ -58,10 +61,20 @@ def check(
         o.check_ghost(ghost)
         remedies = o.remedy_options(target, trial_scf, trial_max_functions, trial_seconds)
         o.check_spectrum_method(spectrum)
+        periodic = o.periodic_options(kmesh, precision)
     except AuditorError as exc:
         fail(exc.message, exc.exit_code)
     outcome = audit_paths(
-        geometry, spec, policy, out_dir, fmt, unit=unit, ghost=ghost, remedies=remedies, spectrum_method=spectrum
+        geometry,
+        spec,
+        policy,
+        out_dir,
+        fmt,
+        unit=unit,
+        ghost=ghost,
+        remedies=remedies,
+        spectrum_method=spectrum,
+        periodic=periodic,
     )
     for _, message, _ in outcome.errors:
         err.print(f"[bold red]error:[/] {message}")

@@ -18,6 +18,7 @@ from ..pipeline.run import audit_prepared, prepare
 from ..remedies.plan import RemedyOptions
 from ..report.naming import report_stem, unique_name
 from ..report.writers import write_reports
+from .periodic import PeriodicOptions, is_periodic, not_periodic, periodic_results
 
 
 @dataclass
@@ -44,22 +45,36 @@ def audit_paths(
     spectrum_method: str = "auto",
     on_result: Callable[[AuditResult], None] | None = None,
     remedies: bool | RemedyOptions = True,
+    periodic: PeriodicOptions | None = None,
 ) -> RunOutcome:
-    """Audit every frame of every file; collect errors per file instead of stopping."""
+    """Audit every frame of every file; collect errors per file instead of stopping.
+    Periodic files (auditor.gate.periodic) take the periodic path with ``periodic``'s mesh."""
     with protect([*paths, *spec.files()]):
-        return _audit_each(paths, spec, policy, out, formats, unit, ghost, spectrum_method, on_result, remedies)
+        return _audit_each(
+            paths, spec, policy, out, formats, unit, ghost, spectrum_method, on_result, remedies, periodic
+        )
 
 
-def _audit_each(paths, spec, policy, out, formats, unit, ghost, spectrum_method, on_result, remedies) -> RunOutcome:
+def _results(path, spec, policy, unit, ghost, spectrum_method, remedies, periodic):
+    """The audit of every frame of one file, one at a time."""
+    if is_periodic(path):
+        return periodic_results(path, spec, policy, unit, ghost, periodic or PeriodicOptions(), remedies)
+    if periodic is not None and periodic.asked:
+        raise not_periodic(path)
+    frames = load_molecules(path, unit=unit, ghost=ghost)
+    return (audit_prepared(prepare(mol, spec, spectrum_method), policy, spectrum_method, remedies) for mol in frames)
+
+
+def _audit_each(
+    paths, spec, policy, out, formats, unit, ghost, spectrum_method, on_result, remedies, periodic=None
+) -> RunOutcome:
     outcome = RunOutcome()
     used: set[str] = set()
     for path in paths:
         try:
-            frames = load_molecules(path, unit=unit, ghost=ghost)
-            for mol in frames:
-                result = audit_prepared(prepare(mol, spec, spectrum_method), policy, spectrum_method, remedies)
+            for result in _results(path, spec, policy, unit, ghost, spectrum_method, remedies, periodic):
                 if out is not None:
-                    stem = unique_name(report_stem(str(path), mol.frame + 1, mol.n_frames), used)
+                    stem = unique_name(report_stem(str(path), result.input.frame, result.input.n_frames), used)
                     outcome.written += write_reports(result, out, formats, stem)
                 outcome.results.append(result)
                 if on_result:
