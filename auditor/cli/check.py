@@ -12,6 +12,7 @@ from . import options as o
 from .console import err, fail, out
 
 
+# size: the signature declares one parameter per command-line option
 def check(
     geometry: Annotated[list[Path], typer.Argument(help="XYZ / extended XYZ files (every frame is audited).")],
     basis: o.Basis,

@@ -6,16 +6,18 @@ from __future__ import annotations
 from collections.abc import Iterator
 from dataclasses import dataclass
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from ..base.errors import UsageError
-from ..diagnosis.verdict import Policy
-from ..inputs.basis import BasisSpec
 from ..inputs.cell import Crystal, has_cell, load_cells
-from ..pipeline.periodic import audit_cell_prepared, prepare_cell
-from ..pipeline.result import AuditResult
-from ..remedies.plan import RemedyOptions
+
+if TYPE_CHECKING:
+    from ..diagnosis.verdict import Policy
+    from ..inputs.basis import BasisSpec
+    from ..pipeline.result import AuditResult
+    from ..remedies.plan import RemedyOptions
 
 
 @dataclass(frozen=True)
@@ -29,6 +31,9 @@ class PeriodicOptions:
     @property
     def asked(self) -> bool:
         return self.kmesh is not None or self.precision is not None
+
+    def as_dict(self) -> dict:
+        return {"kmesh": None if self.kmesh is None else list(self.kmesh), "precision": self.precision}
 
 
 def is_periodic(path: str | Path) -> bool:
@@ -53,6 +58,9 @@ def periodic_results(
     remedies: bool | RemedyOptions,
 ) -> Iterator[AuditResult]:
     """The audit of every frame of a periodic file, one at a time."""
+    # here, not at the top: the gate's parent reads inputs with this module before pyscf loads
+    from ..pipeline.periodic import audit_cell_prepared, prepare_cell
+
     for crystal in load_cells(path, unit=unit, ghost=ghost):
         yield audit_cell_prepared(prepare_cell(crystal, spec, options.kmesh, options.precision), policy, remedies)
 
@@ -68,6 +76,15 @@ def crystal_geometry(c: Crystal) -> dict:
         "pbc": [bool(p) for p in c.pbc],
         "axis_order": list(c.axis_order),
     }
+
+
+def audit_crystal(
+    crystal: Crystal, spec: BasisSpec, policy: Policy, options: PeriodicOptions, remedies: bool
+) -> AuditResult:
+    """One periodic gate item (worker side)."""
+    from ..pipeline.periodic import audit_cell_prepared, prepare_cell
+
+    return audit_cell_prepared(prepare_cell(crystal, spec, options.kmesh, options.precision), policy, remedies)
 
 
 def crystal_from_geometry(g: dict, source: str, frame: int, n_frames: int) -> Crystal:

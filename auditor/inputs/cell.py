@@ -250,12 +250,13 @@ def parse_kmesh(text: str | None) -> tuple[int, int, int] | None:
 
 
 def default_kmesh(crystal: Crystal) -> tuple[int, int, int]:
-    """N_i = ceil(KMESH_LENGTH / |a_i|) along each periodic lattice vector, 1 along vacuum;
-    in the file's axis order (as ``--kmesh`` is given)."""
-    rows = [
-        max(1, math.ceil(KMESH_LENGTH / float(np.linalg.norm(a)) - 1e-9)) if p else 1
-        for a, p in zip(crystal.lattice, crystal.pbc)
-    ]
+    """N_i = ceil(KMESH_LENGTH / |a_i|) along each periodic lattice vector, rounded up to an
+    even number when above 1 (the Γ-centred mesh then holds the zone-boundary point b_i / 2);
+    1 along vacuum; in the file's axis order (as ``--kmesh`` is given)."""
+    rows = []
+    for a, p in zip(crystal.lattice, crystal.pbc):
+        n = max(1, math.ceil(KMESH_LENGTH / float(np.linalg.norm(a)) - 1e-9)) if p else 1
+        rows.append(n + n % 2 if n > 1 else n)
     return crystal.file_axes(rows)
 
 
