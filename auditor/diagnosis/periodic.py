@@ -208,7 +208,7 @@ def lattice_sum_findings(conv: Convergence, spectra: KSpectra) -> list[Finding]:
 
 
 def _k_text(spectra: KSpectra, k: int) -> str:
-    return "(" + ", ".join(f"{x:.4g}" for x in spectra.mesh.scaled[k]) + ")"
+    return "(" + ", ".join(f"{x:.4g}" for x in np.round(spectra.mesh.scaled[k], 10) + 0.0) + ")"
 
 
 def periodic_near_singular(spec: Spectrum, policy: Policy, causes: Causes, spectra: KSpectra) -> Finding:

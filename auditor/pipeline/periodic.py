@@ -156,13 +156,7 @@ def setup(prep: PreparedCell) -> PeriodicSetup:
         return P.overlap_at(prep.cell, prep.mesh, k)
 
     def smallest_at(kept: np.ndarray) -> tuple[float, int]:
-        scale, _ = P.home_scale(prep.cell)
-        low = np.empty(prep.mesh.n)
-        for k in prep.mesh.computed:
-            S = P.kpoint_overlaps(prep.cell, prep.mesh.kpts[k : k + 1], scale)[0]
-            low[k] = np.linalg.eigvalsh(S[np.ix_(kept, kept)])[0]
-            low[prep.mesh.partner[k]] = low[k]
-        return float(low.min()), int(np.argmin(low))
+        return P.smallest_kept(prep.cell, prep.mesh, kept)
 
     return PeriodicSetup(
         crystal=crystal,
@@ -220,7 +214,7 @@ def _kpoint_rows(prep: PreparedCell) -> list[dict]:
     return [
         {
             "k": k + 1,
-            "scaled": [round(float(x), 10) for x in mesh.scaled[k]],
+            "scaled": [round(float(x), 10) + 0.0 for x in mesh.scaled[k]],
             "smallest": float(sp.smallest[k]),
             "largest": float(sp.largest[k]),
             "counts_below": {key: int(v[k]) for key, v in counts.items()},
@@ -261,7 +255,7 @@ def periodic_section(prep: PreparedCell, policy: Policy, plan: PeriodicPlan | No
         },
         "worst": {
             "k": k + 1,
-            "scaled": [round(float(x), 10) for x in mesh.scaled[k]],
+            "scaled": [round(float(x), 10) + 0.0 for x in mesh.scaled[k]],
             "smallest": float(sp.smallest[k]),
             "kpoints_below_caution": int(np.sum(sp.smallest < policy.caution)),
         },
