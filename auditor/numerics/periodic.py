@@ -12,7 +12,7 @@ from __future__ import annotations
 import contextlib
 import io
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
@@ -152,6 +152,7 @@ class KSpectra:
     precision: float
     rcut: float
     diagonal_error: float
+    worst_matrix: np.ndarray | None = None  # S(k) at the worst k-point, kept for its eigenvectors
 
     @property
     def smallest(self) -> np.ndarray:
@@ -192,24 +193,32 @@ def k_spectra(cell: pbcgto.Cell, mesh: KMesh, batch: int | None = None) -> KSpec
     values = np.empty((mesh.n, n))
     norms = np.empty((mesh.n, n))
     gersh = np.empty(mesh.n)
+    worst: tuple[float, np.ndarray | None] = (np.inf, None)
     for start in range(0, todo.size, batch):
         idx = todo[start : start + batch]
         S = kpoint_overlaps(cell, mesh.kpts[idx], scale)
         gersh[idx] = _gershgorin(S)
         norms[idx] = np.real(np.diagonal(S, axis1=1, axis2=2))
         values[idx] = np.linalg.eigvalsh(S)
+        low = int(np.argmin(values[idx, 0]))
+        if values[idx[low], 0] < worst[0]:
+            worst = (float(values[idx[low], 0]), S[low].copy())
         del S
     values[mesh.partner[todo]] = values[todo]
     gersh[mesh.partner[todo]] = gersh[todo]
     norms[mesh.partner[todo]] = norms[todo]
-    return KSpectra(mesh, values, gersh, norms, float(cell.precision), float(cell.rcut), diag_err)
+    spectra = KSpectra(mesh, values, gersh, norms, float(cell.precision), float(cell.rcut), diag_err, worst[1])
+    if spectra.worst not in todo:  # the worst is a mirrored k-point: its S(k) is the conjugate
+        return replace(spectra, worst_matrix=None if worst[1] is None else worst[1].conj())
+    return spectra
 
 
-def worst_vectors(cell: pbcgto.Cell, mesh: KMesh, k: int, level: float) -> tuple[np.ndarray, np.ndarray, float]:
+def worst_vectors(spectra: KSpectra, cell: pbcgto.Cell, level: float) -> tuple[np.ndarray, np.ndarray, float]:
     """(eigenvalues, the cause eigenvectors (complex columns), rounding tolerance) of S(k)
-    at k-point ``k``: those below ``level``, else the smallest group, whole degenerate groups."""
-    scale, _ = home_scale(cell)
-    S = kpoint_overlaps(cell, mesh.kpts[k : k + 1], scale)[0]
+    at the worst k-point: those below ``level``, else the smallest group, whole degenerate groups."""
+    S = spectra.worst_matrix
+    if S is None:
+        S = overlap_at(cell, spectra.mesh, spectra.worst)
     values, vectors = np.linalg.eigh(S)
     tol = degeneracy_tolerance(values.size, float(values[-1]))
     m = cause_count(values, level, tol)

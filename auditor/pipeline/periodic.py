@@ -107,7 +107,7 @@ def audit_cell_prepared(
     """The whole periodic audit of a prepared cell."""
     policy = policy or Policy()
     sp = prep.spectra
-    worst_values, vectors, tol = P.worst_vectors(prep.cell, prep.mesh, sp.worst, policy.caution)
+    worst_values, vectors, tol = P.worst_vectors(sp, prep.cell, policy.caution)
     spec = mesh_spectrum(prep, vectors, tol)
     n_below = int(np.searchsorted(worst_values, policy.caution))
     causes = attribute_causes(np.abs(vectors), prep.table, below=policy.caution, n_below=n_below)
