@@ -49,9 +49,12 @@ def check(
             "--no-remedies", help="Verdict only: skip the remedies (pivoted-Cholesky subsets, pruned basis) for speed."
         ),
     ] = False,
+    kmesh: o.KMesh = None,
+    precision: o.Precision = None,
     quiet: o.Quiet = False,
 ) -> None:
     """Audit each geometry in one basis; write DIR/<stem>.json, .md and .html per frame.
+    Periodic inputs (CIF, extended XYZ with a Lattice, ...) are audited at every k-point.
 
     Exit codes: 0 pass or caution, 1 fail, 2 usage error, 3 unreadable input, 4 too large,
     5 internal error.
@@ -72,6 +75,7 @@ def check(
         o.check_ghost(ghost)
         remedies = False if no_remedies else o.remedy_options(target, trial_scf, trial_max_functions, trial_seconds)
         o.check_spectrum_method(spectrum)
+        periodic = o.periodic_options(kmesh, precision)
     except AuditorError as exc:
         fail(exc.message, exc.exit_code)
     with stage_display(enabled=not quiet) as on_stage:
@@ -86,6 +90,7 @@ def check(
             remedies=remedies,
             spectrum_method=spectrum,
             on_stage=on_stage,
+            periodic=periodic,
         )
     for _, message, _ in outcome.errors:
         err.print(f"[bold red]error:[/] {message}")

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from dataclasses import replace
 from pathlib import Path
 from typing import TYPE_CHECKING, Annotated
 
@@ -98,6 +99,8 @@ def gate(
             help="json (summaries + items/*.json) or html (also items/*.html and an index.html overview).",
         ),
     ] = "json",
+    kmesh: o.KMesh = None,
+    precision: o.Precision = None,
     quiet: o.Quiet = False,
 ) -> None:
     """Audit a set of geometries in parallel and gate it: summary table, JUnit XML, per-item JSON.
@@ -110,6 +113,7 @@ def gate(
         gate_policy, options = _gate_options(
             spec, unit, ghost, policy_file, caution, fail_level, spectrum, with_remedies
         )
+        options = replace(options, periodic=o.periodic_options(kmesh, precision))
         old = _baseline_rows(baseline)
         runner = _engine(scheduler, jobs, item_timeout)
         cache = _cache(cache_dir, no_cache)

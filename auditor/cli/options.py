@@ -9,6 +9,7 @@ import typer
 from ..base.errors import UsageError
 
 if TYPE_CHECKING:
+    from ..gate.periodic import PeriodicOptions
     from ..remedies.plan import RemedyOptions
 
 Basis = Annotated[str, typer.Option("--basis", "-b", help="Basis name pyscf knows, or a basis file (NWChem format).")]
@@ -50,6 +51,28 @@ TrialSeconds = Annotated[
     float, typer.Option("--trial-seconds", help="Stop each trial SCF run after this many seconds.")
 ]
 Quiet = Annotated[bool, typer.Option("--quiet", "-q", help="Print nothing but errors.")]
+KMesh = Annotated[
+    str | None,
+    typer.Option(
+        "--kmesh",
+        help="Periodic inputs: Monkhorst-Pack k-points along the file's lattice vectors, e.g. 4,4,4 "
+        "(default: N_i = ceil(12 Å / |a_i|), 1 along vacuum).",
+    ),
+]
+Precision = Annotated[
+    float | None,
+    typer.Option("--precision", help="Periodic inputs: pyscf cell.precision of the lattice sums (default 1e-12)."),
+]
+
+
+def periodic_options(kmesh: str | None, precision: float | None) -> PeriodicOptions:
+    """PeriodicOptions from the command line, every value checked."""
+    from ..gate.periodic import PeriodicOptions
+    from ..inputs.cell import parse_kmesh
+
+    if precision is not None and not (0.0 < precision < 1.0):
+        raise UsageError(f"--precision must lie between 0 and 1, got {precision:g}")
+    return PeriodicOptions(parse_kmesh(kmesh), precision)
 
 
 # Checks of option values that several commands share. The heavy modules are imported

@@ -10,6 +10,7 @@ import typer
 from ..base.errors import AuditorError, UsageError
 from . import options as o
 from .console import fail, out
+from .periodic import prune_cell_file
 
 
 # size: the signature declares one parameter per command-line option
@@ -34,17 +35,21 @@ def prune(
     trial_scf: o.TrialScf = None,
     trial_max_functions: o.TrialMaxFunctions = 400,
     trial_seconds: o.TrialSeconds = 120.0,
+    kmesh: o.KMesh = None,
+    precision: o.Precision = None,
     quiet: o.Quiet = False,
 ) -> None:
     """Write a shell-pruned basis that reaches a target smallest eigenvalue, the canonical
     orthogonalization matrix X, and a Markdown explanation.
 
     Exit codes: 0 written, 2 usage error (bad target, a pruning that empties an atom),
-    3 unreadable input, 5 internal error.
+    3 unreadable input, 5 internal error. Periodic inputs (CIF, extended XYZ with a Lattice, ...)
+    get the exponent cutoff and the whole-shell subset at every k-point (`auditor.cli.periodic`).
     """
     # heavy (numpy, pyscf, matplotlib): imported when the command runs, see the package docstring
     from ..base.files import protect
     from ..diagnosis.verdict import Policy
+    from ..gate.periodic import is_periodic, not_periodic
     from ..inputs.geometry import load_molecules
     from ..pipeline.run import make_spec, prepare, prune_prepared
     from ..report.naming import report_stem
@@ -56,6 +61,11 @@ def prune(
         options = o.remedy_options(target, trial_scf, trial_max_functions, trial_seconds)
         spec = make_spec(basis, basis_for, cartesian, basis_source)
         policy = Policy(caution=caution, fail=fail_level)
+        periodic = o.periodic_options(kmesh, precision)
+        if is_periodic(geometry):
+            prune_cell_file(geometry, spec, policy, options, periodic, unit, ghost, frame, out_dir, quiet)
+        if periodic.asked:
+            raise not_periodic(geometry)
         frames = load_molecules(geometry, unit=unit, ghost=ghost)
         if not 1 <= frame <= len(frames):
             raise UsageError(f"{geometry}: frame {frame} requested, file has {len(frames)} frame(s)")

@@ -8,10 +8,12 @@ from pathlib import Path
 from ..base.errors import InputError
 from ..base.files import atomic_write
 from ..diagnosis.verdict import Policy
+from ..inputs.cell import parse_kmesh
 from ..pipeline.run import make_spec
 from ..report.naming import report_stem
 from ..report.overview import item_from_result, write_set_index
 from ..report.rows import error_row
+from .periodic import PeriodicOptions
 from .serial import RunOutcome, audit_paths
 
 if sys.version_info >= (3, 11):
@@ -49,8 +51,16 @@ def run_demo(folder: Path, out: Path) -> tuple[RunOutcome, Path]:
     policy = Policy()
     for ex in load_manifest(folder):
         spec = make_spec(ex["basis"], ex.get("basis_for"), bool(ex.get("cartesian", False)))
+        periodic = PeriodicOptions(parse_kmesh(ex.get("kmesh")), ex.get("precision"))
         o = audit_paths(
-            [folder / ex["file"]], spec, policy, out, "all", unit=ex.get("unit", "angstrom"), ghost=ex.get("ghost")
+            [folder / ex["file"]],
+            spec,
+            policy,
+            out,
+            "all",
+            unit=ex.get("unit", "angstrom"),
+            ghost=ex.get("ghost"),
+            periodic=periodic,
         )
         total.results += o.results
         total.errors += o.errors

@@ -13,9 +13,10 @@ from ..diagnosis.verdict import Policy
 from ..inputs.basis import BasisSpec
 from ..inputs.geometry import Molecule, load_molecules
 from ..report.naming import report_stem, unique_name
+from .periodic import Crystal, PeriodicOptions, is_periodic, load_cells
 
 #: file names a directory argument contributes (recursively)
-GEOMETRY_PATTERNS = ("*.xyz", "*.extxyz")
+GEOMETRY_PATTERNS = ("*.xyz", "*.extxyz", "*.cif")
 
 
 @dataclass(frozen=True)
@@ -28,6 +29,7 @@ class GateOptions:
     ghost: str | None = None
     spectrum_method: str = "auto"
     remedies: bool = False  # remedies cost several times the audit on small molecules; opt in
+    periodic: PeriodicOptions | None = None  # the mesh and precision of periodic items
 
 
 @dataclass
@@ -37,7 +39,7 @@ class Item:
     path: str
     frame: int | None  # 1-based; None when the file could not be read
     n_frames: int = 1
-    molecule: Molecule | None = None
+    molecule: Molecule | Crystal | None = None  # a Crystal for a periodic item
     error: str = ""
     name: str = ""
     key: str = ""
@@ -119,7 +121,10 @@ def collect_items(args: list[str], options: GateOptions, patterns: Sequence[str]
         seen.add(real)
         shown = display_path(f)
         try:
-            frames = load_molecules(f, unit=options.unit, ghost=options.ghost)
+            if is_periodic(f):
+                frames: list = load_cells(f, unit=options.unit, ghost=options.ghost)
+            else:
+                frames = load_molecules(f, unit=options.unit, ghost=options.ghost)
         except AuditorError as exc:
             items.append(Item(shown, None, error=exc.message))
             continue

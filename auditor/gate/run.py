@@ -24,6 +24,7 @@ from .baseline import improvements, judge
 from .cache import ResultCache, file_digest
 from .engines import Engine
 from .items import GEOMETRY_PATTERNS, GateOptions, Item, collect_items
+from .periodic import Crystal
 from .policy_file import GatePolicy
 from .tasks import _geometry, item_key, item_payload, run_context
 
@@ -132,10 +133,10 @@ class _ItemsRun:
         self.twins: dict[str, list[Item]] = {}  # items with the geometry of one being audited
         self.context: dict = run_context(options) if any(it.molecule is not None for it in items) else {}
 
-    def plan(self, items: list[Item]) -> list[tuple[Item, Molecule, dict]]:
+    def plan(self, items: list[Item]) -> list[tuple[Item, Molecule | Crystal, dict]]:
         """Write what needs no audit (unreadable items, cache hits); the rest as (item,
         molecule, geometry) with one item per geometry (the others wait as its twins)."""
-        todo: list[tuple[Item, Molecule, dict]] = []
+        todo: list[tuple[Item, Molecule | Crystal, dict]] = []
         for it in items:
             mol = it.molecule
             if it.error or mol is None:

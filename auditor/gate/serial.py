@@ -4,7 +4,7 @@ Shared by ``auditor check`` and ``auditor demo``: one bad file never stops the o
 
 from __future__ import annotations
 
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -19,6 +19,7 @@ from ..remedies.plan import RemedyOptions
 from ..report.naming import distinct_labels, report_stem, unique_name
 from ..report.writers import write_reports
 from .items import expand_inputs
+from .periodic import PeriodicOptions, is_periodic, not_periodic, periodic_results
 
 
 @dataclass
@@ -34,6 +35,23 @@ class RunOutcome:
         return EXIT_FAIL if any(r.verdict == "fail" for r in self.results) else EXIT_OK
 
 
+@dataclass(frozen=True)
+class _Settings:
+    """What every input of one check run is audited and written with."""
+
+    spec: BasisSpec
+    policy: Policy
+    out: Path | None
+    formats: str
+    unit: str
+    ghost: str | None
+    spectrum_method: str
+    remedies: bool | RemedyOptions
+    periodic: PeriodicOptions | None
+    on_result: Callable[[AuditResult], None] | None
+    on_stage: Callable[[str, str], None] | None
+
+
 def audit_paths(
     paths: Sequence[str | Path],
     spec: BasisSpec,
@@ -46,42 +64,59 @@ def audit_paths(
     on_result: Callable[[AuditResult], None] | None = None,
     remedies: bool | RemedyOptions = True,
     on_stage: Callable[[str, str], None] | None = None,
+    periodic: PeriodicOptions | None = None,
 ) -> RunOutcome:
     """Audit every frame of every file named by ``paths`` (files, folders searched
     recursively, glob patterns and @lists, as for the gate); collect errors per input
     instead of stopping. Reports of inputs that share a file name get enough of their path
     in the stem to tell them apart. ``on_stage(label, step)`` is told each step of each audit
-    as it starts (for a progress display)."""
+    as it starts (for a progress display). Periodic files (auditor.gate.periodic) take the
+    periodic path with ``periodic``'s mesh."""
     files, missing = expand_inputs([str(p) for p in paths])
+    settings = _Settings(
+        spec, policy, out, formats, unit, ghost, spectrum_method, remedies, periodic, on_result, on_stage
+    )
     with protect([*files, *spec.files()]):
-        outcome = _audit_each(
-            files, spec, policy, out, formats, unit, ghost, spectrum_method, on_result, remedies, on_stage
-        )
+        outcome = _audit_each(files, settings)
     outcome.errors = [(arg, message, EXIT_INPUT) for arg, message in missing] + outcome.errors
     return outcome
 
 
-def _audit_each(
-    paths, spec, policy, out, formats, unit, ghost, spectrum_method, on_result, remedies, on_stage
-) -> RunOutcome:
+def _audit_each(paths: list[Path], s: _Settings) -> RunOutcome:
     outcome = RunOutcome()
     used: set[str] = set()
-    labels = distinct_labels([str(p) for p in paths])
-    for path, label in zip(paths, labels):
+    for path, label in zip(paths, distinct_labels([str(p) for p in paths])):
         try:
-            frames = load_molecules(path, unit=unit, ghost=ghost)
-            for mol in frames:
-                name = label + (f" [{mol.frame + 1}]" if mol.n_frames > 1 else "")
-                stage = None if on_stage is None else (lambda step, name=name: on_stage(name, step))
-                prep = prepare(mol, spec, spectrum_method, stage)
-                result = audit_prepared(prep, policy, spectrum_method, remedies, stage)
-                if out is not None:
-                    stem = unique_name(report_stem(label.replace("/", "__"), mol.frame + 1, mol.n_frames), used)
-                    outcome.written += write_reports(result, out, formats, stem)
+            for result in _results(path, label, s):
+                if s.out is not None:
+                    base = report_stem(label.replace("/", "__"), result.input.frame, result.input.n_frames)
+                    outcome.written += write_reports(result, s.out, s.formats, unique_name(base, used))
                 outcome.results.append(result)
-                if on_result:
-                    on_result(result)
+                if s.on_result:
+                    s.on_result(result)
         except Exception as exc:  # one broken file must not stop the others
             message, code = failure(exc)
             outcome.errors.append((str(path), message if isinstance(exc, AuditorError) else f"{path}: {message}", code))
     return outcome
+
+
+def _results(path: Path, label: str, s: _Settings) -> Iterator[AuditResult]:
+    """The audit of every frame of one file, one at a time."""
+    if is_periodic(path):
+        yield from periodic_results(
+            path, s.spec, s.policy, s.unit, s.ghost, s.periodic or PeriodicOptions(), s.remedies
+        )
+        return
+    if s.periodic is not None and s.periodic.asked:
+        raise not_periodic(path)
+    for mol in load_molecules(path, unit=s.unit, ghost=s.ghost):
+        stage = _stage_of(s.on_stage, label + (f" [{mol.frame + 1}]" if mol.n_frames > 1 else ""))
+        prep = prepare(mol, s.spec, s.spectrum_method, stage)
+        yield audit_prepared(prep, s.policy, s.spectrum_method, s.remedies, stage)
+
+
+def _stage_of(on_stage: Callable[[str, str], None] | None, name: str) -> Callable[[str], None] | None:
+    """The per-audit stage callback that tells ``on_stage`` which audit it is."""
+    if on_stage is None:
+        return None
+    return lambda step: on_stage(name, step)

@@ -16,6 +16,7 @@ from ..report.json_report import dumps_result
 from ..report.rows import brief
 from .cache import content_key, file_digest
 from .items import GateOptions
+from .periodic import Crystal, PeriodicOptions, audit_crystal, crystal_from_geometry, crystal_geometry, not_periodic
 
 #: what every worker checks before its first item: (basis, the elements of the run)
 BasisCheck = tuple[BasisSpec, tuple[str, ...]]
@@ -41,7 +42,9 @@ def _versions() -> dict:
     return {"auditor": __version__, "pyscf": _pyscf_version(), "basis_set_exchange": _version_of("basis_set_exchange")}
 
 
-def _geometry(mol: Molecule) -> dict:
+def _geometry(mol: Molecule | Crystal) -> dict:
+    if isinstance(mol, Crystal):
+        return crystal_geometry(mol)  # with the lattice: part of the cache key
     return {
         "symbols": list(mol.symbols),
         "coords": [[float(x) for x in row] for row in mol.coords],
@@ -62,6 +65,7 @@ def run_context(options: GateOptions) -> dict:
         "spectrum_method": options.spectrum_method,
         "remedies": options.remedies,
         "versions": _versions(),
+        **({"periodic": options.periodic.as_dict()} if options.periodic and options.periodic.asked else {}),
     }
 
 
@@ -70,7 +74,7 @@ def item_key(geometry: dict, context: dict) -> str:
     return content_key({"geometry": geometry, **context})
 
 
-def item_payload(path: str, mol: Molecule, geometry: dict, context: dict) -> str:
+def item_payload(path: str, mol: Molecule | Crystal, geometry: dict, context: dict) -> str:
     """JSON text that a worker needs to audit the frame ``mol`` of the file ``path`` as shown
     (``geometry``: ``_geometry(mol)``; ``context``: ``run_context``)."""
     return json.dumps(
@@ -84,6 +88,7 @@ def item_payload(path: str, mol: Molecule, geometry: dict, context: dict) -> str
             "spectrum_method": context["spectrum_method"],
             "remedies": context["remedies"],
             "versions": context["versions"],
+            "periodic": context.get("periodic"),
         }
     )
 
@@ -100,6 +105,8 @@ def run_item(payload: str) -> str:
     t0 = time.perf_counter()
     try:
         g = p["geometry"]
+        if "lattice" in g or p.get("periodic"):
+            return _run_periodic(p, t0)
         mol = Molecule(
             tuple(g["symbols"]),
             np.asarray(g["coords"], dtype=float),
@@ -128,6 +135,26 @@ def run_item(payload: str) -> str:
         )
     except Exception as exc:  # an item must never take the run down; report it as that item's error
         return json.dumps({"error": failure(exc)[0]})
+
+
+def _run_periodic(p: dict, t0: float) -> str:
+    """A periodic item (worker side): the reply of `run_item`."""
+    g = p["geometry"]
+    if "lattice" not in g:
+        raise not_periodic(p["source"])
+    per = p.get("periodic") or {}
+    options = PeriodicOptions(tuple(per["kmesh"]) if per.get("kmesh") else None, per.get("precision"))
+    crystal = crystal_from_geometry(g, p["source"], p["frame"], p["n_frames"])
+    spec = BasisSpec(p["basis"]["default"], dict(p["basis"]["per_element"]), bool(p["basis"]["cartesian"]))
+    result = audit_crystal(crystal, spec, Policy(**p["policy"]), options, bool(p.get("remedies", False))).as_dict()
+    return json.dumps(
+        {
+            "seconds": round(time.perf_counter() - t0, 6),
+            "report": dumps_result(result, compact=True),
+            "brief": brief(result),
+            "versions": _versions(),
+        }
+    )
 
 
 def check_basis_names(spec: BasisSpec, elements: Iterable[str]) -> None:

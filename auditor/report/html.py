@@ -18,6 +18,7 @@ from typing import TYPE_CHECKING, Any
 from ..base.files import atomic_write
 from ..base.jsonio import clean
 from ..diagnosis.findings import SEVERITY_ORDER
+from .periodic import periodic_figures, periodic_html
 from .style import PAGE_CSS
 from .text import (
     X_NOTE,
@@ -481,10 +482,11 @@ def render_html(result: AuditResult | dict, images: dict[str, bytes] | None = No
         # matplotlib loads only when the figures are drawn here (callers usually pass them)
         from .plots import report_plots
 
-        images = report_plots(d)
+        images = {**report_plots(d), **periodic_figures(d)}
     sections = [
         *_page_top(d),
         *_figure_sections(d, images),
+        periodic_html(d, images, num, _img),
         '<h2 id="findings">Findings</h2>',
         _findings(d),
         '<h2 id="advice">Canonical orthogonalization</h2>',

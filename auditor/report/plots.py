@@ -518,6 +518,7 @@ FIGURE_TITLES = {
     "spectrum": "Overlap spectrum with the caution and fail levels and the advised threshold",
     "causes": "Share of the near-null space per atom, angular momentum and shell kind",
     "molecule": "Geometry on its principal plane, atoms shaded by their near-null-space share",
+    "kpoints": "Smallest eigenvalue of S(k) at every k-point of the mesh (periodic inputs)",
 }
 
 

@@ -16,6 +16,7 @@ SCHEMAS = {
     "report": ("report.schema.json", "auditor-report/1"),
     "item-error": ("item-error.schema.json", "auditor-item-error/1"),
     "pruned-basis": ("pruned-basis.schema.json", "auditor-pruned-basis/1"),
+    "periodic-basis": ("periodic-basis.schema.json", "auditor-periodic-basis/1"),
 }
 
 _BY_TAG = {tag: name for name, (_, tag) in SCHEMAS.items()}

@@ -8,6 +8,7 @@ from typing import TYPE_CHECKING
 from .html import write_html
 from .json_report import write_json
 from .markdown import write_markdown
+from .periodic import periodic_figures
 from .plots import markdown_figures, report_plots, write_figures
 
 if TYPE_CHECKING:
@@ -20,6 +21,8 @@ def write_reports(result: AuditResult, out: Path, formats: str, stem: str) -> li
     """Write the requested formats of ``result`` under ``out`` with file stem ``stem``."""
     written = []
     images = report_plots(result) if formats in ("md", "html", "all") else {}
+    if images:
+        images.update(periodic_figures(result))
     if formats in ("json", "all"):
         written.append(write_json(result, out / f"{stem}.json"))
     if formats in ("md", "all"):
