@@ -13,10 +13,11 @@ import os
 import sys
 
 import typer
+from typer.exceptions import Abort, TyperException
 
-from ..base.errors import EXIT_INTERNAL
+from ..base.errors import EXIT_INTERNAL, EXIT_USAGE
 from . import check, demo, gate, prune
-from .console import err
+from .console import err, error_line
 
 app = typer.Typer(
     add_completion=False,
@@ -29,22 +30,36 @@ for command in (check.check, prune.prune, demo.demo, gate.gate):
 
 
 def main() -> None:
-    """Console entry point: never a traceback unless AUDITOR_DEBUG is set."""
+    """Console entry point: never a traceback unless AUDITOR_DEBUG is set; a usage error
+    of the argument parser is one ``error:`` line too (exit code 2)."""
     try:
         if sys.argv[1:2] == ["gate"]:
             # imported here, and only for gate: it starts the worker server before anything heavy loads
             from ..gate.workers import start_early
 
             start_early(sys.argv[1:])
-        app()
-    except KeyboardInterrupt:
-        err.print("interrupted")
+        code = app(standalone_mode=False)
+    except TyperException as exc:  # the argument parser's errors (typer's own click)
+        sys.exit(_parser_error(exc))
+    except (KeyboardInterrupt, Abort):
+        err.print("interrupted", markup=False)
         sys.exit(130)
     except Exception as exc:
         if os.environ.get("AUDITOR_DEBUG"):
             raise
-        err.print(
-            f"[bold red]error:[/] internal error ({type(exc).__name__}: {exc}); "
-            "set AUDITOR_DEBUG=1 to see the traceback".splitlines()[0]
-        )
+        text = str(exc).splitlines()[0] if str(exc).strip() else ""
+        error_line(f"internal error ({type(exc).__name__}: {text}); set AUDITOR_DEBUG=1 to see the traceback")
         sys.exit(EXIT_INTERNAL)
+    sys.exit(code if isinstance(code, int) else 0)
+
+
+def _parser_error(exc: TyperException) -> int:
+    """One ``error:`` line for an error of the argument parser (help when no arguments
+    were given); returns the exit code (2 for a usage error)."""
+    if type(exc).__name__ == "NoArgsIsHelpError":
+        exc.show()  # type: ignore[attr-defined]  # prints the help
+        return int(getattr(exc, "exit_code", EXIT_USAGE))
+    ctx = getattr(exc, "ctx", None)
+    where = f" (see '{ctx.command_path} --help')" if ctx is not None else ""
+    error_line(exc.format_message() + where)
+    return int(getattr(exc, "exit_code", EXIT_USAGE))

@@ -97,6 +97,7 @@ def gate(
         ),
     ] = "json",
     quiet: o.Quiet = False,
+    max_input_mb: o.MaxInputMb = o.MAX_INPUT_MB,
 ) -> None:
     """Audit a set of geometries in parallel and gate it: summary table, JUnit XML, per-item JSON.
 
@@ -104,6 +105,7 @@ def gate(
     """
     try:
         _check_options(unit, jobs, engine, scheduler, drop_decades, fmt, spectrum, ghost)
+        o.start_run(out_dir, max_input_mb)
         gate_policy, options = _gate_options(
             basis, basis_for, cartesian, unit, ghost, policy_file, caution, fail_level, spectrum, with_remedies
         )
@@ -267,6 +269,10 @@ def _report(result: GateOutcome, cache: ResultCache | None, out_dir: Path, worst
         for k in ("ok", "blocked", "regressed", "allowed", "known")
         if any(r["outcome"] == k for r in rows)
     )
-    out.print(f"{len(rows)} item(s): {counts}; {result.run.computed} audited, {result.run.cached} from the cache")
+    if cache is not None:
+        served = f", {result.run.cached} from the cache"
+    else:  # --no-cache: only items with the geometry of another item are served without an audit
+        served = f", {result.run.cached} the same as another item" if result.run.cached else ""
+    out.print(f"{len(rows)} item(s): {counts}; {result.run.computed} audited{served}", markup=False)
     top = ", ".join(Path(w).name for w in result.written if Path(w).parent == Path(out_dir))
     out.print(f"wrote {top} in {out_dir}/ and {len(rows)} report(s) in {out_dir}/items/", markup=False)

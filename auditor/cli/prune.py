@@ -34,12 +34,13 @@ def prune(
     trial_max_functions: o.TrialMaxFunctions = 400,
     trial_seconds: o.TrialSeconds = 120.0,
     quiet: o.Quiet = False,
+    max_input_mb: o.MaxInputMb = o.MAX_INPUT_MB,
 ) -> None:
     """Write a shell-pruned basis that reaches a target smallest eigenvalue, the canonical
     orthogonalization matrix X, and a Markdown explanation.
 
-    Exit codes: 0 written, 2 usage error (bad target, a pruning that empties an atom),
-    3 unreadable input, 5 internal error.
+    Exit codes: 0 written, 2 usage error (bad target, a pruning that empties an atom), 3 unreadable input,
+    4 too large, 5 internal error.
     """
     # heavy (numpy, pyscf, matplotlib): imported when the command runs, see the package docstring
     from ..base.files import protect
@@ -55,6 +56,7 @@ def prune(
         options = o.remedy_options(target, trial_scf, trial_max_functions, trial_seconds)
         spec = make_spec(basis, basis_for, cartesian)
         policy = Policy(caution=caution, fail=fail_level)
+        o.start_run(out_dir, max_input_mb)
         frames = load_molecules(geometry, unit=unit, ghost=ghost)
         if not 1 <= frame <= len(frames):
             raise UsageError(f"{geometry}: frame {frame} requested, file has {len(frames)} frame(s)")
@@ -64,7 +66,7 @@ def prune(
         with protect([geometry, *spec.files()]):
             paths = write_prune_outputs(result, plan, prep, out_dir, stem)
     except AuditorError as exc:
-        fail(exc.message, exc.exit_code)
+        fail(exc.message if str(geometry) in exc.message else f"{geometry}: {exc.message}", exc.exit_code)
     if not quiet:
         doc = plan.pruned or {}  # prune_prepared raises when no pruned basis was found
         out.print(

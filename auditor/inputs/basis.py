@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import difflib
 import math
+import os
 import re
 from dataclasses import dataclass, field
 from functools import cache, lru_cache
@@ -147,12 +148,26 @@ MAX_BASIS_FILE_BYTES = 16 << 20
 _KEYWORDS = ("BASIS", "END", "ECP", "SO")
 
 
-@lru_cache(maxsize=64)
+def _stamp(path: str) -> tuple[str, int, int]:
+    """(real path, size, modification time): what the caches of basis files are keyed
+    on, so that another working folder or an edited file is never served stale."""
+    try:
+        st = os.stat(path)
+    except (OSError, ValueError):
+        return (path, -1, -1)
+    return (os.path.realpath(path), st.st_size, st.st_mtime_ns)
+
+
 def read_basis_file(path: str) -> dict[str, tuple[str, ...]]:
     """The lines of each element's shells in an NWChem-format basis file, checked line by
     line: every data line must be plain ASCII numbers (InputError naming the line
     otherwise). ECP sections are skipped: they do not enter the overlap."""
-    text = read_text(path, "basis file", MAX_BASIS_FILE_BYTES)
+    return _read_basis_file(path, _stamp(path))
+
+
+@lru_cache(maxsize=64)
+def _read_basis_file(path: str, stamp: tuple[str, int, int]) -> dict[str, tuple[str, ...]]:
+    text = read_text(path, "basis file", MAX_BASIS_FILE_BYTES, hint="")
     blocks: dict[str, list[str]] = {}
     current: list[str] | None = None
     in_ecp = False
@@ -206,19 +221,24 @@ def _file_shells(path: str, element: str) -> list:
         ) from None
 
 
-@cache
 def load_shells(name: str, element: str) -> tuple:
     """Shells of ``element`` in basis ``name`` (pyscf's internal list format).
 
     ``name`` is a basis name or an NWChem-format file (read by a numbers-only check
     first). Raises InputError naming what is missing, with close names for typos.
     """
+    name = check_basis_name(name)
+    path = Path(name).expanduser()
+    return _load_shells(name, element, _stamp(str(path)) if os.path.lexists(path) else None)
+
+
+@cache
+def _load_shells(name: str, element: str, stamp: tuple[str, int, int] | None) -> tuple:
     from pyscf.gto import basis as pbasis  # pyscf is slow to import: only when a basis is loaded
 
     eval_off()
-    name = check_basis_name(name)
     path = Path(name).expanduser()
-    if path.exists():
+    if stamp is not None:
         shells = _file_shells(str(path), element)
     else:
         try:
@@ -228,7 +248,7 @@ def load_shells(name: str, element: str) -> tuple:
                 raise InputError(f"unknown basis name {name!r}{_suggest(name)}") from None
             raise InputError(f"basis {name!r} has no functions for element {element}") from None
     if not shells:
-        where = f"basis file {name}" if path.exists() else f"basis {name!r}"
+        where = f"basis file {name}" if stamp is not None else f"basis {name!r}"
         raise InputError(f"{where} has no functions for element {element}")
     bad = _bad_exponent(shells)
     if bad is not None:

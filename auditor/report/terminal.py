@@ -8,7 +8,6 @@ from pathlib import Path
 from typing import TYPE_CHECKING
 
 from rich.console import Console, Group
-from rich.markup import escape
 from rich.table import Table
 from rich.text import Text
 
@@ -26,7 +25,7 @@ def summary_table(results: Iterable[AuditResult], errors: Iterable[tuple[str, st
     for col in ("geometry", "verdict", "functions", "smallest λ", "log10 κ", "τ advised", "removed", "main atom"):
         t.add_column(col, justify="left" if col in ("geometry", "verdict", "main atom") else "right")
     for r in results:
-        name = Path(r.input.path).name + (f" [{r.input.frame}]" if r.input.n_frames > 1 else "")
+        name = Text(Path(r.input.path).name + (f" [{r.input.frame}]" if r.input.n_frames > 1 else ""))
         top = r.causes.atoms[0] if r.causes.atoms else None
         lc = r.spectrum.log10_condition
         rec = r.recommendation
@@ -41,7 +40,7 @@ def summary_table(results: Iterable[AuditResult], errors: Iterable[tuple[str, st
             f"{top['element']}{top['atom']} ({top['weight']:.0%})" if top else "",
         )
     for path, msg in errors:
-        t.add_row(Path(path).name, f"[{STYLE['unreadable']}]unreadable[/]", "", "", "", "", "", msg)
+        t.add_row(Text(Path(path).name), f"[{STYLE['unreadable']}]unreadable[/]", "", "", "", "", "", Text(msg))
     return t
 
 
@@ -54,7 +53,7 @@ def print_summary(
     for r in results:
         serious = [f for f in r.findings if f.severity == "error"]
         for f in serious[:3]:
-            console.print(f"  [red]{Path(r.input.path).name}[/]: {f.message}", highlight=False)
+            console.print(Text.assemble("  ", (Path(r.input.path).name, "red"), f": {f.message}"), highlight=False)
 
 
 def print_remedies(
@@ -112,18 +111,18 @@ def worst_table(rows: list[dict], n: int = 10) -> Group:
         lam, cond = r["smallest_eigenvalue"], r["condition_number"]
         ok = r["verdict"] != "error"
         t.add_row(
-            escape(item_label(r)),
+            Text(item_label(r)),
             f"[{STYLE[r['verdict']]}]{r['verdict']}[/]",
             f"[{STYLE.get(r.get('outcome') or '', '')}]{r.get('outcome', '')}[/]",
             f"{lam:.2e}" if ok else "",
             ("inf" if math.isinf(cond) else f"{math.log10(cond):.1f}") if ok else "",
-            r["top_atom"],
+            Text(str(r["top_atom"] or "")),
             f"{r['threshold']:.1e}" if ok else "",
             "" if r["n_removed"] is None else str(r["n_removed"]),
         )
+        if r["verdict"] == "error" and not r.get("note") and not r.get("change"):
+            continue  # its reason is the error line on standard error: said once
         if r["verdict"] != "pass" or r.get("outcome") != "ok" or r.get("change"):
             why = "; ".join(x for x in (r.get("change", ""), r.get("note", ""), r.get("reason", "")) if x)
-            notes.append(
-                Text(f"  {why}" if r["verdict"] == "error" and not r.get("note") else f"  {item_label(r)}: {why}")
-            )
+            notes.append(Text(f"  {item_label(r)}: {why}"))
     return Group(t, *notes)
