@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import os
 import sys
+import warnings
 
 import typer
 from typer.exceptions import Abort, TyperException
@@ -32,6 +33,9 @@ for command in (check.check, prune.prune, demo.demo, gate.gate):
 def main() -> None:
     """Console entry point: never a traceback unless AUDITOR_DEBUG is set; a usage error
     of the argument parser is one ``error:`` line too (exit code 2)."""
+    if not os.environ.get("AUDITOR_DEBUG"):
+        # library warnings (numpy, pyscf) are not ours to show: errors are one line each
+        warnings.simplefilter("ignore")
     try:
         if sys.argv[1:2] == ["gate"]:
             # imported here, and only for gate: it starts the worker server before anything heavy loads

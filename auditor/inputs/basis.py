@@ -116,6 +116,8 @@ def _suggest(name: str) -> str:
 def check_basis_name(name: str, where: str = "basis") -> str:
     """``name`` stripped, or UsageError for an empty name or one with control characters
     (pyscf would parse a name with a line break as basis text)."""
+    if not isinstance(name, (str, os.PathLike)):
+        raise UsageError(f"{where}: a basis is a name or a file path, got {name!r:.40}")
     text = str(name).strip()
     if not text:
         raise UsageError(f"{where}: empty basis name")

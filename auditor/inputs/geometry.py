@@ -50,8 +50,8 @@ class Molecule:
         nelec = sum(ELEMENTS.index(s) + 1 for s, g in zip(self.symbols, self.ghost) if not g) - int(self.charge)
         return nelec % 2
 
-    def with_ghosts(self, numbers: Sequence[int]) -> Molecule:
-        """Mark 1-based atom ``numbers`` as ghost atoms."""
+    def with_ghosts(self, numbers: str | Sequence[int]) -> Molecule:
+        """Mark 1-based atom ``numbers`` ('4-6,9' or a list) as ghost atoms."""
         ghost = list(self.ghost)
         for k in check_atom_numbers(numbers, self.n_atoms, self.source):
             ghost[k - 1] = True
@@ -63,7 +63,7 @@ class Molecule:
 #: more atoms: S alone would need terabytes.
 MAX_ATOM_NUMBER = 10**7
 
-_RANGE = re.compile(r"([0-9]{1,12})(?:\s*-\s*([0-9]{1,12}))?")
+_RANGE = re.compile(r"([0-9]{1,18})(?:\s*-\s*([0-9]{1,18}))?")
 
 
 def parse_atom_ranges(spec: str | None) -> list[tuple[int, int]]:
@@ -166,6 +166,31 @@ def header_integer(key: str, value: object, where: str) -> int:
     if abs(number) > 10**4:
         raise InputError(f"{where}: {key} {number} is out of range")
     return number
+
+
+def check_molecule(mol: Molecule) -> None:
+    """InputError (UsageError for a wrong ghost list) unless ``mol``, however it was made,
+    has known elements, one finite x, y, z within MAX_COORDINATE per atom and integer
+    charge and multiplicity: what the integrals need before pyscf sees the molecule."""
+    where = mol.source
+    n = len(mol.symbols)
+    if n == 0:
+        raise InputError(f"{where}: no atoms")
+    for i, s in enumerate(mol.symbols):
+        if s not in ELEMENTS:
+            raise InputError(f"{where}: atom {i + 1}: unknown element symbol {str(s)[:20]!r}")
+    try:
+        coords = np.asarray(mol.coords, dtype=float)
+    except (TypeError, ValueError):
+        raise InputError(f"{where}: coordinates are not numbers") from None
+    if coords.shape != (n, 3):
+        raise InputError(f"{where}: expected {n} rows of x, y, z, got coordinates of shape {coords.shape}")
+    if len(mol.ghost) != n:
+        raise UsageError(f"{where}: {len(mol.ghost)} ghost flags for {n} atoms")
+    check_coordinates(coords, where)
+    header_integer("charge", mol.charge, where)
+    if mol.multiplicity is not None:
+        header_integer("multiplicity", mol.multiplicity, where)
 
 
 def _comment_charge(comment: str, where: str) -> tuple[int, int | None]:

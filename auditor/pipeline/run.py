@@ -23,7 +23,7 @@ from ..diagnosis.findings import (
 )
 from ..diagnosis.verdict import Policy, decide
 from ..inputs.basis import BasisSpec, check_basis_name, parse_overrides
-from ..inputs.geometry import Molecule, molecule_from_atoms, parse_atom_numbers, read_geometry
+from ..inputs.geometry import Molecule, molecule_from_atoms, read_geometry
 from ..numerics.eigen import compute_spectrum
 from ..numerics.memory import check_memory
 from ..numerics.overlap import FunctionTable, build_mole, function_table, mole_function_table, normalized_overlap
@@ -223,9 +223,8 @@ def audit(
         if not 1 <= frame <= len(frames):
             raise UsageError(f"{source}: frame {frame} requested, file has {len(frames)} frame(s)")
         mol = frames[frame - 1]
-    numbers = parse_atom_numbers(ghost) if isinstance(ghost, str) else list(ghost or [])
-    if numbers:
-        mol = mol.with_ghosts(numbers)
+    if ghost:
+        mol = mol.with_ghosts(ghost)  # checked against the atom count before any range is expanded
     spec = make_spec(basis, basis_for, cartesian)
     return audit_prepared(prepare(mol, spec, spectrum_method), policy, spectrum_method, remedies)
 
