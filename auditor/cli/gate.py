@@ -251,6 +251,8 @@ def _report(result: GateOutcome, cache: ResultCache | None, out_dir: Path, worst
     from ..report.terminal import worst_table
 
     rows = result.run.rows
+    for note in cache.notes if cache is not None else []:
+        err.print(f"note: {note}", markup=False)
     if cache is not None and cache.failed_writes:
         why = f" ({cache.problem})" if cache.problem else ""
         err.print(
