@@ -223,7 +223,10 @@ def _atom_line(line: str, where: str, scale: float) -> tuple[str, list[float]]:
     try:
         xyz = [plain_float(v) * scale for v in parts[1:4]]
     except ValueError:
-        raise InputError(f"{where}: coordinates are not plain numbers: {' '.join(parts[1:4])[:60]!r}") from None
+        shown = " ".join(parts[1:4])[:60]
+        if any(v.strip("+-").lower() in ("nan", "inf", "infinity") for v in parts[1:4]):
+            raise InputError(f"{where}: coordinate is not finite (NaN or infinity): {shown!r}") from None
+        raise InputError(f"{where}: coordinates are not numbers: {shown!r}") from None
     if not all(math.isfinite(v) and abs(v) <= MAX_COORDINATE for v in xyz):
         raise InputError(f"{where}: {_coordinate_problem(xyz)}")
     return sym, xyz
@@ -270,8 +273,28 @@ ASE_FORMATS = {".extxyz": "extxyz", ".xyz": "extxyz", ".json": "json", ".pdb": "
 PLAIN_SUFFIXES = (".xyz", ".txt", "")
 
 
+def _check_extxyz_counts(path: Path, text: str) -> None:
+    """Every frame's atom count of an extended XYZ text, checked before ASE reads it: ASE's
+    reader takes any integer Python reads ('1_0', '999999999999') and skips that many
+    lines, which for a huge number never ends."""
+    lines = text.splitlines()
+    i = 0
+    while i < len(lines) and lines[i].strip():
+        n = _atom_count(lines[i], f"{path}:{i + 1}")
+        if i + 2 + n > len(lines):
+            raise InputError(
+                f"{path}:{i + 1}: the header announces {n} atoms but only {max(0, len(lines) - i - 2)} atom lines follow"
+            )
+        i += 2 + n
+        while i < len(lines) and lines[i].lstrip().upper().startswith("VEC"):
+            i += 1  # lattice vectors after the atoms
+
+
 def _ase_images(path: Path, text: str, fmt: str) -> list[Atoms]:
     from ase.io import read  # ASE is slow to import: only for the formats it reads
+
+    if fmt == "extxyz":
+        _check_extxyz_counts(path, text)
 
     try:
         images = read(io.StringIO(text), index=":", format=fmt)

@@ -574,6 +574,15 @@ CLI_CASES: list[Case] = [
     ),
     _c("hang-atom-count-huge", "hang", CHECK_BAD, 3, "bad.xyz:1:", _bad("999999999999\n\nH 0 0 0\n")),
     _c(
+        "hang-extxyz-atom-count-huge",
+        "hang",
+        ["check", "bad.extxyz", *CHECK],
+        3,
+        "bad.extxyz:1:",
+        _bad("999999999999\nProperties=species:S:1:pos:R:3\nH 0 0 0\n", "bad.extxyz"),
+        alone=True,
+    ),
+    _c(
         "hang-oversize-refused",
         "hang",
         ["check", "big.xyz", *CHECK, "--max-input-mb", "1"],
