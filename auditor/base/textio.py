@@ -52,7 +52,7 @@ def check_regular_file(path: Path, what: str = "file") -> os.stat_result:
     try:
         st = os.stat(path)
     except FileNotFoundError:
-        raise InputError(f"{path}: no such {what}") from None
+        raise InputError(f"{path}: no such file") from None
     except OSError as exc:
         raise InputError(f"{path}: cannot read ({exc.strerror})") from None
     except ValueError:  # a NUL character in the name

@@ -14,11 +14,19 @@ import sys
 import warnings
 
 import typer
+import typer.rich_utils
 from typer.exceptions import Abort, TyperException
 
 from ..base.errors import EXIT_INTERNAL, EXIT_USAGE
 from . import check, demo, gate, prune
 from .console import err, error_line
+
+#: Width of --help when standard output is not a terminal (pipes, CI logs): fixed, so that
+#: help wraps at the same places everywhere (between words, never inside '4-6,9'),
+#: whatever COLUMNS says. TERMINAL_WIDTH, typer's own setting, still wins.
+HELP_WIDTH = 100
+if not sys.stdout.isatty() and not os.environ.get("TERMINAL_WIDTH"):
+    typer.rich_utils.MAX_WIDTH = HELP_WIDTH
 
 app = typer.Typer(
     add_completion=False,
