@@ -282,9 +282,8 @@ def _check_extxyz_counts(path: Path, text: str) -> None:
     while i < len(lines) and lines[i].strip():
         n = _atom_count(lines[i], f"{path}:{i + 1}")
         if i + 2 + n > len(lines):
-            raise InputError(
-                f"{path}:{i + 1}: the header announces {n} atoms but only {max(0, len(lines) - i - 2)} atom lines follow"
-            )
+            have = max(0, len(lines) - i - 2)
+            raise InputError(f"{path}:{i + 1}: the header announces {n} atoms but only {have} atom lines follow")
         i += 2 + n
         while i < len(lines) and lines[i].lstrip().upper().startswith("VEC"):
             i += 1  # lattice vectors after the atoms

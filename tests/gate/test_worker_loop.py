@@ -7,6 +7,7 @@ from __future__ import annotations
 import json
 import os
 from collections import deque
+from typing import Any
 
 from test_gate import H2, OPTIONS
 
@@ -58,7 +59,7 @@ class _Conn:
 
 
 def _fake_worker(tasks=(), proc=None, conn=None) -> _Worker:
-    w = object.__new__(_Worker)
+    w: Any = object.__new__(_Worker)  # a worker without a process: its pipe and process are fakes
     w.conn, w.proc = conn or _Conn(), proc or _Proc()
     w.ready, w.gone, w.started = True, False, 0.0
     w.tasks = deque(tasks)

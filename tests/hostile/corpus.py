@@ -995,6 +995,13 @@ def _load_molecules_ghost(ghost) -> Callable[[Path], object]:
     return call
 
 
+def _load_pruned_fifo(folder: Path):
+    import auditor
+
+    os.mkfifo(folder / "p.json")
+    return auditor.load_pruned(folder / "p.json")
+
+
 _EVIL_DOC = {"atoms": "O 0 0 0; H 0 0 1; H 0 1 0", "basis": {"O": "sto-3g", "H": f"H S\n ({PY} or 1.0) 1.0\n"}}
 
 API_CASES: list[ApiCase] = [
@@ -1051,7 +1058,7 @@ API_CASES: list[ApiCase] = [
     ApiCase(
         "api-load-pruned-fifo",
         "hang",
-        lambda f: (os.mkfifo(f / "p.json"), __import__("auditor").load_pruned(f / "p.json")),
+        _load_pruned_fifo,
         "InputError",
         "not a regular file",
         alone=True,

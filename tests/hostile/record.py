@@ -65,7 +65,8 @@ def _api(case: corpus.ApiCase, folder: Path) -> str:
 
 def main() -> None:
     only = set(sys.argv[1:])
-    for case in [*corpus.CLI_CASES, *corpus.API_CASES]:
+    cases: list[corpus.Case | corpus.ApiCase] = [*corpus.CLI_CASES, *corpus.API_CASES]
+    for case in cases:
         if only and case.id not in only:
             continue
         with tempfile.TemporaryDirectory() as tmp:
