@@ -66,7 +66,8 @@ def prune(
         with protect([geometry, *spec.files()]):
             paths = write_prune_outputs(result, plan, prep, out_dir, stem)
     except AuditorError as exc:
-        fail(exc.message if str(geometry) in exc.message else f"{geometry}: {exc.message}", exc.exit_code)
+        named = str(geometry) in exc.message or exc.message.startswith("--")  # the file, or an option
+        fail(exc.message if named else f"{geometry}: {exc.message}", exc.exit_code)
     if not quiet:
         doc = plan.pruned or {}  # prune_prepared raises when no pruned basis was found
         out.print(
