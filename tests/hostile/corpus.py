@@ -440,6 +440,8 @@ CLI_CASES: list[Case] = [
         "bad.xyz:2: not UTF-8",
         _bad(xyz(comment="caf\xe9").encode("latin-1")),
     ),
+    _c("wrong-element-superscript-digit", "wrong", CHECK_BAD, 3, "bad.xyz:3:", _bad(xyz("² 0 0 0"))),
+    _c("wrong-element-arabic-indic-digit", "wrong", CHECK_BAD, 3, "bad.xyz:3:", _bad(xyz("٣ 0 0 0"))),
     _c("wrong-bom-accepted", "wrong", CHECK_BAD, 0, "bad.xyz", _bad(b"\xef\xbb\xbf" + WATER_XYZ.encode())),
     _c("wrong-crlf-accepted", "wrong", CHECK_BAD, 0, "bad.xyz", _bad(WATER_XYZ.replace("\n", "\r\n"))),
     _c(
