@@ -21,7 +21,7 @@ def long_functions(root: Path):
             if not isinstance(node, (ast.FunctionDef, ast.AsyncFunctionDef)):
                 continue
             first = min([node.lineno] + [d.lineno for d in node.decorator_list])
-            size = node.end_lineno - node.lineno + 1
+            size = (node.end_lineno or node.lineno) - node.lineno + 1
             context = lines[max(0, first - 2) : node.lineno]
             if size > MAX_LINES and not any("# size:" in line for line in context):
                 yield f"{path}:{node.lineno}: {node.name} has {size} lines (limit {MAX_LINES}; add '# size: <reason>')"

@@ -28,7 +28,8 @@ def element_symbol(token: str, where: str) -> str:
     """Normalize an element symbol ('h' -> 'H', 'CL' -> 'Cl', '8' -> 'O'); labels such as
     'C1' are not guessed."""
     token = token.strip()
-    if token.isdigit() and 1 <= int(token) <= len(ELEMENTS):
+    # ASCII digits only: str.isdigit() also takes '²' (int() fails) and '٣' (read as 3, Li)
+    if token.isascii() and token.isdigit() and len(token) <= 3 and 1 <= int(token) <= len(ELEMENTS):
         return ELEMENTS[int(token) - 1]
     sym = _SYMBOL.get(token.lower())
     if sym is None:

@@ -11,12 +11,22 @@ EXIT_RESOURCE = 4  # the job does not fit on this machine (memory guard)
 EXIT_INTERNAL = 5  # a bug in the auditor: please report it with the input
 
 
+def one_line(text: str) -> str:
+    """``text`` as one line: control characters (line breaks, escape sequences that a
+    terminal would act on) shown as escapes, so that an error stays one line whatever
+    a file name or a file's content holds."""
+    if all(32 <= ord(c) != 127 for c in text):
+        return text
+    return "".join(c if 32 <= ord(c) != 127 else repr(c)[1:-1] if c != "\t" else " " for c in text)
+
+
 class AuditorError(Exception):
     """Base class: carries a one-line message and the exit code it maps to."""
 
     exit_code = EXIT_INPUT
 
     def __init__(self, message: str) -> None:
+        message = one_line(str(message))
         super().__init__(message)
         self.message = message
 
@@ -48,5 +58,5 @@ def failure(exc: BaseException) -> tuple[str, int]:
         return exc.message, exc.exit_code
     if isinstance(exc, MemoryError):
         return "ran out of memory", EXIT_RESOURCE
-    text = str(exc).splitlines()[0] if str(exc) else ""
-    return f"internal error ({type(exc).__name__}: {text})", EXIT_INTERNAL
+    text = str(exc).splitlines()[0] if str(exc).strip() else ""
+    return f"internal error ({type(exc).__name__}: {one_line(text)})", EXIT_INTERNAL

@@ -5,6 +5,7 @@ from __future__ import annotations
 import itertools
 import os
 import re
+import tempfile
 from collections.abc import Iterable, Iterator
 from contextlib import contextmanager
 from pathlib import Path
@@ -41,6 +42,25 @@ def check_not_input(path: Path) -> None:
         raise UsageError(
             f"{path}: refusing to overwrite an input file with a report; choose another output folder (--out)"
         )
+
+
+def check_output_dir(path: str | os.PathLike[str], option: str = "--out") -> None:
+    """UsageError unless reports can be written in folder ``path``: it is a folder (or can
+    be made in the nearest folder that exists) and a file can be created there. Checked
+    before any work, so that a bad output location is one line, not one error per report."""
+    target = Path(path)
+    existing = target
+    while not os.path.lexists(existing) and existing.parent != existing:
+        existing = existing.parent
+    if not existing.is_dir():
+        what = "is not a folder" if existing == target else f"cannot be made: {existing} is not a folder"
+        raise UsageError(f"{option} {target}: {what}")
+    try:
+        fd, probe = tempfile.mkstemp(prefix=".auditor-probe-", dir=existing)
+        os.close(fd)
+        os.unlink(probe)
+    except OSError as exc:
+        raise UsageError(f"{option} {target}: cannot write there ({exc.strerror or exc})") from None
 
 
 def atomic_write(path: Path, data: str | bytes) -> None:

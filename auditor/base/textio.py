@@ -13,8 +13,24 @@ from pathlib import Path
 
 from .errors import InputError
 
-#: Default size limit of one input text file (geometry, basis file, list of paths).
+#: Default size limit of one input text file (geometry, list of paths); the command line's
+#: --max-input-mb changes it for the run (``set_input_limit``).
 MAX_INPUT_BYTES = 64 << 20
+#: the hint an oversize message gives
+LIMIT_HINT = "--max-input-mb raises it"
+
+_limit = [MAX_INPUT_BYTES]
+
+
+def input_limit() -> int:
+    """The size limit of one input file in bytes (MAX_INPUT_BYTES unless set)."""
+    return _limit[0]
+
+
+def set_input_limit(megabytes: float | None) -> None:
+    """Set the size limit of input files for this process (None: the default)."""
+    _limit[0] = MAX_INPUT_BYTES if megabytes is None else int(megabytes * 2**20)
+
 
 #: A plain decimal number in ASCII: optional sign, digits with an optional point, optional
 #: exponent (E or D, as Fortran writes it). No underscores, no other scripts' digits.
@@ -36,9 +52,11 @@ def check_regular_file(path: Path, what: str = "file") -> os.stat_result:
     try:
         st = os.stat(path)
     except FileNotFoundError:
-        raise InputError(f"{path}: no such {what}") from None
+        raise InputError(f"{path}: no such file") from None
     except OSError as exc:
         raise InputError(f"{path}: cannot read ({exc.strerror})") from None
+    except ValueError:  # a NUL character in the name
+        raise InputError(f"{path!r}: not a usable file name") from None
     if stat.S_ISDIR(st.st_mode):
         raise InputError(f"{path}: is a folder, expected a {what}")
     if not stat.S_ISREG(st.st_mode):
@@ -46,14 +64,20 @@ def check_regular_file(path: Path, what: str = "file") -> os.stat_result:
     return st
 
 
-def read_bytes(path: str | Path, what: str = "file", limit: int = MAX_INPUT_BYTES) -> bytes:
-    """The bytes of a regular file of at most ``limit`` bytes (InputError otherwise)."""
+def _mib(n: int) -> str:
+    return f"{n / 2**20:.1f}".removesuffix(".0")
+
+
+def read_bytes(path: str | Path, what: str = "file", limit: int | None = None, hint: str = LIMIT_HINT) -> bytes:
+    """The bytes of a regular file of at most ``limit`` bytes (default ``input_limit()``;
+    InputError otherwise). ``hint``: how to raise the limit, for the message."""
     path = Path(path)
+    limit = input_limit() if limit is None else limit
     st = check_regular_file(path, what)
     if st.st_size > limit:
         raise InputError(
             f"{path}: {st.st_size / 2**20:.1f} MiB is larger than the limit of "
-            f"{limit / 2**20:.0f} MiB for a {what} (--max-input-mb raises it)"
+            f"{_mib(limit)} MiB for a {what}" + (f" ({hint})" if hint else "")
         )
     try:
         # O_NONBLOCK: if the file was swapped for a FIFO after the check, open does not wait
@@ -65,7 +89,7 @@ def read_bytes(path: str | Path, what: str = "file", limit: int = MAX_INPUT_BYTE
             raise InputError(f"{path}: not a regular file, expected a {what}")
         data = fh.read(limit + 1)
     if len(data) > limit:
-        raise InputError(f"{path}: larger than the limit of {limit / 2**20:.0f} MiB for a {what}")
+        raise InputError(f"{path}: larger than the limit of {_mib(limit)} MiB for a {what}")
     return data
 
 
@@ -83,6 +107,6 @@ def decode_text(data: bytes, path: str | Path) -> str:
         ) from None
 
 
-def read_text(path: str | Path, what: str = "file", limit: int = MAX_INPUT_BYTES) -> str:
-    """UTF-8 text of a regular file of at most ``limit`` bytes."""
-    return decode_text(read_bytes(path, what, limit), path)
+def read_text(path: str | Path, what: str = "file", limit: int | None = None, hint: str = LIMIT_HINT) -> str:
+    """UTF-8 text of a regular file of at most ``limit`` bytes (default ``input_limit()``)."""
+    return decode_text(read_bytes(path, what, limit, hint), path)

@@ -11,13 +11,23 @@ from __future__ import annotations
 
 import os
 import sys
+import warnings
 from typing import Annotated
 
 import typer
+import typer.rich_utils
+from typer.exceptions import Abort, TyperException
 
-from ..base.errors import EXIT_INTERNAL
+from ..base.errors import EXIT_INTERNAL, EXIT_USAGE
 from . import check, demo, gate, prune
-from .console import err
+from .console import err, error_line
+
+#: Width of --help when standard output is not a terminal (pipes, CI logs): fixed, so that
+#: help wraps at the same places everywhere (between words, never inside '4-6,9'),
+#: whatever COLUMNS says. TERMINAL_WIDTH, typer's own setting, still wins.
+HELP_WIDTH = 100
+if not sys.stdout.isatty() and not os.environ.get("TERMINAL_WIDTH"):
+    typer.rich_utils.MAX_WIDTH = HELP_WIDTH
 
 app = typer.Typer(
     add_completion=False,
@@ -47,22 +57,39 @@ def _options(
 
 
 def main() -> None:
-    """Console entry point: never a traceback unless AUDITOR_DEBUG is set."""
+    """Console entry point: never a traceback unless AUDITOR_DEBUG is set; a usage error
+    of the argument parser is one ``error:`` line too (exit code 2)."""
+    if not os.environ.get("AUDITOR_DEBUG"):
+        # library warnings (numpy, pyscf) are not ours to show: errors are one line each
+        warnings.simplefilter("ignore")
     try:
         if sys.argv[1:2] == ["gate"]:
             # imported here, and only for gate: it starts the worker server before anything heavy loads
             from ..gate.workers import start_early
 
             start_early(sys.argv[1:])
-        app()
-    except KeyboardInterrupt:
-        err.print("interrupted")
+        code = app(standalone_mode=False)
+    except TyperException as exc:  # the argument parser's errors (typer's own click)
+        sys.exit(_parser_error(exc))
+    except (KeyboardInterrupt, Abort):
+        err.print("interrupted", markup=False)
         sys.exit(130)
     except Exception as exc:
         if os.environ.get("AUDITOR_DEBUG"):
             raise
-        err.print(
-            f"[bold red]error:[/] internal error ({type(exc).__name__}: {exc}); "
-            "set AUDITOR_DEBUG=1 to see the traceback".splitlines()[0]
-        )
+        text = str(exc).splitlines()[0] if str(exc).strip() else ""
+        error_line(f"internal error ({type(exc).__name__}: {text}); set AUDITOR_DEBUG=1 to see the traceback")
         sys.exit(EXIT_INTERNAL)
+    sys.exit(code if isinstance(code, int) else 0)
+
+
+def _parser_error(exc: TyperException) -> int:
+    """One ``error:`` line for an error of the argument parser (help when no arguments
+    were given); returns the exit code (2 for a usage error)."""
+    if type(exc).__name__ == "NoArgsIsHelpError":
+        exc.show()  # type: ignore[attr-defined]  # prints the help
+        return int(getattr(exc, "exit_code", EXIT_USAGE))
+    ctx = getattr(exc, "ctx", None)
+    where = f" (see '{ctx.command_path} --help')" if ctx is not None else ""
+    error_line(exc.format_message() + where)
+    return int(getattr(exc, "exit_code", EXIT_USAGE))

@@ -9,7 +9,7 @@ import typer
 
 from ..base.errors import EXIT_USAGE, AuditorError
 from . import options as o
-from .console import err, fail, out, stage_display
+from .console import error_line, fail, out, stage_display
 
 
 # size: the signature declares one parameter per command-line option
@@ -52,12 +52,12 @@ def check(
     kmesh: o.KMesh = None,
     precision: o.Precision = None,
     quiet: o.Quiet = False,
+    max_input_mb: o.MaxInputMb = o.MAX_INPUT_MB,
 ) -> None:
     """Audit each geometry in one basis; write DIR/<stem>.json, .md and .html per frame.
     Periodic inputs (CIF, extended XYZ with a Lattice, ...) are audited at every k-point.
 
-    Exit codes: 0 pass or caution, 1 fail, 2 usage error, 3 unreadable input, 4 too large,
-    5 internal error.
+    Exit codes: 0 pass or caution, 1 fail, 2 usage error, 3 unreadable input, 4 too large, 5 internal error.
     """
     # heavy (numpy, pyscf, matplotlib): imported when the command runs, see the package docstring
     from ..diagnosis.verdict import Policy
@@ -76,6 +76,7 @@ def check(
         remedies = False if no_remedies else o.remedy_options(target, trial_scf, trial_max_functions, trial_seconds)
         o.check_spectrum_method(spectrum)
         periodic = o.periodic_options(kmesh, precision)
+        o.start_run(out_dir, max_input_mb)
     except AuditorError as exc:
         fail(exc.message, exc.exit_code)
     with stage_display(enabled=not quiet) as on_stage:
@@ -93,10 +94,10 @@ def check(
             periodic=periodic,
         )
     for _, message, _ in outcome.errors:
-        err.print(f"[bold red]error:[/] {message}")
+        error_line(message)
     if not quiet:
         print_summary(outcome.results, [(p, m) for p, m, _ in outcome.errors], out)
         print_remedies(outcome.results, out)
         if outcome.written:
-            out.print(f"wrote {len(outcome.written)} report file(s) to {out_dir}/")
+            out.print(f"wrote {len(outcome.written)} report file(s) to {out_dir}/", markup=False)
     raise typer.Exit(outcome.exit_code)

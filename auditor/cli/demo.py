@@ -8,6 +8,7 @@ from typing import Annotated
 import typer
 
 from ..base.errors import AuditorError
+from . import options as o
 from .console import fail, out
 
 
@@ -23,10 +24,11 @@ def demo(
     from ..report.terminal import print_summary
 
     try:
+        o.start_run(out_dir, o.MAX_INPUT_MB)
         folder = examples or find_examples()
         outcome, index = run_demo(folder, out_dir)
     except AuditorError as exc:
         fail(exc.message, exc.exit_code)
     print_summary(outcome.results, [(p, m) for p, m, _ in outcome.errors], out)
-    out.print(f"wrote {len(outcome.written)} report file(s) and {index}")
+    out.print(f"wrote {len(outcome.written)} report file(s) and {index}", markup=False)
     raise typer.Exit(0 if not outcome.errors else outcome.exit_code)

@@ -102,6 +102,7 @@ def gate(
     kmesh: o.KMesh = None,
     precision: o.Precision = None,
     quiet: o.Quiet = False,
+    max_input_mb: o.MaxInputMb = o.MAX_INPUT_MB,
 ) -> None:
     """Audit a set of geometries in parallel and gate it: summary table, JUnit XML, per-item JSON.
 
@@ -110,6 +111,7 @@ def gate(
     try:
         _check_options(unit, jobs, engine, scheduler, drop_decades, fmt, spectrum, ghost)
         spec = _spec(basis, basis_for, cartesian, basis_source)
+        o.start_run(out_dir, max_input_mb)
         gate_policy, options = _gate_options(
             spec, unit, ghost, policy_file, caution, fail_level, spectrum, with_remedies
         )
@@ -259,6 +261,8 @@ def _report(result: GateOutcome, cache: ResultCache | None, out_dir: Path, worst
     from ..report.terminal import worst_table
 
     rows = result.run.rows
+    for note in cache.notes if cache is not None else []:
+        err.print(f"note: {note}", markup=False)
     if cache is not None and cache.failed_writes:
         why = f" ({cache.problem})" if cache.problem else ""
         err.print(
@@ -277,6 +281,10 @@ def _report(result: GateOutcome, cache: ResultCache | None, out_dir: Path, worst
         for k in ("ok", "blocked", "regressed", "allowed", "known")
         if any(r["outcome"] == k for r in rows)
     )
-    out.print(f"{len(rows)} item(s): {counts}; {result.run.computed} audited, {result.run.cached} from the cache")
+    if cache is not None:
+        served = f", {result.run.cached} from the cache"
+    else:  # --no-cache: only items with the geometry of another item are served without an audit
+        served = f", {result.run.cached} the same as another item" if result.run.cached else ""
+    out.print(f"{len(rows)} item(s): {counts}; {result.run.computed} audited{served}", markup=False)
     top = ", ".join(Path(w).name for w in result.written if Path(w).parent == Path(out_dir))
     out.print(f"wrote {top} in {out_dir}/ and {len(rows)} report(s) in {out_dir}/items/", markup=False)

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import math
+from pathlib import Path
 from typing import TYPE_CHECKING, Annotated
 
 import typer
@@ -75,6 +77,14 @@ def periodic_options(kmesh: str | None, precision: float | None) -> PeriodicOpti
     return PeriodicOptions(parse_kmesh(kmesh), precision)
 
 
+MaxInputMb = Annotated[
+    float,
+    typer.Option("--max-input-mb", help="Largest input file (geometry, list of paths) that is read, in MiB."),
+]
+#: default of --max-input-mb (auditor.base.textio.MAX_INPUT_BYTES in MiB)
+MAX_INPUT_MB = 64.0
+
+
 # Checks of option values that several commands share. The heavy modules are imported
 # inside: the command line starts worker processes before numpy and pyscf load.
 
@@ -90,10 +100,24 @@ def check_spectrum_method(method: str) -> None:
 
 
 def check_ghost(ghost: str | None) -> None:
+    """The syntax of --ghost (the numbers are checked against each file's atoms later)."""
     if ghost:
-        from ..inputs.geometry import parse_atom_numbers
+        from ..inputs.geometry import parse_atom_ranges
 
-        parse_atom_numbers(ghost)
+        parse_atom_ranges(ghost)
+
+
+def start_run(out_dir: Path | None, max_input_mb: float) -> None:
+    """Checks every command makes before any work: the input size limit (--max-input-mb)
+    and an output folder that can be written (not a file, /dev/null or read-only)."""
+    from ..base.files import check_output_dir
+    from ..base.textio import set_input_limit
+
+    if not (math.isfinite(max_input_mb) and 0 < max_input_mb <= 2**20):
+        raise UsageError(f"--max-input-mb must be a positive number of MiB, got {max_input_mb:g}")
+    set_input_limit(max_input_mb)
+    if out_dir is not None:
+        check_output_dir(out_dir)
 
 
 def remedy_options(

@@ -38,13 +38,14 @@ def prune(
     kmesh: o.KMesh = None,
     precision: o.Precision = None,
     quiet: o.Quiet = False,
+    max_input_mb: o.MaxInputMb = o.MAX_INPUT_MB,
 ) -> None:
     """Write a shell-pruned basis that reaches a target smallest eigenvalue, the canonical
     orthogonalization matrix X, and a Markdown explanation.
 
-    Exit codes: 0 written, 2 usage error (bad target, a pruning that empties an atom),
-    3 unreadable input, 5 internal error. Periodic inputs (CIF, extended XYZ with a Lattice, ...)
-    get the exponent cutoff and the whole-shell subset at every k-point (`auditor.cli.periodic`).
+    Exit codes: 0 written, 2 usage error (bad target, a pruning that empties an atom, a broken geometry),
+    3 unreadable input, 4 too large, 5 internal error. Periodic inputs (CIF, extended XYZ with a Lattice,
+    ...) get the exponent cutoff and the whole-shell subset at every k-point (`auditor.cli.periodic`).
     """
     # heavy (numpy, pyscf, matplotlib): imported when the command runs, see the package docstring
     from ..base.files import protect
@@ -61,6 +62,7 @@ def prune(
         options = o.remedy_options(target, trial_scf, trial_max_functions, trial_seconds)
         spec = make_spec(basis, basis_for, cartesian, basis_source)
         policy = Policy(caution=caution, fail=fail_level)
+        o.start_run(out_dir, max_input_mb)
         periodic = o.periodic_options(kmesh, precision)
         if is_periodic(geometry):
             prune_cell_file(geometry, spec, policy, options, periodic, unit, ghost, frame, out_dir, quiet)
@@ -75,7 +77,8 @@ def prune(
         with protect([geometry, *spec.files()]):
             paths = write_prune_outputs(result, plan, prep, out_dir, stem)
     except AuditorError as exc:
-        fail(exc.message, exc.exit_code)
+        named = str(geometry) in exc.message or exc.message.startswith("--")  # the file, or an option
+        fail(exc.message if named else f"{geometry}: {exc.message}", exc.exit_code)
     if not quiet:
         doc = plan.pruned or {}  # prune_prepared raises when no pruned basis was found
         out.print(

@@ -2,11 +2,13 @@
 
 from __future__ import annotations
 
+import io
 import math
 from pathlib import Path
 from typing import Any
 
-from ..base.errors import UsageError
+from ..base.errors import InputError, UsageError
+from ..base.textio import read_bytes
 from ..report.rows import FAILING
 from .policy_file import GatePolicy
 
@@ -27,9 +29,10 @@ def load_baseline(path: str | Path) -> dict:
 
     path = Path(path)
     try:
-        df = pd.read_parquet(path) if path.suffix.lower() in (".parquet", ".pq") else pd.read_csv(path)
-    except FileNotFoundError:
-        raise UsageError(f"{path}: no such baseline file") from None
+        data = io.BytesIO(read_bytes(path, "baseline summary"))  # a regular file of bounded size
+        df = pd.read_parquet(data) if path.suffix.lower() in (".parquet", ".pq") else pd.read_csv(data)
+    except InputError as exc:
+        raise UsageError(exc.message) from None
     except Exception as exc:  # pandas and pyarrow raise many types; the message is what matters
         first = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
         raise UsageError(f"{path}: cannot read baseline summary ({first})") from None

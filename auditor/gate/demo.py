@@ -7,6 +7,7 @@ from pathlib import Path
 
 from ..base.errors import InputError
 from ..base.files import atomic_write
+from ..base.textio import read_text
 from ..diagnosis.verdict import Policy
 from ..inputs.cell import parse_kmesh
 from ..pipeline.run import make_spec
@@ -35,13 +36,48 @@ def find_examples() -> Path:
     raise InputError(f"no example_geometries/{MANIFEST} found here or beside the package")
 
 
+#: the keys of an [[example]] table and the types of their values
+EXAMPLE_KEYS: dict[str, tuple[type, ...]] = {
+    "file": (str,),
+    "basis": (str,),
+    "basis_for": (list, dict),
+    "cartesian": (bool,),
+    "unit": (str,),
+    "ghost": (str, list),
+    "note": (str,),
+    "kmesh": (str,),
+    "precision": (float,),
+}
+
+
+def _check_example(path: Path, k: int, ex: object) -> None:
+    where = f"{path}: example {k}"
+    if not isinstance(ex, dict):
+        raise InputError(f"{where}: expected a table ([[example]])")
+    for key in ("file", "basis"):
+        if key not in ex:
+            raise InputError(f"{where}: needs a {key}")
+    for key, value in ex.items():
+        if key not in EXAMPLE_KEYS:
+            raise InputError(f"{where}: unknown key {key!r} (known: {', '.join(EXAMPLE_KEYS)})")
+        if not isinstance(value, EXAMPLE_KEYS[key]):
+            kinds = " or ".join(t.__name__ for t in EXAMPLE_KEYS[key])
+            raise InputError(f"{where}: {key} must be a {kinds}, got {value!r:.40}")
+
+
 def load_manifest(folder: Path) -> list[dict]:
-    path = folder / MANIFEST
+    """The [[example]] tables of ``folder/examples.toml``, every key checked."""
+    path = Path(folder) / MANIFEST
     try:
-        data = tomllib.loads(path.read_text(encoding="utf-8"))
-    except (OSError, tomllib.TOMLDecodeError) as exc:
-        raise InputError(f"{path}: cannot read ({exc})") from None
-    return data.get("example", [])
+        data = tomllib.loads(read_text(path, "manifest"))
+    except tomllib.TOMLDecodeError as exc:
+        raise InputError(f"{path}: not valid TOML ({exc})") from None
+    examples = data.get("example", [])
+    if not isinstance(examples, list):
+        raise InputError(f"{path}: example must be an array of tables ([[example]])")
+    for k, ex in enumerate(examples, 1):
+        _check_example(path, k, ex)
+    return examples
 
 
 def run_demo(folder: Path, out: Path) -> tuple[RunOutcome, Path]:

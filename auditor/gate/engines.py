@@ -7,12 +7,13 @@ import multiprocessing as mp
 import os
 import signal
 import socket
+import threading
 import time
 from collections import deque
 from collections.abc import Callable
 from multiprocessing.connection import Connection
 from multiprocessing.connection import wait as wait_any
-from typing import Protocol
+from typing import Any, Protocol
 from urllib.parse import urlsplit
 
 from ..base.errors import AuditorError, UsageError
@@ -66,18 +67,27 @@ class _Worker:
         self.proc.start()
         child.close()
         self.ready = False
+        self.gone = False  # a send found it dead
         self.tasks: deque[tuple[str, str]] = deque()  # sent and not answered; the first is running
         self.started = 0.0  # when the first of them started
 
     def wants(self) -> bool:
         """Room for another item: none in hand, or one whose successor can wait in the pipe."""
-        return self.ready and len(self.tasks) < 2
+        return self.ready and not self.gone and len(self.tasks) < 2
 
     def assign(self, name: str, payload: str) -> None:
+        """Send an item; OSError (BrokenPipeError) when the worker is gone, and then the
+        item is not counted as sent."""
+        started = self.started
         if not self.tasks:
             self.started = time.monotonic()
         self.tasks.append((name, payload))
-        self.conn.send(payload)
+        try:
+            self.conn.send(payload)
+        except (OSError, ValueError):  # ValueError: the connection is closed
+            self.tasks.pop()
+            self.started = started
+            raise OSError(f"worker {self.proc.pid} is gone") from None
 
     def finished(self) -> str:
         name, _ = self.tasks.popleft()
@@ -168,7 +178,13 @@ class _Pool:
         when its payload is small enough to wait in the pipe."""
         for w in self.workers:
             while self.queue and w.wants() and (not w.tasks or len(self.queue[0][1]) <= _PIPELINE_BYTES):
-                w.assign(*self.queue.popleft())
+                task = self.queue.popleft()
+                try:
+                    w.assign(*task)
+                except OSError:  # the worker died unnoticed: the item was never sent
+                    self.queue.appendleft(task)
+                    w.gone = True  # no more items for it; tend() retires it
+                    break
 
     def step(self) -> None:
         """Hand out items, wait for a reply, a dead worker or a timeout, then see to every worker."""
@@ -181,11 +197,16 @@ class _Pool:
     def tend(self, w: _Worker) -> None:
         """Hand out the replies of ``w``; replace it when it died or overran the item timeout."""
         replies, died = self._read(w)
+        if not died and not w.proc.is_alive():
+            # it may have answered an item before dying on the next: drain the pipe first
+            more, _ = self._read(w)
+            replies += more
+            died = True
+        died = died or w.gone
         if replies:
             self.feed()  # hand out the next items before writing these results
             for name, text, seconds in replies:
                 self.on_done(name, json.loads(text), seconds)
-        died = died or not w.proc.is_alive()
         timeout = self.engine.timeout
         late = bool(w.tasks) and timeout and time.monotonic() - w.started > timeout
         if died or late:
@@ -252,17 +273,30 @@ class _Pool:
             w.kill()
 
 
-def _check_reachable(address: str, seconds: float = 5.0) -> None:
-    """Fail fast on a tcp:// address that refuses connections (Dask itself retries until its timeout)."""
-    if not address.startswith("tcp://"):
-        return
+def parse_scheduler_address(address: str) -> tuple[str, int]:
+    """(host, port) of a Dask scheduler address, ``tcp://HOST:PORT`` or ``HOST:PORT``;
+    UsageError for anything else (other schemes, such as tls://, need settings that
+    ``auditor gate`` does not take)."""
+    text = str(address).strip()
+    scheme, sep, _ = text.partition("://")
+    if sep and scheme.lower() != "tcp":
+        raise UsageError(
+            f"--scheduler {text}: only tcp:// scheduler addresses are supported "
+            f"({scheme}:// needs security settings that auditor gate does not take)"
+        )
     try:
-        parts = urlsplit(address)
+        parts = urlsplit(text if sep else f"tcp://{text}")
         host, port = parts.hostname, parts.port
     except ValueError:
-        raise UsageError(f"cannot read the scheduler address {address!r}") from None
+        raise UsageError(f"--scheduler {text}: cannot read the address (expected tcp://HOST:PORT)") from None
     if not host or not port:
-        raise UsageError(f"the scheduler address {address!r} needs a host and a port")
+        raise UsageError(f"--scheduler {text}: the address needs a host and a port (tcp://HOST:PORT)")
+    return host, port
+
+
+def _check_reachable(address: str, seconds: float = 5.0) -> None:
+    """Fail fast on an address that refuses connections (Dask itself retries until its timeout)."""
+    host, port = parse_scheduler_address(address)
     try:
         socket.create_connection((host, port), timeout=seconds).close()
     except OSError as exc:
@@ -273,12 +307,40 @@ class DaskEngine:
     """Items as tasks on a running Dask distributed scheduler (JSON text in and out).
 
     The workers must have auditor installed. ``--item-timeout`` is not enforced here:
-    Dask cannot stop a running task.
+    Dask cannot stop a running task. The address is checked when the engine is made;
+    connecting and the scheduler's first answer are bounded by ``connect_timeout``
+    seconds, whatever the other end does (a port that accepts and never answers too).
     """
 
-    def __init__(self, address: str, connect_timeout: float = 20.0):
+    def __init__(self, address: str, connect_timeout: float = 10.0):
+        parse_scheduler_address(address)
         self.address = address
         self.connect_timeout = connect_timeout
+
+    def _connect(self) -> Any:
+        """A Dask Client, or UsageError within about ``connect_timeout`` seconds."""
+        from dask.distributed import Client  # optional, and slow to import
+
+        box: dict[str, Any] = {}
+
+        def connect() -> None:
+            try:
+                box["client"] = Client(self.address, timeout=self.connect_timeout, set_as_default=False)
+            except BaseException as exc:  # noqa: BLE001 - reported below as one line
+                box["error"] = exc
+
+        thread = threading.Thread(target=connect, name="auditor-dask-connect", daemon=True)
+        thread.start()
+        thread.join(self.connect_timeout + 5.0)
+        if thread.is_alive():
+            raise UsageError(
+                f"the Dask scheduler at {self.address} does not answer (nothing within {self.connect_timeout:g} s)"
+            )
+        if "error" in box:
+            exc = box["error"]
+            why = str(exc).strip().splitlines()[0][:160] if str(exc).strip() else type(exc).__name__
+            raise UsageError(f"cannot reach the Dask scheduler at {self.address} ({why})")
+        return box["client"]
 
     def run(self, tasks: list[tuple[str, str]], on_done: OnDone, check: BasisCheck | None = None) -> None:
         if not tasks:
@@ -286,14 +348,11 @@ class DaskEngine:
         if check is not None:
             check_basis_names(*check)
         try:
-            from dask.distributed import Client, as_completed  # optional, and slow to import
+            from dask.distributed import as_completed  # optional, and slow to import
         except ImportError:
             raise UsageError("--engine dask needs dask[distributed]: pip install 'auditor[dask]'") from None
         _check_reachable(self.address)
-        try:
-            client = Client(self.address, timeout=self.connect_timeout, set_as_default=False)
-        except (OSError, TimeoutError, ValueError) as exc:
-            raise UsageError(f"cannot reach the Dask scheduler at {self.address} ({exc})") from None
+        client = self._connect()
         with client:
             started = time.monotonic()
             futures = {client.submit(run_item, payload, pure=False): name for name, payload in tasks}

@@ -8,7 +8,8 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
-from ..base.errors import AuditorError, UsageError
+from ..base.errors import AuditorError, InputError, UsageError, failure
+from ..base.textio import read_text
 from ..diagnosis.verdict import Policy
 from ..inputs.basis import BasisSpec
 from ..inputs.geometry import Molecule, load_molecules
@@ -56,6 +57,32 @@ def _has_magic(s: str) -> bool:
     return any(c in s for c in "*?[")
 
 
+def _list_entries(listing: Path) -> list[str]:
+    """The arguments of an @LIST file, one a line ('#' starts a comment line), made
+    relative to the list's own folder (nested @lists too, at every depth)."""
+    lines = read_text(listing, "list of paths").splitlines()
+    entries = [ln.strip() for ln in lines if ln.strip() and not ln.lstrip().startswith("#")]
+    base = listing.parent
+    out = []
+    for e in entries:
+        at, name = ("@", e[1:]) if e.startswith("@") else ("", e)
+        out.append(e if os.path.isabs(name) else at + str(base / name))
+    return out
+
+
+def _expand_folder(arg: str, patterns: Sequence[str]) -> tuple[list[Path], list[tuple[str, str]]]:
+    p = Path(arg)
+    found = {
+        q
+        for pat in patterns
+        for q in p.rglob(pat)
+        if q.is_file() and not any(part.startswith(".") for part in q.relative_to(p).parts)
+    }
+    if not found:
+        return [], [(arg, f"{arg}: folder holds no geometry file ({', '.join(patterns)})")]
+    return sorted(found), []
+
+
 def expand_inputs(
     args: list[str], patterns: Sequence[str] = GEOMETRY_PATTERNS, _depth: int = 0
 ) -> tuple[list[Path], list[tuple[str, str]]]:
@@ -66,45 +93,30 @@ def expand_inputs(
     missing: list[tuple[str, str]] = []
     for arg in args:
         arg = str(arg)
-        if arg.startswith("@") and not os.path.exists(arg):
-            listing = Path(arg[1:])
-            try:
-                lines = listing.read_text(encoding="utf-8").splitlines()
-            except (OSError, UnicodeDecodeError):
-                missing.append((arg[1:], f"{arg[1:]}: cannot read the list of paths"))
-                continue
+        f: list[Path] = []
+        m: list[tuple[str, str]] = []
+        if arg.startswith("@") and not os.path.lexists(arg):
             if _depth > 8:
-                raise UsageError(f"{listing}: lists of paths nest too deeply")
-            entries = [ln.strip() for ln in lines if ln.strip() and not ln.lstrip().startswith("#")]
-            base = listing.parent
-            entries = [e if os.path.isabs(e) or e.startswith("@") else str(base / e) for e in entries]
-            f, m = expand_inputs(entries, patterns, _depth + 1)
-            files += f
-            missing += m
-            continue
-        p = Path(arg)
-        if p.is_dir():
-            found = {
-                q
-                for pat in patterns
-                for q in p.rglob(pat)
-                if q.is_file() and not any(part.startswith(".") for part in q.relative_to(p).parts)
-            }
-            if not found:
-                missing.append((arg, f"{arg}: folder holds no geometry file ({', '.join(patterns)})"))
-            files += sorted(found)
-        elif p.exists():
-            files.append(p)
+                raise UsageError(f"{arg[1:]}: lists of paths nest too deeply")
+            try:
+                f, m = expand_inputs(_list_entries(Path(arg[1:])), patterns, _depth + 1)
+            except InputError as exc:
+                m = [(arg[1:], exc.message)]
+        elif os.path.isdir(arg):
+            f, m = _expand_folder(arg, patterns)
+        elif os.path.lexists(arg):
+            f = [Path(arg)]
         elif _has_magic(arg):
             hits = sorted(glob.glob(arg, recursive=True))
-            if not hits:
-                missing.append((arg, f"{arg}: pattern matches no file"))
+            m = [] if hits else [(arg, f"{arg}: pattern matches no file")]
             for h in hits:
-                f, m = expand_inputs([h], patterns, _depth + 1) if os.path.isdir(h) else ([Path(h)], [])
-                files += f
-                missing += m
+                fh, mh = _expand_folder(h, patterns) if os.path.isdir(h) else ([Path(h)], [])
+                f += fh
+                m += mh
         else:
-            missing.append((arg, f"{arg}: no such file or folder"))
+            m = [(arg, f"{arg}: no such file or folder")]
+        files += f
+        missing += m
     return files, missing
 
 
@@ -125,8 +137,9 @@ def collect_items(args: list[str], options: GateOptions, patterns: Sequence[str]
                 frames: list = load_cells(f, unit=options.unit, ghost=options.ghost)
             else:
                 frames = load_molecules(f, unit=options.unit, ghost=options.ghost)
-        except AuditorError as exc:
-            items.append(Item(shown, None, error=exc.message))
+        except Exception as exc:  # one unreadable file is that item's error, never the run's end
+            message, _ = failure(exc)
+            items.append(Item(shown, None, error=message if isinstance(exc, AuditorError) else f"{shown}: {message}"))
             continue
         for mol in frames:
             items.append(Item(shown, mol.frame + 1, mol.n_frames, mol))

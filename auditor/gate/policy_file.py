@@ -21,11 +21,13 @@ Policy file layout (every key optional)::
 from __future__ import annotations
 
 import fnmatch
+import json
 import sys
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from ..base.errors import UsageError
+from ..base.errors import InputError, UsageError
+from ..base.textio import read_text
 from ..diagnosis.verdict import Policy
 
 if sys.version_info >= (3, 11):
@@ -81,6 +83,11 @@ def _first(*values):
     return next(v for v in values if v is not None)
 
 
+def _toml_key(name: str) -> str:
+    """``name`` as a quoted TOML key, as the file would write it: [basis."aug-cc-pvtz"]."""
+    return json.dumps(name, ensure_ascii=False)
+
+
 def _basis_name(name: str) -> str:
     return "".join(name.lower().split())
 
@@ -101,10 +108,10 @@ def load_gate_policy(path: str | Path) -> GatePolicy:
     """Read and check a policy file; any problem is a one-line UsageError naming the file."""
     path = Path(path)
     try:
-        data = tomllib.loads(path.read_text(encoding="utf-8"))
-    except OSError as exc:
-        raise UsageError(f"{path}: cannot read policy file ({exc.strerror})") from None
-    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
+        data = tomllib.loads(read_text(path, "policy file"))
+    except InputError as exc:
+        raise UsageError(exc.message) from None
+    except tomllib.TOMLDecodeError as exc:
         raise UsageError(f"{path}: not valid TOML ({exc})") from None
     _check_keys(str(path), data, {"caution", "fail", "drop_decades", "basis", "allow", *CONTACT_KEYS})
     levels = {k: _level(f"{path}: {k}", data[k]) for k in ("caution", "fail") if k in data}
@@ -114,7 +121,7 @@ def load_gate_policy(path: str | Path) -> GatePolicy:
     if not isinstance(basis_table, dict):
         raise UsageError(f"{path}: [basis] must be a table of basis names")
     for name, table in basis_table.items():
-        where = f"{path}: [basis.{name!r}]"
+        where = f"{path}: [basis.{_toml_key(name)}]"
         if not isinstance(table, dict):
             raise UsageError(f"{where} must be a table with caution and/or fail")
         _check_keys(where, table, {"caution", "fail"})
@@ -144,6 +151,6 @@ def load_gate_policy(path: str | Path) -> GatePolicy:
         try:
             policy.levels_for(name)
         except UsageError as exc:
-            where = f"[basis.{name!r}]" if name else "levels"
+            where = f"[basis.{_toml_key(name)}]" if name else "levels"
             raise UsageError(f"{path}: {where}: {exc.message}") from None
     return policy

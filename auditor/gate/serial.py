@@ -96,7 +96,8 @@ def _audit_each(paths: list[Path], s: _Settings) -> RunOutcome:
                     s.on_result(result)
         except Exception as exc:  # one broken file must not stop the others
             message, code = failure(exc)
-            outcome.errors.append((str(path), message if isinstance(exc, AuditorError) else f"{path}: {message}", code))
+            named = str(path) in message and isinstance(exc, AuditorError)
+            outcome.errors.append((str(path), message if named else f"{path}: {message}", code))
     return outcome
 
 

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import difflib
 import math
+import os
 import re
 from dataclasses import dataclass, field
 from functools import cache, lru_cache
@@ -123,6 +124,8 @@ def _suggest(name: str) -> str:
 def check_basis_name(name: str, where: str = "basis") -> str:
     """``name`` stripped, or UsageError for an empty name or one with control characters
     (pyscf would parse a name with a line break as basis text)."""
+    if not isinstance(name, (str, os.PathLike)):
+        raise UsageError(f"{where}: a basis is a name or a file path, got {name!r:.40}")
     text = str(name).strip()
     if not text:
         raise UsageError(f"{where}: empty basis name")
@@ -155,12 +158,26 @@ MAX_BASIS_FILE_BYTES = 16 << 20
 _KEYWORDS = ("BASIS", "END", "ECP", "SO")
 
 
-@lru_cache(maxsize=64)
+def _stamp(path: str) -> tuple[str, int, int]:
+    """(real path, size, modification time): what the caches of basis files are keyed
+    on, so that another working folder or an edited file is never served stale."""
+    try:
+        st = os.stat(path)
+    except (OSError, ValueError):
+        return (path, -1, -1)
+    return (os.path.realpath(path), st.st_size, st.st_mtime_ns)
+
+
 def read_basis_file(path: str) -> dict[str, tuple[str, ...]]:
     """The lines of each element's shells in an NWChem-format basis file, checked line by
     line: every data line must be plain ASCII numbers (InputError naming the line
     otherwise). ECP sections are skipped: they do not enter the overlap."""
-    text = read_text(path, "basis file", MAX_BASIS_FILE_BYTES)
+    return _read_basis_file(path, _stamp(path))
+
+
+@lru_cache(maxsize=64)
+def _read_basis_file(path: str, stamp: tuple[str, int, int]) -> dict[str, tuple[str, ...]]:
+    text = read_text(path, "basis file", MAX_BASIS_FILE_BYTES, hint="")
     blocks: dict[str, list[str]] = {}
     current: list[str] | None = None
     in_ecp = False
@@ -214,7 +231,6 @@ def _file_shells(path: str, element: str) -> list:
         ) from None
 
 
-@cache
 def load_shells(name: str, element: str, source: str = "pyscf") -> tuple:
     """Shells of ``element`` in basis ``name`` (pyscf's internal list format).
 
@@ -222,17 +238,23 @@ def load_shells(name: str, element: str, source: str = "pyscf") -> tuple:
     first); ``source`` picks the copy of a named basis ("pyscf" or "bse"). Raises
     InputError naming what is missing, with close names for typos.
     """
-    eval_off()
     name = check_basis_name(name)
     path = Path(name).expanduser()
-    if path.exists():
+    return _load_shells(name, element, source, _stamp(str(path)) if os.path.lexists(path) else None)
+
+
+@cache
+def _load_shells(name: str, element: str, source: str, stamp: tuple[str, int, int] | None) -> tuple:
+    eval_off()
+    path = Path(name).expanduser()
+    if stamp is not None:
         shells = _file_shells(str(path), element)
     elif source == "bse":
         shells = _exchange_shells(name, element)
     else:
         shells = _pyscf_shells(name, element)
     if not shells:
-        where = f"basis file {name}" if path.exists() else f"basis {name!r}"
+        where = f"basis file {name}" if stamp is not None else f"basis {name!r}"
         raise InputError(f"{where} has no functions for element {element}")
     bad = _bad_exponent(shells)
     if bad is not None:
@@ -294,7 +316,6 @@ def shells_digest(shells: tuple | list) -> str:
     return hashlib.sha256(text.encode("ascii")).hexdigest()
 
 
-@cache
 def basis_origin(name: str, element: str, source: str = "pyscf") -> dict:
     """Where the shells of ``element`` in ``name`` came from: pyscf's library (and its
     version), basis_set_exchange (and its version), or a file (and its SHA-256); with the

@@ -9,7 +9,9 @@ periodic directions are not the leading ones; ``axis_order`` records how.
 from __future__ import annotations
 
 import math
+import os
 import re
+import stat
 from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import TYPE_CHECKING
@@ -115,9 +117,11 @@ def has_cell(path: str | Path) -> bool:
         return False
     if fmt != "extxyz":
         return True
-    try:
+    try:  # only a regular file is opened (a FIFO or device would block or never end)
+        if not stat.S_ISREG(os.stat(path).st_mode):
+            return False
         with open(path, encoding="utf-8", errors="replace") as fh:
-            fh.readline()
+            fh.readline(1 << 16)
             comment = fh.readline(1 << 16)
     except OSError:
         return False

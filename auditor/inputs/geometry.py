@@ -2,8 +2,12 @@
 
 from __future__ import annotations
 
+import io
+import json
 import math
+import os
 import re
+from collections.abc import Sequence
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import TYPE_CHECKING
@@ -12,6 +16,7 @@ import numpy as np
 
 from ..base.elements import BOHR_IN_ANGSTROM, ELEMENTS, element_symbol
 from ..base.errors import InputError, UsageError
+from ..base.textio import plain_float, read_text
 
 if TYPE_CHECKING:
     from ase import Atoms
@@ -45,52 +50,191 @@ class Molecule:
         nelec = sum(ELEMENTS.index(s) + 1 for s, g in zip(self.symbols, self.ghost) if not g) - int(self.charge)
         return nelec % 2
 
-    def with_ghosts(self, numbers: list[int], option: str = "--ghost") -> Molecule:
-        """Mark 1-based atom ``numbers`` as ghost atoms (``option`` names the setting in messages)."""
+    def with_ghosts(self, numbers: str | Sequence[int], option: str = "--ghost") -> Molecule:
+        """Mark 1-based atom ``numbers`` ('4-6,9' or a list) as ghost atoms (``option`` names
+        the setting in messages)."""
         ghost = list(self.ghost)
-        for k in numbers:
-            if not 1 <= k <= self.n_atoms:
-                raise UsageError(f"{option} names atom {k}, but {self.source} has {self.n_atoms} atoms")
+        for k in check_atom_numbers(numbers, self.n_atoms, self.source, option):
             ghost[k - 1] = True
         if all(ghost):
             raise UsageError(f"{option} leaves {self.source} with no real atom: every atom would be a ghost atom")
         return replace(self, ghost=tuple(ghost))
 
 
-def parse_atom_numbers(spec: str | None) -> list[int]:
-    """Parse '4-6,9' into [4, 5, 6, 9] (1-based, sorted, unique)."""
+#: Largest atom number that --ghost may name when the atom count is not known yet (the
+#: command line checks the syntax before any file is read). No geometry we can audit has
+#: more atoms: S alone would need terabytes.
+MAX_ATOM_NUMBER = 10**7
+
+_RANGE = re.compile(r"([0-9]{1,18})(?:\s*-\s*([0-9]{1,18}))?")
+
+
+def parse_atom_ranges(spec: str | None) -> list[tuple[int, int]]:
+    """Parse '4-6,9' into [(4, 6), (9, 9)] (1-based, inclusive) without expanding the
+    ranges: '1-999999999999' costs nothing until it is checked against a file."""
     if not spec:
         return []
-    out: set[int] = set()
-    for part in spec.split(","):
+    ranges: list[tuple[int, int]] = []
+    for part in str(spec).split(","):
         part = part.strip()
-        m = re.fullmatch(r"(\d+)(?:\s*-\s*(\d+))?", part)
+        m = _RANGE.fullmatch(part)  # ASCII digits only: '٣' is not 3
         if not m:
-            raise UsageError(f"cannot read atom numbers {spec!r}: expected e.g. '4-6,9'")
+            raise UsageError(f"--ghost: cannot read atom numbers {spec!r}: expected e.g. '4-6,9'")
         lo = int(m.group(1))
         hi = int(m.group(2) or lo)
         if lo < 1 or hi < lo:
-            raise UsageError(f"bad atom range {part!r} in {spec!r} (atoms are numbered from 1)")
-        out.update(range(lo, hi + 1))
-    return sorted(out)
+            raise UsageError(f"--ghost: bad atom range {part!r} in {spec!r} (atoms are numbered from 1)")
+        ranges.append((lo, hi))
+    return ranges
 
 
-_KEYVAL = re.compile(r"\b(charge|multiplicity|mult|spin)\s*=\s*(-?\d+)", re.IGNORECASE)
+def check_atom_numbers(
+    ghost: str | Sequence[int] | None, n_atoms: int, source: str, option: str = "--ghost"
+) -> list[int]:
+    """The 1-based atom numbers of ``ghost`` ('4-6,9' or a list), checked against the atom
+    count of ``source`` before they are expanded (UsageError naming the file and ``option``)."""
+    if isinstance(ghost, str):
+        ranges = parse_atom_ranges(ghost)
+    else:
+        ranges = []
+        for k in ghost or []:
+            if isinstance(k, bool) or not isinstance(k, (int, np.integer)):
+                raise UsageError(f"ghost atoms must be 1-based atom numbers, got {k!r}")
+            ranges.append((int(k), int(k)))
+    top = max((hi for _, hi in ranges), default=0)
+    if top > n_atoms:
+        raise UsageError(f"{option} names atom {top}, but {source} has {n_atoms} atoms")
+    bad = next((lo for lo, _ in ranges if lo < 1), None)
+    if bad is not None:
+        raise UsageError(f"{option} names atom {bad}; atoms are numbered from 1")
+    return sorted({k for lo, hi in ranges for k in range(lo, hi + 1)})
 
 
-def _comment_charge(comment: str) -> tuple[int, int | None]:
+def parse_atom_numbers(spec: str | None, n_atoms: int = MAX_ATOM_NUMBER, source: str = "a geometry") -> list[int]:
+    """Parse '4-6,9' into [4, 5, 6, 9] (1-based, sorted, unique); numbers above ``n_atoms``
+    are a UsageError raised before anything is expanded."""
+    return check_atom_numbers(spec, n_atoms, source)
+
+
+#: Largest |coordinate| accepted, in ångström. Our own bound, not a law: 1e5 Å (10 µm) is
+#: far beyond any molecule or cluster one would put in a Gaussian basis (the largest
+#: crystal unit cells are ~1e3 Å), and below it double precision still resolves 1e-11 Å
+#: and the squared distances of the integrals (in bohr) stay far from overflow. A larger
+#: number is a typo, a unit mix-up or a hostile file.
+MAX_COORDINATE = 1e5
+
+
+def check_coordinates(coords: np.ndarray, where: str) -> None:
+    """InputError unless every coordinate (ångström) is finite and within MAX_COORDINATE;
+    names the first bad atom (``where``: the file or object)."""
+    pos = np.asarray(coords, dtype=float)
+    if pos.size == 0:
+        return
+    ok = np.isfinite(pos).all(axis=1) & (np.abs(np.nan_to_num(pos, nan=0.0, posinf=np.inf)) <= MAX_COORDINATE).all(
+        axis=1
+    )
+    if not ok.all():
+        i = int(np.flatnonzero(~ok)[0])
+        raise InputError(f"{where}: atom {i + 1}: {_coordinate_problem(pos[i])}")
+
+
+def _coordinate_problem(xyz: np.ndarray | list[float]) -> str:
+    for v in xyz:
+        if not math.isfinite(v):
+            return f"coordinate {v} is not finite"
+        if abs(v) > MAX_COORDINATE:
+            return f"coordinate {v:g} Å is out of range (|x| ≤ {MAX_COORDINATE:g} Å)"
+    return "bad coordinate"
+
+
+_KEYVAL = re.compile(r"(?<![\w.-])(charge|multiplicity|mult)\s*=\s*(\"[^\"]*\"|'[^']*'|[^\s,;]*)", re.IGNORECASE)
+
+
+def header_integer(key: str, value: object, where: str) -> int:
+    """A charge or multiplicity from a header as an int; InputError naming ``where`` when
+    it is not an integer, or a multiplicity below 1."""
+    number: int | None = None
+    if isinstance(value, (bool, np.bool_)):
+        number = None
+    elif isinstance(value, (int, np.integer)):
+        number = int(value)
+    elif isinstance(value, (float, np.floating)) and math.isfinite(value) and float(value).is_integer():
+        number = int(value)
+    elif isinstance(value, str):
+        text = value.strip().strip("\"'")
+        if re.fullmatch(r"[+-]?[0-9]{1,6}", text):
+            number = int(text)
+    if number is None:
+        raise InputError(f"{where}: {key} must be an integer, found {str(value)[:40]!r}")
+    if key == "multiplicity" and number < 1:
+        raise InputError(f"{where}: multiplicity must be 1 or more (2S+1), found {number}")
+    if abs(number) > 10**4:
+        raise InputError(f"{where}: {key} {number} is out of range")
+    return number
+
+
+def check_molecule(mol: Molecule) -> None:
+    """InputError (UsageError for a wrong ghost list) unless ``mol``, however it was made,
+    has known elements, one finite x, y, z within MAX_COORDINATE per atom and integer
+    charge and multiplicity: what the integrals need before pyscf sees the molecule."""
+    where = mol.source
+    n = len(mol.symbols)
+    if n == 0:
+        raise InputError(f"{where}: no atoms")
+    for i, s in enumerate(mol.symbols):
+        if s not in ELEMENTS:
+            raise InputError(f"{where}: atom {i + 1}: unknown element symbol {str(s)[:20]!r}")
+    try:
+        coords = np.asarray(mol.coords, dtype=float)
+    except (TypeError, ValueError):
+        raise InputError(f"{where}: coordinates are not numbers") from None
+    if coords.shape != (n, 3):
+        raise InputError(f"{where}: expected {n} rows of x, y, z, got coordinates of shape {coords.shape}")
+    if len(mol.ghost) != n:
+        raise UsageError(f"{where}: {len(mol.ghost)} ghost flags for {n} atoms")
+    check_coordinates(coords, where)
+    header_integer("charge", mol.charge, where)
+    if mol.multiplicity is not None:
+        header_integer("multiplicity", mol.multiplicity, where)
+
+
+def _comment_charge(comment: str, where: str) -> tuple[int, int | None]:
     charge, mult = 0, None
     for key, value in _KEYVAL.findall(comment):
         key = key.lower()
         if key == "charge":
-            charge = int(value)
-        elif key in ("multiplicity", "mult"):
-            mult = int(value)
+            charge = header_integer("charge", value, where)
+        else:
+            mult = header_integer("multiplicity", value, where)
     return charge, mult
 
 
 def _is_extended(comment: str) -> bool:
     return "properties=" in comment.lower() or "lattice=" in comment.lower()
+
+
+def _atom_count(line: str, where: str) -> int:
+    head = line.split()
+    if len(head) != 1 or not re.fullmatch(r"[0-9]{1,9}", head[0]) or int(head[0]) < 1:
+        raise InputError(f"{where}: expected an atom count, found {line.strip()[:40]!r}")
+    return int(head[0])
+
+
+def _atom_line(line: str, where: str, scale: float) -> tuple[str, list[float]]:
+    parts = line.split()
+    if len(parts) < 4:
+        raise InputError(f"{where}: expected 'element x y z', found {line.strip()[:60]!r}")
+    sym = element_symbol(parts[0], where)
+    try:
+        xyz = [plain_float(v) * scale for v in parts[1:4]]
+    except ValueError:
+        shown = " ".join(parts[1:4])[:60]
+        if any(v.strip("+-").lower() in ("nan", "inf", "infinity") for v in parts[1:4]):
+            raise InputError(f"{where}: coordinate is not finite (NaN or infinity): {shown!r}") from None
+        raise InputError(f"{where}: coordinates are not numbers: {shown!r}") from None
+    if not all(math.isfinite(v) and abs(v) <= MAX_COORDINATE for v in xyz):
+        raise InputError(f"{where}: {_coordinate_problem(xyz)}")
+    return sym, xyz
 
 
 def _read_plain_xyz(path: Path, text: str, scale: float) -> list[Molecule]:
@@ -102,39 +246,19 @@ def _read_plain_xyz(path: Path, text: str, scale: float) -> list[Molecule]:
         if not lines[i].strip():
             i += 1
             continue
-        head = lines[i].split()
-        try:
-            n = int(head[0])
-            if n < 1 or len(head) > 1:
-                raise ValueError
-        except ValueError:
-            raise InputError(f"{name}:{i + 1}: expected an atom count, found {lines[i].strip()[:40]!r}") from None
+        n = _atom_count(lines[i], f"{name}:{i + 1}")
         if i + 2 + n > len(lines):
             raise InputError(
                 f"{name}:{i + 1}: the header announces {n} atoms but only "
                 f"{max(0, len(lines) - i - 2)} atom lines follow"
             )
         comment = lines[i + 1]
-        symbols, coords = [], []
-        for j in range(i + 2, i + 2 + n):
-            where = f"{name}:{j + 1}"
-            parts = lines[j].split()
-            if len(parts) < 4:
-                raise InputError(f"{where}: expected 'element x y z', found {lines[j].strip()[:60]!r}")
-            sym = element_symbol(parts[0], where)
-            try:
-                xyz = [float(v) for v in parts[1:4]]
-            except ValueError:
-                raise InputError(f"{where}: coordinates are not numbers: {' '.join(parts[1:4])!r}") from None
-            if not all(math.isfinite(v) for v in xyz):
-                raise InputError(f"{where}: coordinate is not finite (NaN or infinity)")
-            symbols.append(sym)
-            coords.append(xyz)
-        charge, mult = _comment_charge(comment)
+        atoms = [_atom_line(lines[j], f"{name}:{j + 1}", scale) for j in range(i + 2, i + 2 + n)]
+        charge, mult = _comment_charge(comment, f"{name}:{i + 2}")
         frames.append(
             Molecule(
-                symbols=tuple(symbols),
-                coords=np.asarray(coords, dtype=float) * scale,
+                symbols=tuple(s for s, _ in atoms),
+                coords=np.asarray([xyz for _, xyz in atoms], dtype=float),
                 ghost=(False,) * n,
                 charge=charge,
                 multiplicity=mult,
@@ -147,85 +271,152 @@ def _read_plain_xyz(path: Path, text: str, scale: float) -> list[Molecule]:
     return frames
 
 
-def _read_with_ase(path: Path, scale: float) -> list[Molecule]:
-    """Extended XYZ and other formats that ASE reads."""
-    try:
-        from ase.io import read  # ASE is slow to import: only for the formats it reads
+#: Formats ASE reads for us, by file name suffix. ASE is never asked to guess a format
+#: from a file's content: a suffix not listed here is refused.
+ASE_FORMATS = {".extxyz": "extxyz", ".xyz": "extxyz", ".json": "json", ".pdb": "proteindatabank", ".cif": "cif"}
+#: Suffixes read as plain XYZ (unless the comment line is extended XYZ).
+PLAIN_SUFFIXES = (".xyz", ".txt", "")
 
-        images = read(str(path), index=":")
+
+def _check_extxyz_counts(path: Path, text: str) -> None:
+    """Every frame's atom count of an extended XYZ text, checked before ASE reads it: ASE's
+    reader takes any integer Python reads ('1_0', '999999999999') and skips that many
+    lines, which for a huge number never ends."""
+    lines = text.splitlines()
+    i = 0
+    while i < len(lines) and lines[i].strip():
+        n = _atom_count(lines[i], f"{path}:{i + 1}")
+        if i + 2 + n > len(lines):
+            have = max(0, len(lines) - i - 2)
+            raise InputError(f"{path}:{i + 1}: the header announces {n} atoms but only {have} atom lines follow")
+        i += 2 + n
+        while i < len(lines) and lines[i].lstrip().upper().startswith("VEC"):
+            i += 1  # lattice vectors after the atoms
+
+
+def _ase_images(path: Path, text: str, fmt: str) -> list[Atoms]:
+    from ase.io import read  # ASE is slow to import: only for the formats it reads
+
+    if fmt == "extxyz":
+        _check_extxyz_counts(path, text)
+
+    try:
+        images = read(io.StringIO(text), index=":", format=fmt)
     except Exception as exc:  # ASE raises many types; the message is what matters
         msg = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
-        raise InputError(f"{path}: cannot read geometry ({msg})") from None
-    if not isinstance(images, list):
-        images = [images]
+        raise InputError(f"{path}: cannot read geometry ({msg[:120]})") from None
+    return images if isinstance(images, list) else [images]
+
+
+def _json_pairs(text: str) -> list[dict]:
+    """The key-value pairs of each row of an ASE JSON database (ASE's reader drops them)."""
+    try:
+        doc = json.loads(text)
+        return [dict(doc[str(i)].get("key_value_pairs") or {}) for i in doc.get("ids", [])]
+    except (ValueError, TypeError, KeyError, AttributeError):
+        return []
+
+
+def _read_with_ase(path: Path, text: str, fmt: str, scale: float) -> list[Molecule]:
+    """Extended XYZ and the other formats of ASE_FORMATS, with the same checks as plain XYZ."""
+    images = _ase_images(path, text, fmt)
+    pairs = _json_pairs(text) if fmt == "json" else []
     frames = []
+    line = 2  # the comment line of the first extended XYZ frame
     for k, atoms in enumerate(images):
-        mol = molecule_from_atoms(atoms, source=str(path), frame=k)
-        frames.append(replace(mol, coords=mol.coords * scale))
+        where = f"{path}:{line}" if fmt == "extxyz" else (f"{path}: frame {k + 1}" if len(images) > 1 else str(path))
+        info = {**(pairs[k] if k < len(pairs) else {}), **(getattr(atoms, "info", None) or {})}
+        mol = molecule_from_atoms(atoms, source=str(path), frame=k, info=info, where=where, scale=scale)
+        frames.append(mol)
+        line += len(atoms) + 2
     return frames
 
 
-def molecule_from_atoms(atoms: Atoms, source: str = "<ase.Atoms>", frame: int = 0) -> Molecule:
-    """Molecule from an ASE Atoms object (positions are ångström in ASE)."""
-    pos = np.asarray(atoms.get_positions(), dtype=float)
-    if not np.all(np.isfinite(pos)):
-        bad = int(np.where(~np.isfinite(pos).all(axis=1))[0][0]) + 1
-        raise InputError(f"{source}: atom {bad} has a coordinate that is not finite")
-    symbols = tuple(element_symbol(s, f"{source}: atom {i + 1}") for i, s in enumerate(atoms.get_chemical_symbols()))
-    info = getattr(atoms, "info", {}) or {}
-    charge = int(info.get("charge", 0))
-    mult = info.get("multiplicity", info.get("mult"))
+def molecule_from_atoms(
+    atoms: Atoms,
+    source: str = "<ase.Atoms>",
+    frame: int = 0,
+    info: dict | None = None,
+    where: str | None = None,
+    scale: float = 1.0,
+) -> Molecule:
+    """Molecule from an ASE Atoms object (positions are ångström in ASE, times ``scale``):
+    finite positions within MAX_COORDINATE, integer charge and multiplicity."""
+    where = where or source
+    pos = np.asarray(atoms.get_positions(), dtype=float) * scale
+    check_coordinates(pos, where)
+    symbols = tuple(element_symbol(s, f"{where}: atom {i + 1}") for i, s in enumerate(atoms.get_chemical_symbols()))
+    if not symbols:
+        raise InputError(f"{where}: no atoms")
+    info = info if info is not None else (getattr(atoms, "info", None) or {})
+    charge = header_integer("charge", info["charge"], where) if "charge" in info else 0
+    key = next((k for k in ("multiplicity", "mult") if k in info), None)
+    mult = header_integer("multiplicity", info[key], where) if key else None
     return Molecule(
         symbols=symbols,
         coords=pos,
         ghost=(False,) * len(symbols),
         charge=charge,
-        multiplicity=int(mult) if mult is not None else None,
+        multiplicity=mult,
         source=source,
         frame=frame,
     )
 
 
-def read_geometry(path: str | Path, unit: str = "angstrom") -> list[Molecule]:
-    """Read every frame of an XYZ, multi-frame XYZ or extended XYZ file.
-
-    ``unit`` is the unit of the numbers in the file ("angstrom" or "bohr"); the
-    returned coordinates are always in ångström.
-    """
-    unit = unit.lower()
+def _scale(unit: str) -> float:
+    unit = str(unit).lower()
     if unit in ("angstrom", "ang", "a", "å"):
-        scale = 1.0
-    elif unit in ("bohr", "au", "a.u."):
-        scale = BOHR_IN_ANGSTROM
-    else:
-        raise UsageError(f"unknown unit {unit!r}: use 'angstrom' or 'bohr'")
-    path = Path(path)
-    if not path.exists():
-        raise InputError(f"{path}: no such file")
-    if path.is_dir():
-        raise InputError(f"{path}: is a directory, expected a geometry file")
-    try:
-        text = path.read_text(encoding="utf-8", errors="strict")
-    except UnicodeDecodeError:
-        raise InputError(f"{path}: not a text file") from None
-    except OSError as exc:
-        raise InputError(f"{path}: cannot read ({exc.strerror})") from None
-    if not text.strip():
-        raise InputError(f"{path}: file is empty")
+        return 1.0
+    if unit in ("bohr", "au", "a.u."):
+        return BOHR_IN_ANGSTROM
+    raise UsageError(f"unknown unit {unit!r}: use 'angstrom' or 'bohr'")
+
+
+def _format_of(path: Path, text: str) -> str:
+    """'xyz' (our own reader) or an ASE format name, from the suffix (never the content)."""
+    suffix = path.suffix.lower()
     lines = text.splitlines()
     second = lines[1] if len(lines) > 1 else ""
-    if path.suffix.lower() in (".xyz", ".txt", "") and not _is_extended(second):
-        frames = _read_plain_xyz(path, text, scale)
-    else:
-        frames = _read_with_ase(path, scale)
+    if suffix in PLAIN_SUFFIXES and not _is_extended(second):
+        return "xyz"
+    if suffix in ASE_FORMATS:
+        return ASE_FORMATS[suffix]
+    known = ", ".join([".xyz", ".txt", *sorted(set(ASE_FORMATS) - {".xyz"})])
+    raise InputError(f"{path}: unsupported geometry format {suffix!r} (known: {known}, or no suffix for XYZ)")
+
+
+def read_geometry(path: str | Path, unit: str = "angstrom", max_bytes: int | None = None) -> list[Molecule]:
+    """Read every frame of an XYZ, multi-frame XYZ or extended XYZ file (or an ASE JSON,
+    PDB or CIF file, chosen by suffix).
+
+    ``unit`` is the unit of the numbers in the file ("angstrom" or "bohr"); the
+    returned coordinates are always in ångström. Only regular files of at most
+    ``max_bytes`` (default: ``auditor.base.textio.input_limit()``) are read.
+    """
+    scale = _scale(unit)
+    if not isinstance(path, (str, os.PathLike)):
+        raise UsageError(f"a geometry is a file path, an ASE Atoms, a pyscf Mole or a Molecule, got {path!r:.60}")
+    path = Path(path)
+    text = read_text(path, "geometry file", max_bytes)
+    if not text.strip():
+        raise InputError(f"{path}: file is empty")
+    fmt = _format_of(path, text)
+    frames = _read_plain_xyz(path, text, scale) if fmt == "xyz" else _read_with_ase(path, text, fmt, scale)
     if not frames:
         raise InputError(f"{path}: no atoms found")
     n = len(frames)
     return [replace(f, n_frames=n) for f in frames]
 
 
-def load_molecules(path: str | Path, unit: str = "angstrom", ghost: str | list[int] | None = None) -> list[Molecule]:
-    """Every frame of a geometry file, with ghost atoms marked (1-based numbers or '4-6,9')."""
-    frames = read_geometry(path, unit=unit)
-    numbers = parse_atom_numbers(ghost) if isinstance(ghost, str) else list(ghost or [])
-    return [f.with_ghosts(numbers) if numbers else f for f in frames]
+def load_molecules(
+    path: str | Path,
+    unit: str = "angstrom",
+    ghost: str | Sequence[int] | None = None,
+    max_bytes: int | None = None,
+) -> list[Molecule]:
+    """Every frame of a geometry file, with ghost atoms marked (1-based numbers or '4-6,9',
+    checked against each frame's atom count before they are expanded)."""
+    frames = read_geometry(path, unit=unit, max_bytes=max_bytes)
+    if not ghost:
+        return frames
+    return [f.with_ghosts(check_atom_numbers(ghost, f.n_atoms, str(path))) for f in frames]

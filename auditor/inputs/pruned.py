@@ -7,6 +7,7 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 from ..base.errors import InputError
+from ..base.textio import read_text
 from .basis import eval_off
 
 if TYPE_CHECKING:
@@ -20,7 +21,9 @@ def load_pruned_doc(doc: dict, **overrides: Any) -> gto.Mole:
     from pyscf import gto  # pyscf is slow to import: only when a pruned basis is loaded
 
     eval_off()  # the document is user data: pyscf must not evaluate text in it
-
+    where = str(overrides.pop("where", "pruned-basis document"))
+    if not isinstance(doc, dict):
+        raise InputError(f"{where}: not a pruned-basis document (a JSON object is expected)")
     try:
         kw = {
             "atom": doc["atoms"],
@@ -32,15 +35,19 @@ def load_pruned_doc(doc: dict, **overrides: Any) -> gto.Mole:
             "verbose": 0,
         }
     except (KeyError, TypeError, ValueError) as exc:
-        raise InputError(f"not a pruned-basis document ({exc.__class__.__name__}: {exc})") from None
+        raise InputError(f"{where}: not a pruned-basis document ({exc.__class__.__name__}: {exc})") from None
     kw.update(overrides)
-    return gto.M(**kw)
+    try:
+        return gto.M(**kw)
+    except Exception as exc:  # pyscf raises many types on bad atoms or basis text; the message is what matters
+        text = str(exc).strip().splitlines()[0][:120] if str(exc).strip() else ""
+        raise InputError(f"{where}: pyscf cannot build this pruned basis ({type(exc).__name__}: {text})") from None
 
 
 def load_pruned(path: str | Path, **overrides: Any) -> gto.Mole:
     """A pyscf Mole from a pruned-basis JSON file (keyword arguments override Mole fields)."""
     try:
-        doc = json.loads(Path(path).read_text(encoding="utf-8"))
-    except (OSError, ValueError) as exc:
+        doc = json.loads(read_text(path, "pruned-basis file"))
+    except ValueError as exc:
         raise InputError(f"{path}: cannot read a pruned-basis file ({exc.__class__.__name__})") from None
-    return load_pruned_doc(doc, **overrides)
+    return load_pruned_doc(doc, where=str(path), **overrides)

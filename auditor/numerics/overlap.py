@@ -10,7 +10,7 @@ import numpy as np
 
 from ..base.elements import ELEMENTS
 from ..inputs.basis import BasisSpec, is_diffuse, load_shells, thaw
-from ..inputs.geometry import Molecule
+from ..inputs.geometry import Molecule, check_molecule
 
 if TYPE_CHECKING:
     from pyscf import gto
@@ -72,6 +72,7 @@ def build_mole(mol: Molecule, spec: BasisSpec) -> gto.Mole:
     reuse one built Mole (the basis set-up is most of the cost of a small molecule);
     only the coordinates are replaced, which gives the same integrals bit for bit.
     """
+    check_molecule(mol)  # a Molecule made by hand may hold anything
     labels = tuple(pyscf_labels(mol))
     template = _mole_template(labels, tuple(spec.for_element(s) for s in mol.symbols), spec.cartesian, spec.source)
     coords = np.asarray(mol.coords, dtype=float)

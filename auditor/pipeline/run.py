@@ -25,7 +25,7 @@ from ..diagnosis.findings import (
 )
 from ..diagnosis.verdict import BROKEN_KINDS, Decision, Policy, decide
 from ..inputs.basis import BasisSpec, basis_origin, check_basis_name, parse_overrides, shells_digest
-from ..inputs.geometry import Molecule, molecule_from_atoms, parse_atom_numbers, read_geometry
+from ..inputs.geometry import Molecule, molecule_from_atoms, read_geometry
 from ..numerics.eigen import compute_spectrum
 from ..numerics.memory import check_memory
 from ..numerics.overlap import FunctionTable, build_mole, function_table, mole_function_table, normalized_overlap
@@ -294,9 +294,8 @@ def audit(
         if not 1 <= frame <= len(frames):
             raise UsageError(f"{source}: frame {frame} requested, file has {len(frames)} frame(s)")
         mol = frames[frame - 1]
-    numbers = parse_atom_numbers(ghost) if isinstance(ghost, str) else list(ghost or [])
-    if numbers:
-        mol = mol.with_ghosts(numbers, option="ghost=")
+    if ghost:
+        mol = mol.with_ghosts(ghost, option="ghost=")  # checked against the atom count before any range is expanded
     spec = make_spec(basis, basis_for, cartesian)
     return audit_prepared(prepare(mol, spec, spectrum_method), policy, spectrum_method, remedies)
 

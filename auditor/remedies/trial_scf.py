@@ -12,6 +12,8 @@ from __future__ import annotations
 import time
 from typing import TYPE_CHECKING, Any
 
+from numpy.linalg import LinAlgError
+
 from ..base.errors import UsageError
 from ..inputs.pruned import load_pruned_doc
 from .canonical import orthogonalizer
@@ -136,7 +138,14 @@ def trial_scf(
     if pruned_doc is not None:
         runs.append(("shell-pruned basis", load_pruned_doc(pruned_doc), 0.0))
     for label, mol, tau in runs:
-        res = run_scf(mol, method, tau, time_limit)
+        try:
+            res = run_scf(mol, method, tau, time_limit)
+        except (LinAlgError, ValueError, ArithmeticError, RuntimeError) as exc:
+            # pyscf could not run this SCF (e.g. its initial guess needs an S that
+            # coincident atoms make singular): said in the section, the audit goes on
+            why = str(exc).strip().splitlines()[0] if str(exc).strip() else ""
+            out["skipped"] = f"trial SCF failed on the {label} ({type(exc).__name__}: {why})"
+            break
         out["runs"].append({"basis": label, **res})
     done = [r for r in out["runs"] if r["energy"] is not None]
     if len(done) == 2:

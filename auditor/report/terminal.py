@@ -8,7 +8,6 @@ from pathlib import Path
 from typing import TYPE_CHECKING
 
 from rich.console import Console, Group
-from rich.markup import escape
 from rich.table import Table
 from rich.text import Text
 
@@ -32,17 +31,17 @@ def summary_table(results: Sequence[AuditResult], errors: Iterable[tuple[str, st
     for r, label in zip(results, labels):
         t.add_row(*_summary_cells(r, label))
     for (_, msg), label in zip(errors, labels[len(results) :]):
-        t.add_row(escape(label), f"[{STYLE['unreadable']}]unreadable[/]", "", "", "", "", "", escape(msg))
+        t.add_row(Text(label), f"[{STYLE['unreadable']}]unreadable[/]", "", "", "", "", "", Text(msg))
     return t
 
 
-def _summary_cells(r: AuditResult, label: str) -> list[str]:
+def _summary_cells(r: AuditResult, label: str) -> list[str | Text]:
     name = label + (f" [{r.input.frame}]" if r.input.n_frames > 1 else "")
     top = r.causes.atoms[0] if r.causes.atoms and r.verdict != "pass" else None
     lc = r.spectrum.log10_condition
     rec = r.recommendation
     return [
-        escape(name),
+        Text(name),
         f"[{STYLE[r.verdict]}]{r.verdict}[/]",
         str(r.input.n_functions),
         f"{r.spectrum.smallest:.2e}",
@@ -124,18 +123,18 @@ def worst_table(rows: list[dict], n: int = 10) -> Group:
         lam, cond = r["smallest_eigenvalue"], r["condition_number"]
         ok = r["verdict"] != "error"
         t.add_row(
-            escape(item_label(r)),
+            Text(item_label(r)),
             f"[{STYLE[r['verdict']]}]{r['verdict']}[/]",
             f"[{STYLE.get(r.get('outcome') or '', '')}]{r.get('outcome', '')}[/]",
             f"{lam:.2e}" if ok else "",
             ("inf" if math.isinf(cond) else f"{math.log10(cond):.1f}") if ok else "",
-            r["top_atom"],
+            Text(str(r["top_atom"] or "")),
             f"{r['threshold']:.1e}" if ok else "",
             "" if r["n_removed"] is None else str(r["n_removed"]),
         )
+        if r["verdict"] == "error" and not r.get("note") and not r.get("change"):
+            continue  # its reason is the error line on standard error: said once
         if r["verdict"] != "pass" or r.get("outcome") != "ok" or r.get("change"):
             why = "; ".join(x for x in (r.get("change", ""), r.get("note", ""), r.get("reason", "")) if x)
-            notes.append(
-                Text(f"  {why}" if r["verdict"] == "error" and not r.get("note") else f"  {item_label(r)}: {why}")
-            )
+            notes.append(Text(f"  {item_label(r)}: {why}"))
     return Group(t, *notes)

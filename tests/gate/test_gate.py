@@ -70,6 +70,17 @@ def test_item_names_stay_unique(tree):
     assert sorted(it.name for it in items) == ["set__water", "set__water-2"]
 
 
+def _stored_report():
+    """(report text, brief) of a real audit: what the cache stores."""
+    from auditor.pipeline.run import audit
+    from auditor.report.json_report import dumps_result
+    from auditor.report.rows import brief
+    from helpers import make_molecule
+
+    result = audit(make_molecule(*WATER), "sto-3g", remedies=False).as_dict()
+    return dumps_result(result, compact=True), brief(result)
+
+
 def test_cache_round_trip_and_corrupt_entries(tmp_path):
     import sqlite3
 
@@ -79,17 +90,31 @@ def test_cache_round_trip_and_corrupt_entries(tmp_path):
     key = content_key({"a": [1.0, 2.5e-300], "b": "x"})
     assert key == content_key({"b": "x", "a": [1.0, 2.5e-300]})
     assert cache.get(key) is None
-    cache.put(key, '{\n  "verdict": "pass"\n}\n', {"verdict": "pass"})
-    assert cache.get(key) == {"text": '{\n  "verdict": "pass"\n}\n', "data": {"verdict": "pass"}}
+    text, short = _stored_report()
+    cache.put(key, text, short)
+    assert cache.get(key) == {"text": text, "data": short}
     assert cache.keys() == [key]
     cache.close()
+    other = dict(short, verdict="fail")  # a brief that is not the one of its report
     with sqlite3.connect(cache.path) as db:  # entries written by someone else
-        db.execute("INSERT INTO results VALUES (?, ?, ?, ?)", ("k-old", "auditor-cache/1", "{}", "{}"))
-        db.execute("INSERT INTO results VALUES (?, ?, ?, ?)", ("k-cut", FORMAT, '{"verdict": "pa', "{}"))
-        db.execute("INSERT INTO results VALUES (?, ?, ?, ?)", ("k-list", FORMAT, "[1, 2]", "{}"))
+        for k, brief_text, report in [
+            ("k-old", "{}", "{}"),
+            ("k-cut", '{"verdict": "pa', text),
+            ("k-list", "[1, 2]", text),
+            ("k-other-brief", json.dumps(other), text),
+            ("k-not-json", json.dumps(short), "not json"),
+            ("k-foreign", json.dumps(short), '{"schema": "something/1"}'),
+            ("k-number", "5", "5"),
+        ]:
+            db.execute(
+                "INSERT INTO results VALUES (?, ?, ?, ?)", (k, FORMAT if k != "k-old" else "x/1", brief_text, report)
+            )
     again = ResultCache(tmp_path)
     assert again.get(key) is not None
-    assert all(again.get(k) is None for k in ("k-old", "k-cut", "k-list", "k-absent"))
+    bad = ("k-old", "k-cut", "k-list", "k-other-brief", "k-not-json", "k-foreign", "k-number", "k-absent")
+    assert all(again.get(k) is None for k in bad)
+    again.put("k-not-json", text, short)  # a miss is recomputed and replaced
+    assert again.get("k-not-json") == {"text": text, "data": short}
     again.close()
 
 
@@ -98,12 +123,29 @@ def test_unusable_cache_counts_failures_instead_of_raising(tmp_path):
     cache = ResultCache(tmp_path / "plain_file" / "cache")  # cannot be created
     cache.put(content_key({"a": 1}), "{}", {})
     assert cache.failed_writes == 1 and cache.get(content_key({"a": 1})) is None
-    (tmp_path / "junk").mkdir()
-    (tmp_path / "junk" / "results.sqlite").write_bytes(b"not a database at all, " * 100)
-    junk = ResultCache(tmp_path / "junk")
+
+
+@pytest.mark.parametrize("kind", ["not-sqlite", "wrong-columns"])
+def test_a_cache_file_that_is_not_ours_is_set_aside(tmp_path, kind):
+    import sqlite3
+
+    folder = tmp_path / "junk"
+    folder.mkdir()
+    if kind == "not-sqlite":
+        (folder / "results.sqlite").write_bytes(b"not a database at all, " * 100)
+    else:
+        with closing(sqlite3.connect(folder / "results.sqlite")) as db:
+            db.execute("CREATE TABLE results (key TEXT, value BLOB)")
+            db.commit()
+    junk = ResultCache(folder)
     assert junk.get(content_key({"a": 1})) is None
-    junk.put(content_key({"a": 1}), "{}", {})
-    assert junk.failed_writes == 1 and junk.problem
+    text, short = _stored_report()
+    junk.put(content_key({"a": 1}), text, short)
+    assert junk.failed_writes == 0 and not junk.problem
+    assert junk.get(content_key({"a": 1})) is not None
+    assert len(junk.notes) == 1 and "set aside" in junk.notes[0]
+    assert (folder / "results.sqlite.unusable").exists()
+    junk.close()
 
 
 def test_default_cache_dir_follows_xdg(monkeypatch, tmp_path):
