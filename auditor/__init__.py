@@ -12,7 +12,7 @@ __version__ = "0.1.0"
 _EXPORTS = {
     "audit": "pipeline.run",
     "audit_prepared": "pipeline.run",
-    "load_molecules": "inputs.geometry",
+    "load_molecules": "inputs.readers",
     "audit_cell": "pipeline.periodic",
     "Crystal": "inputs.cell",
     "read_cells": "inputs.cell",
@@ -22,7 +22,7 @@ _EXPORTS = {
     "AuditResult": "pipeline.result",
     "BasisSpec": "inputs.basis",
     "Molecule": "inputs.geometry",
-    "read_geometry": "inputs.geometry",
+    "read_geometry": "inputs.readers",
     "load_pruned": "inputs.pruned",
     "Policy": "diagnosis.verdict",
     "RemedyOptions": "remedies.plan",

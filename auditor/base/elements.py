@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import re
 from collections.abc import Iterable
 
 import numpy as np
@@ -48,3 +49,35 @@ def covalent_radii(symbols: Iterable[str]) -> np.ndarray:
     from ase.data import covalent_radii as table  # ASE is slow to import: only when radii are needed
 
     return np.array([table[ELEMENTS.index(s) + 1] for s in symbols])
+
+
+#: Ghost-atom spellings read in geometry files (docs/cli.md, "Ghost atoms in the file"):
+#: a prefix or a suffix around an element symbol. The case of the marker does not matter.
+#: A separator is required after X so that "Xe" stays xenon.
+_GHOST_FORMS = (
+    re.compile(r"(?i:ghost)[-_]([A-Za-z]{1,2})"),  # ghost-H, ghost_H (pyscf)
+    re.compile(r"(?i:x)[-_]([A-Za-z]{1,2})"),  # X-H, X_H (pyscf)
+    re.compile(r"(?i:gh)\(([A-Za-z]{1,2})\)"),  # Gh(H)
+    re.compile(r"@([A-Za-z]{1,2})"),  # @H
+    re.compile(r"([A-Za-z]{1,2}):"),  # H:
+    re.compile(r"([A-Za-z]{1,2})-(?i:bq)"),  # H-Bq
+)
+#: Markers of a dummy atom that names no element (and so carries no basis function).
+_DUMMIES = {"x", "bq", "gh", "ghost", "q"}
+
+
+def atom_label(token: str, where: str) -> tuple[str, bool]:
+    """(element symbol, ghost flag) of an atom label as geometry files write it: an element
+    ('H', 'cl', '8') or a ghost spelling of one (see _GHOST_FORMS). InputError otherwise,
+    with a hint for a dummy atom that names no element."""
+    token = token.strip()
+    for form in _GHOST_FORMS:
+        m = form.fullmatch(token)
+        if m and m.group(1).lower() in _SYMBOL:
+            return _SYMBOL[m.group(1).lower()], True
+    if token.lower() in _DUMMIES:
+        raise InputError(
+            f"{where}: {token!r} names no element, so it carries no basis function; "
+            "write a ghost atom as X-H, ghost-H, Gh(H), @H, H: or H-Bq"
+        )
+    return element_symbol(token, where), False

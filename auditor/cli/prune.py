@@ -51,7 +51,7 @@ def prune(
     from ..base.files import protect
     from ..diagnosis.verdict import Policy
     from ..gate.periodic import is_periodic, not_periodic
-    from ..inputs.geometry import load_molecules
+    from ..inputs.readers import load_molecules
     from ..pipeline.run import make_spec, prepare, prune_prepared
     from ..report.naming import report_stem
     from ..report.pruned_files import write_prune_outputs

@@ -12,7 +12,8 @@ from ..base.errors import AuditorError, InputError, UsageError, failure
 from ..base.textio import read_text
 from ..diagnosis.verdict import Policy
 from ..inputs.basis import BasisSpec
-from ..inputs.geometry import Molecule, load_molecules
+from ..inputs.geometry import Molecule
+from ..inputs.readers import load_molecules
 from ..report.naming import report_stem, unique_name
 from .periodic import Crystal, PeriodicOptions, is_periodic, load_cells
 

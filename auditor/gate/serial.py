@@ -12,7 +12,7 @@ from ..base.errors import EXIT_FAIL, EXIT_INPUT, EXIT_OK, AuditorError, failure
 from ..base.files import protect
 from ..diagnosis.verdict import Policy
 from ..inputs.basis import BasisSpec
-from ..inputs.geometry import load_molecules
+from ..inputs.readers import load_molecules
 from ..pipeline.result import AuditResult
 from ..pipeline.run import audit_prepared, prepare
 from ..remedies.plan import RemedyOptions

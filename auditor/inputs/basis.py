@@ -6,7 +6,7 @@ import difflib
 import math
 import os
 import re
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from functools import cache, lru_cache
 from pathlib import Path
 from typing import Any
@@ -40,6 +40,9 @@ class BasisSpec:
     #: where named bases come from: "pyscf" (pyscf's own library, which asks
     #: basis_set_exchange for names it lacks) or "bse" (basis_set_exchange). Files are files.
     source: str = "pyscf"
+    #: the explicit basis data of the input (a checkpoint's, a QCSchema document's) that
+    #: the audit uses as they are; None for named bases and files
+    data: FileBasis | None = None
 
     def for_element(self, element: str) -> str:
         return self.per_element.get(element, self.default)
@@ -48,12 +51,15 @@ class BasisSpec:
         extra = ", ".join(f"{el}={name}" for el, name in sorted(self.per_element.items()))
         kind = "cartesian" if self.cartesian else "spherical"
         copy = ", basis_set_exchange" if self.source == "bse" else ""
-        return f"{self.default}" + (f" ({extra})" if extra else "") + f" [{kind}{copy}]"
+        origin = f" (data of the {self.data.origin})" if self.data is not None else ""
+        return f"{self.default}" + (f" ({extra})" if extra else "") + origin + f" [{kind}{copy}]"
 
     def files(self) -> list[str]:
         """The basis files this specification names (inputs: never overwritten)."""
+        if self.data is not None:
+            return []
         names = [self.default, *self.per_element.values()]
-        return [n for n in dict.fromkeys(names) if Path(n).expanduser().is_file()]
+        return [n for n in dict.fromkeys(names) if n and Path(n).expanduser().is_file()]
 
     def __post_init__(self) -> None:
         object.__setattr__(self, "per_element", dict(sorted(self.per_element.items())))
@@ -61,7 +67,96 @@ class BasisSpec:
             raise UsageError(f"basis source must be one of {', '.join(SOURCES)}, got {self.source!r}")
 
     def as_dict(self) -> dict:
-        return to_jsonable(self)
+        """The report's ``basis_spec`` (the data themselves are recorded by digest in ``basis_data``)."""
+        out = to_jsonable(replace(self, data=None))
+        del out["data"]
+        return out
+
+
+#: Largest angular momentum accepted in basis data read from a file (k functions; pyscf's
+#: integral library goes no further in practice) and the largest number of primitives or
+#: contractions in one shell: generous bounds of our own that no published basis reaches.
+MAX_L = 8
+MAX_PRIMITIVES = 64
+MAX_CONTRACTIONS = 64
+
+
+@dataclass(frozen=True)
+class FileBasis:
+    """The basis an input file carries: a name (a QCSchema ``model.basis`` string), or
+    explicit shells per atom in pyscf's internal format (a pyscf checkpoint, a QCSchema
+    basis object), checked number by number (``check_shells``)."""
+
+    origin: str  # "checkpoint" or "QCSchema document"
+    name: str  # the name the file gives, or "custom"
+    atoms: tuple = ()  # per atom: frozen shells; () when the file names its basis only
+    cartesian: bool = False
+    sha256: str = ""  # of the file
+
+    @property
+    def explicit(self) -> bool:
+        return bool(self.atoms)
+
+    def subset(self, atoms: list[int]) -> FileBasis:
+        """The basis data of the 0-based ``atoms`` only."""
+        return replace(self, atoms=tuple(self.atoms[i] for i in atoms)) if self.atoms else self
+
+    def as_dict(self) -> dict:
+        """JSON form (what a gate item carries to its worker and its cache key hashes)."""
+        return {
+            "origin": self.origin,
+            "name": self.name,
+            "atoms": thaw(self.atoms),
+            "cartesian": self.cartesian,
+            "sha256": self.sha256,
+        }
+
+    @staticmethod
+    def from_dict(d: dict, where: str = "basis data") -> FileBasis:
+        """``as_dict`` read back, every shell checked again."""
+        atoms = tuple(check_shells(a, f"{where}: atom {i + 1}") for i, a in enumerate(d.get("atoms") or []))
+        return FileBasis(str(d["origin"]), str(d["name"]), atoms, bool(d["cartesian"]), str(d.get("sha256", "")))
+
+
+def _finite(x: object) -> bool:
+    return isinstance(x, (int, float)) and not isinstance(x, bool) and math.isfinite(x)
+
+
+def _check_shell(shell: object, where: str) -> tuple:
+    """One shell [l, (kappa,) [exponent, c1, c2, ...], ...] checked and frozen."""
+    if not isinstance(shell, (list, tuple)) or len(shell) < 2:
+        raise InputError(f"{where}: a shell must be [l, [exponent, coefficient, ...], ...]")
+    l = shell[0]
+    if isinstance(l, bool) or not isinstance(l, int) or not 0 <= l <= MAX_L:
+        raise InputError(f"{where}: angular momentum must be an integer from 0 to {MAX_L}, found {str(l)[:20]!r}")
+    head = 2 if len(shell) > 2 and isinstance(shell[1], int) and not isinstance(shell[1], bool) else 1
+    if head == 2 and not -1 <= shell[1] <= 1:
+        raise InputError(f"{where}: kappa must be -1, 0 or 1, found {shell[1]!r}")
+    prims = shell[head:]
+    if not 1 <= len(prims) <= MAX_PRIMITIVES:
+        raise InputError(f"{where}: a shell has 1 to {MAX_PRIMITIVES} primitives, found {len(prims)}")
+    width = None
+    for p in prims:
+        if not isinstance(p, (list, tuple)) or not 2 <= len(p) <= MAX_CONTRACTIONS + 1:
+            raise InputError(f"{where}: a primitive must be [exponent, coefficient, ...]")
+        if width is not None and len(p) != width:
+            raise InputError(f"{where}: the primitives of a shell have different numbers of coefficients")
+        width = len(p)
+        if not all(_finite(x) for x in p):
+            bad = next(x for x in p if not _finite(x))
+            raise InputError(f"{where}: basis data must be finite numbers, found {str(bad)[:20]!r}")
+        if not p[0] > 0:
+            raise InputError(f"{where}: exponent {p[0]!r} must be positive")
+    return tuple(shell[:head]) + tuple(tuple(float(x) for x in p) for p in prims)
+
+
+def check_shells(shells: object, where: str) -> tuple:
+    """Shells in pyscf's internal list format read from a file, checked: every structure
+    of the expected shape, every number finite, exponents positive; frozen (nested tuples).
+    InputError naming ``where`` otherwise."""
+    if not isinstance(shells, (list, tuple)) or not shells:
+        raise InputError(f"{where}: expected a non-empty list of shells")
+    return tuple(_check_shell(sh, f"{where}: shell {k + 1}") for k, sh in enumerate(shells))
 
 
 def parse_overrides(items: list[str] | None) -> dict[str, str]:

@@ -5,7 +5,6 @@ from __future__ import annotations
 import io
 import json
 import math
-import os
 import re
 from collections.abc import Sequence
 from dataclasses import dataclass, field, replace
@@ -14,9 +13,10 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from ..base.elements import BOHR_IN_ANGSTROM, ELEMENTS, element_symbol
+from ..base.elements import BOHR_IN_ANGSTROM, ELEMENTS, atom_label, element_symbol
 from ..base.errors import InputError, UsageError
-from ..base.textio import plain_float, read_text
+from ..base.textio import plain_float
+from .basis import FileBasis
 
 if TYPE_CHECKING:
     from ase import Atoms
@@ -37,10 +37,32 @@ class Molecule:
     n_frames: int = 1
     comment: str = ""
     extras: dict = field(default_factory=dict)
+    #: fragments as read from the file (0-based atom indices), for counterpoise
+    fragments: tuple[tuple[int, ...], ...] = ()
+    #: the basis the file carries (a QCSchema document's or a pyscf checkpoint's), if any
+    basis: FileBasis | None = None
+    #: the coordinates in bohr exactly as the file gave them (QCSchema, checkpoints), handed
+    #: to pyscf as they are; None when the file is in ångström
+    bohr: np.ndarray | None = None
 
     @property
     def n_atoms(self) -> int:
         return len(self.symbols)
+
+    def subset(self, atoms: Sequence[int], ghost: Sequence[bool] | None = None) -> Molecule:
+        """The molecule of the 0-based ``atoms`` only (in this order), with their basis data,
+        and ``ghost`` flags if given (else their own); no fragments."""
+        idx = [int(i) for i in atoms]
+        flags = tuple(bool(g) for g in ghost) if ghost is not None else tuple(self.ghost[i] for i in idx)
+        return replace(
+            self,
+            symbols=tuple(self.symbols[i] for i in idx),
+            coords=np.asarray(self.coords, dtype=float)[idx],
+            ghost=flags,
+            fragments=(),
+            basis=self.basis.subset(idx) if self.basis is not None else None,
+            bohr=None if self.bohr is None else np.asarray(self.bohr, dtype=float)[idx],
+        )
 
     @property
     def spin(self) -> int:
@@ -209,7 +231,7 @@ def _comment_charge(comment: str, where: str) -> tuple[int, int | None]:
     return charge, mult
 
 
-def _is_extended(comment: str) -> bool:
+def is_extended(comment: str) -> bool:
     return "properties=" in comment.lower() or "lattice=" in comment.lower()
 
 
@@ -220,11 +242,11 @@ def _atom_count(line: str, where: str) -> int:
     return int(head[0])
 
 
-def _atom_line(line: str, where: str, scale: float) -> tuple[str, list[float]]:
+def _atom_line(line: str, where: str, scale: float) -> tuple[str, bool, list[float]]:
     parts = line.split()
     if len(parts) < 4:
         raise InputError(f"{where}: expected 'element x y z', found {line.strip()[:60]!r}")
-    sym = element_symbol(parts[0], where)
+    sym, ghost = atom_label(parts[0], where)
     try:
         xyz = [plain_float(v) * scale for v in parts[1:4]]
     except ValueError:
@@ -234,10 +256,10 @@ def _atom_line(line: str, where: str, scale: float) -> tuple[str, list[float]]:
         raise InputError(f"{where}: coordinates are not numbers: {shown!r}") from None
     if not all(math.isfinite(v) and abs(v) <= MAX_COORDINATE for v in xyz):
         raise InputError(f"{where}: {_coordinate_problem(xyz)}")
-    return sym, xyz
+    return sym, ghost, xyz
 
 
-def _read_plain_xyz(path: Path, text: str, scale: float) -> list[Molecule]:
+def read_plain_xyz(path: Path, text: str, scale: float) -> list[Molecule]:
     lines = text.splitlines()
     frames: list[Molecule] = []
     i = 0
@@ -257,9 +279,9 @@ def _read_plain_xyz(path: Path, text: str, scale: float) -> list[Molecule]:
         charge, mult = _comment_charge(comment, f"{name}:{i + 2}")
         frames.append(
             Molecule(
-                symbols=tuple(s for s, _ in atoms),
-                coords=np.asarray([xyz for _, xyz in atoms], dtype=float),
-                ghost=(False,) * n,
+                symbols=tuple(s for s, _, _ in atoms),
+                coords=np.asarray([xyz for _, _, xyz in atoms], dtype=float),
+                ghost=tuple(g for _, g, _ in atoms),
                 charge=charge,
                 multiplicity=mult,
                 source=name,
@@ -271,34 +293,54 @@ def _read_plain_xyz(path: Path, text: str, scale: float) -> list[Molecule]:
     return frames
 
 
-#: Formats ASE reads for us, by file name suffix. ASE is never asked to guess a format
-#: from a file's content: a suffix not listed here is refused.
-ASE_FORMATS = {".extxyz": "extxyz", ".xyz": "extxyz", ".json": "json", ".pdb": "proteindatabank", ".cif": "cif"}
-#: Suffixes read as plain XYZ (unless the comment line is extended XYZ).
-PLAIN_SUFFIXES = (".xyz", ".txt", "")
+_PROPERTIES = re.compile(r"properties\s*=\s*(\"[^\"]*\"|'[^']*'|\S+)", re.IGNORECASE)
 
 
-def _check_extxyz_counts(path: Path, text: str) -> None:
-    """Every frame's atom count of an extended XYZ text, checked before ASE reads it: ASE's
-    reader takes any integer Python reads ('1_0', '999999999999') and skips that many
-    lines, which for a huge number never ends."""
+def _species_column(comment: str) -> int:
+    """The column of the species in the atom lines of an extended XYZ frame (from its
+    Properties=, ASE's default when absent), or -1."""
+    m = _PROPERTIES.search(comment)
+    fields = m.group(1).strip("\"'").split(":") if m else ["species", "S", "1"]
+    column = 0
+    for name, count in zip(fields[0::3], fields[2::3]):
+        if name.lower() == "species":
+            return column
+        column += int(count) if count.isascii() and count.isdigit() and len(count) < 4 else 1
+    return -1
+
+
+def _extxyz_prepare(path: Path, text: str) -> tuple[str, list[tuple[bool, ...]]]:
+    """Every frame's atom count of an extended XYZ text, checked before ASE reads it (ASE's
+    reader takes any integer Python reads, '1_0' or '999999999999', and skips that many
+    lines, which for a huge number never ends); ghost labels in the species column read
+    (X-H, Gh(H), ...) and replaced by their element, since ASE knows elements only.
+    Returns the text for ASE and the ghost flags of each frame."""
     lines = text.splitlines()
+    ghosts: list[tuple[bool, ...]] = []
     i = 0
     while i < len(lines) and lines[i].strip():
         n = _atom_count(lines[i], f"{path}:{i + 1}")
         if i + 2 + n > len(lines):
             have = max(0, len(lines) - i - 2)
             raise InputError(f"{path}:{i + 1}: the header announces {n} atoms but only {have} atom lines follow")
+        column = _species_column(lines[i + 1])
+        flags = []
+        for j in range(i + 2, i + 2 + n):
+            parts = lines[j].split()
+            ghost = False
+            if 0 <= column < len(parts) and not parts[column].isalpha():
+                parts[column], ghost = atom_label(parts[column], f"{path}:{j + 1}")
+                lines[j] = " ".join(parts) if ghost else lines[j]
+            flags.append(ghost)
+        ghosts.append(tuple(flags))
         i += 2 + n
         while i < len(lines) and lines[i].lstrip().upper().startswith("VEC"):
             i += 1  # lattice vectors after the atoms
+    return "\n".join(lines) + "\n", ghosts
 
 
 def _ase_images(path: Path, text: str, fmt: str) -> list[Atoms]:
     from ase.io import read  # ASE is slow to import: only for the formats it reads
-
-    if fmt == "extxyz":
-        _check_extxyz_counts(path, text)
 
     try:
         images = read(io.StringIO(text), index=":", format=fmt)
@@ -317,8 +359,11 @@ def _json_pairs(text: str) -> list[dict]:
         return []
 
 
-def _read_with_ase(path: Path, text: str, fmt: str, scale: float) -> list[Molecule]:
-    """Extended XYZ and the other formats of ASE_FORMATS, with the same checks as plain XYZ."""
+def read_with_ase(path: Path, text: str, fmt: str, scale: float) -> list[Molecule]:
+    """Extended XYZ and the other formats ASE reads for us, with the same checks as plain XYZ."""
+    ghosts: list[tuple[bool, ...]] = []
+    if fmt == "extxyz":
+        text, ghosts = _extxyz_prepare(path, text)
     images = _ase_images(path, text, fmt)
     pairs = _json_pairs(text) if fmt == "json" else []
     frames = []
@@ -327,9 +372,30 @@ def _read_with_ase(path: Path, text: str, fmt: str, scale: float) -> list[Molecu
         where = f"{path}:{line}" if fmt == "extxyz" else (f"{path}: frame {k + 1}" if len(images) > 1 else str(path))
         info = {**(pairs[k] if k < len(pairs) else {}), **(getattr(atoms, "info", None) or {})}
         mol = molecule_from_atoms(atoms, source=str(path), frame=k, info=info, where=where, scale=scale)
+        if k < len(ghosts) and len(ghosts[k]) == mol.n_atoms:
+            mol = replace(mol, ghost=tuple(a or b for a, b in zip(mol.ghost, ghosts[k])))
         frames.append(mol)
         line += len(atoms) + 2
     return frames
+
+
+def _array_flags(atoms: Atoms, where: str) -> tuple[tuple[bool, ...] | None, tuple[tuple[int, ...], ...]]:
+    """The per-atom ``ghost`` (logical) and ``fragment`` (integer) columns of an ASE Atoms
+    (extended XYZ Properties), checked: (ghost flags or None, fragments in label order)."""
+    arrays = getattr(atoms, "arrays", None) or {}
+    ghost = None
+    if "ghost" in arrays:
+        col = np.asarray(arrays["ghost"])
+        if col.dtype != bool or col.shape != (len(atoms),):
+            raise InputError(f"{where}: the ghost column must be logical (ghost:L:1), one value per atom")
+        ghost = tuple(bool(g) for g in col)
+    fragments: tuple[tuple[int, ...], ...] = ()
+    if "fragment" in arrays:
+        col = np.asarray(arrays["fragment"])
+        if col.dtype.kind not in "iu" or col.shape != (len(atoms),):
+            raise InputError(f"{where}: the fragment column must be integers (fragment:I:1), one per atom")
+        fragments = tuple(tuple(int(i) for i in np.flatnonzero(col == v)) for v in sorted(set(col.tolist())))
+    return ghost, fragments
 
 
 def molecule_from_atoms(
@@ -341,7 +407,8 @@ def molecule_from_atoms(
     scale: float = 1.0,
 ) -> Molecule:
     """Molecule from an ASE Atoms object (positions are ångström in ASE, times ``scale``):
-    finite positions within MAX_COORDINATE, integer charge and multiplicity."""
+    finite positions within MAX_COORDINATE, integer charge and multiplicity; a logical
+    ``ghost`` and an integer ``fragment`` per-atom array are read when present."""
     where = where or source
     pos = np.asarray(atoms.get_positions(), dtype=float) * scale
     check_coordinates(pos, where)
@@ -352,71 +419,24 @@ def molecule_from_atoms(
     charge = header_integer("charge", info["charge"], where) if "charge" in info else 0
     key = next((k for k in ("multiplicity", "mult") if k in info), None)
     mult = header_integer("multiplicity", info[key], where) if key else None
+    ghost, fragments = _array_flags(atoms, where)
     return Molecule(
         symbols=symbols,
         coords=pos,
-        ghost=(False,) * len(symbols),
+        ghost=ghost or (False,) * len(symbols),
         charge=charge,
         multiplicity=mult,
         source=source,
         frame=frame,
+        fragments=fragments if len(fragments) > 1 else (),
     )
 
 
-def _scale(unit: str) -> float:
+def unit_scale(unit: str) -> float:
+    """Ångström per unit of the numbers in a file (UsageError for an unknown unit)."""
     unit = str(unit).lower()
     if unit in ("angstrom", "ang", "a", "å"):
         return 1.0
     if unit in ("bohr", "au", "a.u."):
         return BOHR_IN_ANGSTROM
     raise UsageError(f"unknown unit {unit!r}: use 'angstrom' or 'bohr'")
-
-
-def _format_of(path: Path, text: str) -> str:
-    """'xyz' (our own reader) or an ASE format name, from the suffix (never the content)."""
-    suffix = path.suffix.lower()
-    lines = text.splitlines()
-    second = lines[1] if len(lines) > 1 else ""
-    if suffix in PLAIN_SUFFIXES and not _is_extended(second):
-        return "xyz"
-    if suffix in ASE_FORMATS:
-        return ASE_FORMATS[suffix]
-    known = ", ".join([".xyz", ".txt", *sorted(set(ASE_FORMATS) - {".xyz"})])
-    raise InputError(f"{path}: unsupported geometry format {suffix!r} (known: {known}, or no suffix for XYZ)")
-
-
-def read_geometry(path: str | Path, unit: str = "angstrom", max_bytes: int | None = None) -> list[Molecule]:
-    """Read every frame of an XYZ, multi-frame XYZ or extended XYZ file (or an ASE JSON,
-    PDB or CIF file, chosen by suffix).
-
-    ``unit`` is the unit of the numbers in the file ("angstrom" or "bohr"); the
-    returned coordinates are always in ångström. Only regular files of at most
-    ``max_bytes`` (default: ``auditor.base.textio.input_limit()``) are read.
-    """
-    scale = _scale(unit)
-    if not isinstance(path, (str, os.PathLike)):
-        raise UsageError(f"a geometry is a file path, an ASE Atoms, a pyscf Mole or a Molecule, got {path!r:.60}")
-    path = Path(path)
-    text = read_text(path, "geometry file", max_bytes)
-    if not text.strip():
-        raise InputError(f"{path}: file is empty")
-    fmt = _format_of(path, text)
-    frames = _read_plain_xyz(path, text, scale) if fmt == "xyz" else _read_with_ase(path, text, fmt, scale)
-    if not frames:
-        raise InputError(f"{path}: no atoms found")
-    n = len(frames)
-    return [replace(f, n_frames=n) for f in frames]
-
-
-def load_molecules(
-    path: str | Path,
-    unit: str = "angstrom",
-    ghost: str | Sequence[int] | None = None,
-    max_bytes: int | None = None,
-) -> list[Molecule]:
-    """Every frame of a geometry file, with ghost atoms marked (1-based numbers or '4-6,9',
-    checked against each frame's atom count before they are expanded)."""
-    frames = read_geometry(path, unit=unit, max_bytes=max_bytes)
-    if not ghost:
-        return frames
-    return [f.with_ghosts(check_atom_numbers(ghost, f.n_atoms, str(path))) for f in frames]

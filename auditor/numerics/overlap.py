@@ -9,6 +9,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from ..base.elements import ELEMENTS
+from ..base.errors import InputError
 from ..inputs.basis import BasisSpec, is_diffuse, load_shells, thaw
 from ..inputs.geometry import Molecule, check_molecule
 
@@ -73,10 +74,42 @@ def build_mole(mol: Molecule, spec: BasisSpec) -> gto.Mole:
     only the coordinates are replaced, which gives the same integrals bit for bit.
     """
     check_molecule(mol)  # a Molecule made by hand may hold anything
+    if spec.data is not None:
+        return _explicit_mole(mol, spec)
     labels = tuple(pyscf_labels(mol))
     template = _mole_template(labels, tuple(spec.for_element(s) for s in mol.symbols), spec.cartesian, spec.source)
+    if mol.bohr is not None:  # the file's own numbers, not a round trip through ångström
+        return template.set_geom_(np.asarray(mol.bohr, dtype=float), unit="Bohr", inplace=False)
     coords = np.asarray(mol.coords, dtype=float)
     return template.set_geom_(coords, unit="Angstrom", inplace=False)
+
+
+def _explicit_mole(mol: Molecule, spec: BasisSpec) -> gto.Mole:
+    """pyscf Mole with the basis data an input carries (a checkpoint's, a QCSchema
+    document's), one label per atom so that every atom gets exactly its own shells; the
+    coordinates in bohr as the file gave them when it did."""
+    from pyscf import gto  # pyscf is slow to import: only when a Mole is built
+
+    data = spec.data
+    if data is None or len(data.atoms) != mol.n_atoms:
+        raise InputError(f"{mol.source}: the basis data do not match the {mol.n_atoms} atoms")
+    labels = [("ghost-" if g else "") + f"{s}{i + 1}" for i, (s, g) in enumerate(zip(mol.symbols, mol.ghost))]
+    bohr = mol.bohr is not None
+    coords = np.asarray(mol.bohr if bohr else mol.coords, dtype=float)
+    nelec = sum(ELEMENTS.index(s) + 1 for s, g in zip(mol.symbols, mol.ghost) if not g)
+    pm = gto.Mole()
+    pm.atom = [(lab, tuple(float(x) for x in xyz)) for lab, xyz in zip(labels, coords)]
+    pm.basis = {lab: thaw(shells) for lab, shells in zip(labels, data.atoms)}
+    pm.unit = "Bohr" if bohr else "Angstrom"
+    pm.cart = data.cartesian
+    pm.charge = 0
+    pm.spin = nelec % 2
+    pm.verbose = 0
+    try:
+        pm.build(dump_input=False, parse_arg=False)
+    except Exception as exc:  # pyscf raises RuntimeError, ValueError, ... on basis data it cannot use
+        raise InputError(f"{mol.source}: pyscf cannot use the basis data ({type(exc).__name__})") from None
+    return pm
 
 
 @lru_cache(maxsize=512)  # a Mole of a small molecule holds a few kB

@@ -6,7 +6,7 @@ import hashlib
 import math
 import re
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any
 
 import numpy as np
@@ -24,8 +24,9 @@ from ..diagnosis.findings import (
     near_singular_finding,
 )
 from ..diagnosis.verdict import BROKEN_KINDS, Decision, Policy, decide
-from ..inputs.basis import BasisSpec, basis_origin, check_basis_name, parse_overrides, shells_digest
-from ..inputs.geometry import Molecule, molecule_from_atoms, read_geometry
+from ..inputs.basis import BasisSpec, FileBasis, basis_origin, check_basis_name, parse_overrides, shells_digest
+from ..inputs.geometry import Molecule, molecule_from_atoms
+from ..inputs.readers import read_geometry
 from ..numerics.eigen import compute_spectrum
 from ..numerics.memory import check_memory
 from ..numerics.overlap import FunctionTable, build_mole, function_table, mole_function_table, normalized_overlap
@@ -56,13 +57,34 @@ def make_spec(
     """BasisSpec from a name (or file) plus overrides given as dict or ['H=cc-pvtz', ...]."""
     if isinstance(basis, BasisSpec):
         return basis
-    if not basis:
-        raise UsageError("a basis is required (e.g. basis='aug-cc-pvdz')")
+    if basis is not None and not isinstance(basis, str):
+        check_basis_name(basis)  # the usage error for a basis that is not a name
     if isinstance(basis_for, dict):
         over = {element_symbol(k, "basis_for"): check_basis_name(v, f"basis_for {k}") for k, v in basis_for.items()}
     else:
         over = parse_overrides(basis_for)
-    return BasisSpec(default=check_basis_name(basis), per_element=over, cartesian=cartesian, source=source)
+    default = check_basis_name(basis) if basis else ""  # "": each input's own basis (resolve_spec)
+    return BasisSpec(default=default, per_element=over, cartesian=cartesian, source=source)
+
+
+def resolve_spec(spec: BasisSpec, mol: Molecule) -> BasisSpec:
+    """The basis ``mol`` is audited in: ``spec`` when it names one (the command line's
+    --basis wins), else the basis the input carries: a name (a QCSchema document's, with
+    ``spec``'s per-element overrides and Cartesian flag) or its exact basis data (a
+    checkpoint's, a QCSchema basis object), which no option may change."""
+    if spec.default or spec.data is not None:
+        return spec
+    carried = mol.basis
+    if carried is None:
+        raise UsageError(f"{mol.source}: no basis: the input carries none; give one (--basis, or basis= in the API)")
+    if not carried.explicit:
+        return replace(spec, default=carried.name)
+    if spec.per_element or spec.cartesian or spec.source != "pyscf":
+        raise UsageError(
+            f"{mol.source}: --basis-for, --cartesian and --basis-source change a named basis; this input "
+            f"carries its basis data (the {carried.origin}'s), used as they are (--basis replaces them)"
+        )
+    return BasisSpec(carried.name, {}, carried.cartesian, "pyscf", carried)
 
 
 def prepare(
@@ -76,11 +98,12 @@ def prepare(
     """
     if mol.n_atoms and all(mol.ghost):
         raise UsageError(f"{mol.source}: no real atom: all {mol.n_atoms} atoms are ghost atoms")
+    spec = resolve_spec(spec, mol)
     if stage:
         stage("overlap matrix (pyscf)")
     pm = build_mole(mol, spec)
     check_memory(pm.nao, spectrum_method)
-    table = function_table(mol, spec)
+    table = mole_function_table(pm, mol, spec) if spec.data is not None else function_table(mol, spec)
     return Prepared(mol, spec, pm, table, normalized_overlap(pm))
 
 
@@ -225,6 +248,8 @@ def basis_data(prep: Prepared) -> dict:
     with versions or the file's SHA-256) and a digest of the shells actually used, so that
     two audits of "the same" basis from different copies can be told apart."""
     elements = sorted(set(prep.molecule.symbols))
+    if prep.spec.data is not None:
+        return _carried_basis_data(prep.molecule, prep.spec.data, elements)
     if prep.spec.default == "custom":  # a pyscf Mole with its own basis data
         records = [
             {
@@ -235,10 +260,30 @@ def basis_data(prep: Prepared) -> dict:
             }
             for el in elements
         ]
-    else:
-        records = [dict(basis_origin(prep.spec.for_element(el), el, prep.spec.source)) for el in elements]
+        return _with_digest(records, "pyscf Mole")
+    records = [dict(basis_origin(prep.spec.for_element(el), el, prep.spec.source)) for el in elements]
+    carried = prep.molecule.basis
+    named_by = carried.origin if carried is not None and prep.spec.default == carried.name else "given"
+    return _with_digest(records, named_by)
+
+
+def _with_digest(records: list[dict], named_by: str) -> dict:
     joined = "".join(f"{r['element']}:{r['digest']};" for r in records)
-    return {"digest": hashlib.sha256(joined.encode("ascii")).hexdigest(), "elements": records}
+    return {"digest": hashlib.sha256(joined.encode("ascii")).hexdigest(), "from": named_by, "elements": records}
+
+
+def _carried_basis_data(mol: Molecule, data: FileBasis, elements: list[str]) -> dict:
+    """basis_data for the basis data an input carries: per element the digest of its atoms'
+    shells (of the one set when all its atoms share it), the file's SHA-256."""
+    records = []
+    for el in elements:
+        sets = list(dict.fromkeys(data.atoms[i] for i, s in enumerate(mol.symbols) if s == el))
+        record = {"element": el, "basis": data.name, "source": data.origin}
+        if data.sha256:
+            record["sha256"] = data.sha256
+        record["digest"] = shells_digest(sets[0] if len(sets) == 1 else tuple(sets))
+        records.append(record)
+    return _with_digest(records, data.origin)
 
 
 def _spectrum_info(spec: Spectrum) -> SpectrumInfo:
@@ -308,8 +353,6 @@ def prune_prepared(
     Returns (AuditResult with remedies, RemedyPlan). Raises UsageError when no shell-pruned
     basis reaches the target (for example because an atom would lose every function).
     """
-    from dataclasses import replace
-
     policy = policy or Policy()
     options = replace(options or RemedyOptions(), force=True, shell_pivoting=True)
     check_target(policy.caution if options.target is None else options.target)

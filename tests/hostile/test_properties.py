@@ -16,7 +16,8 @@ from hypothesis import strategies as st
 
 from auditor.base.errors import InputError, UsageError
 from auditor.inputs.basis import load_shells, read_basis_file
-from auditor.inputs.geometry import MAX_COORDINATE, check_atom_numbers, parse_atom_ranges, read_geometry
+from auditor.inputs.geometry import MAX_COORDINATE, check_atom_numbers, parse_atom_ranges
+from auditor.inputs.readers import read_geometry
 
 CANARY = Path("/tmp") / f"auditor-hypothesis-canary-{os.getpid()}"
 PY = f"__import__('pathlib').Path('{CANARY}').touch()"
