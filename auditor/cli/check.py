@@ -21,12 +21,14 @@ def check(
             "(every frame is audited)."
         ),
     ],
-    basis: o.Basis,
+    basis: o.Basis = None,
     basis_for: o.BasisFor = None,
     cartesian: o.Cartesian = False,
     basis_source: o.BasisSource = "pyscf",
     unit: o.Unit = "angstrom",
     ghost: o.Ghost = None,
+    input_format: o.InputFormat = None,
+    fragments: o.Fragments = None,
     out_dir: Annotated[Path, typer.Option("--out", "-o", help="Folder for the reports.")] = Path("audit_reports"),
     fmt: Annotated[
         str,
@@ -55,7 +57,9 @@ def check(
     max_input_mb: o.MaxInputMb = o.MAX_INPUT_MB,
 ) -> None:
     """Audit each geometry in one basis; write DIR/<stem>.json, .md and .html per frame.
-    Periodic inputs (CIF, extended XYZ with a Lattice, ...) are audited at every k-point.
+    Periodic inputs (CIF, extended XYZ with a Lattice, ...) are audited at every k-point;
+    multi-frame files also get DIR/<stem>.scan.*; --fragments (or fragments in the file)
+    adds the counterpoise combinations.
 
     Exit codes: 0 pass or caution, 1 fail, 2 usage error, 3 unreadable input, 4 too large, 5 internal error.
     """
@@ -73,6 +77,8 @@ def check(
         policy = Policy(caution=caution, fail=fail_level)
         o.check_unit(unit)
         o.check_ghost(ghost)
+        o.check_input_format(input_format)
+        o.check_fragments(fragments)
         remedies = False if no_remedies else o.remedy_options(target, trial_scf, trial_max_functions, trial_seconds)
         o.check_spectrum_method(spectrum)
         periodic = o.periodic_options(kmesh, precision)
@@ -92,6 +98,8 @@ def check(
             spectrum_method=spectrum,
             on_stage=on_stage,
             periodic=periodic,
+            input_format=input_format,
+            fragments=fragments,
         )
     for _, message, _ in outcome.errors:
         error_line(message)

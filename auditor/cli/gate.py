@@ -32,10 +32,10 @@ def gate(
             "or @LIST: a text file with one of these a line."
         ),
     ],
-    basis: o.Basis,
     out_dir: Annotated[
         Path, typer.Option("--out", "-o", help="Folder for summary.csv/.parquet, junit.xml, run.json and items/.")
     ],
+    basis: o.Basis = None,
     basis_for: o.BasisFor = None,
     cartesian: o.Cartesian = False,
     basis_source: o.BasisSource = "pyscf",
@@ -43,6 +43,7 @@ def gate(
     ghost: Annotated[
         str | None, typer.Option("--ghost", help="Atoms (1-based) that carry functions only, in every item.")
     ] = None,
+    input_format: o.InputFormat = None,
     jobs: Annotated[
         int | None, typer.Option("--jobs", "-j", help="Worker processes (default: the machine's cores).")
     ] = None,
@@ -115,7 +116,8 @@ def gate(
         gate_policy, options = _gate_options(
             spec, unit, ghost, policy_file, caution, fail_level, spectrum, with_remedies
         )
-        options = replace(options, periodic=o.periodic_options(kmesh, precision))
+        o.check_input_format(input_format)
+        options = replace(options, periodic=o.periodic_options(kmesh, precision), input_format=input_format)
         old = _baseline_rows(baseline)
         runner = _engine(scheduler, jobs, item_timeout)
         cache = _cache(cache_dir, no_cache)
@@ -162,7 +164,7 @@ def _check_options(
     o.check_ghost(ghost)
 
 
-def _spec(basis: str, basis_for: list[str] | None, cartesian: bool, source: str) -> BasisSpec:
+def _spec(basis: str | None, basis_for: list[str] | None, cartesian: bool, source: str) -> BasisSpec:
     from ..pipeline.run import make_spec
 
     return make_spec(basis, basis_for, cartesian, source)

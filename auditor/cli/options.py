@@ -14,7 +14,31 @@ if TYPE_CHECKING:
     from ..gate.periodic import PeriodicOptions
     from ..remedies.plan import RemedyOptions
 
-Basis = Annotated[str, typer.Option("--basis", "-b", help="Basis name pyscf knows, or a basis file (NWChem format).")]
+Basis = Annotated[
+    str | None,
+    typer.Option(
+        "--basis",
+        "-b",
+        help="Basis name pyscf knows, or a basis file (NWChem format); optional for inputs that carry "
+        "their basis (pyscf checkpoints, QCSchema inputs).",
+    ),
+]
+InputFormat = Annotated[
+    str | None,
+    typer.Option(
+        "--input-format",
+        help="Read every input as xyz, extxyz, pdb, sdf, qcschema, chk (pyscf checkpoint) or ase-json "
+        "(default: from the file name suffix).",
+    ),
+]
+Fragments = Annotated[
+    list[str] | None,
+    typer.Option(
+        "--fragments",
+        help="Atoms (1-based) of one fragment, e.g. 1-6; repeat for each fragment: counterpoise audit "
+        "(the complex, each fragment in the complex basis and in its own).",
+    ),
+]
 BasisFor = Annotated[
     list[str] | None, typer.Option("--basis-for", help="Per-element basis, ELEMENT=BASIS; repeatable.")
 ]
@@ -97,6 +121,21 @@ def check_unit(unit: str) -> None:
 def check_spectrum_method(method: str) -> None:
     if method not in ("auto", "full", "large"):
         raise UsageError(f"--spectrum must be auto, full or large, got {method!r}")
+
+
+def check_input_format(fmt: str | None) -> None:
+    if fmt is not None:
+        from ..inputs.readers import check_input_format as check
+
+        check(fmt)
+
+
+def check_fragments(fragments: list[str] | None) -> None:
+    """The syntax of each --fragments (the atoms are checked against each file later)."""
+    if fragments:
+        from ..inputs.fragments import parse_fragment_option
+
+        parse_fragment_option(fragments)
 
 
 def check_ghost(ghost: str | None) -> None:

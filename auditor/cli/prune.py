@@ -15,8 +15,7 @@ from .periodic import prune_cell_file
 
 # size: the signature declares one parameter per command-line option
 def prune(
-    geometry: Annotated[Path, typer.Argument(help="XYZ / extended XYZ file.")],
-    basis: o.Basis,
+    geometry: Annotated[Path, typer.Argument(help="A geometry file (XYZ, PDB, SDF, QCSchema, pyscf checkpoint, ...).")],
     out_dir: Annotated[
         Path, typer.Option("--out", "-o", help="Folder for <stem>.pruned.json, <stem>.X.npy and <stem>.prune.md.")
     ],
@@ -24,11 +23,13 @@ def prune(
         float | None,
         typer.Option("--target", help="Smallest eigenvalue the pruned basis must reach (default: the caution level)."),
     ] = None,
+    basis: o.Basis = None,
     basis_for: o.BasisFor = None,
     cartesian: o.Cartesian = False,
     basis_source: o.BasisSource = "pyscf",
     unit: o.Unit = "angstrom",
     ghost: o.Ghost = None,
+    input_format: o.InputFormat = None,
     frame: Annotated[int, typer.Option("--frame", help="Frame of a multi-frame file (1-based).")] = 1,
     caution: Annotated[float, typer.Option("--caution", help="Caution level (the default target).")] = 1e-5,
     fail_level: Annotated[float, typer.Option("--fail", help="Fail level (bounds the advised threshold).")] = 1e-7,
@@ -59,6 +60,7 @@ def prune(
 
     try:
         o.check_unit(unit)
+        o.check_input_format(input_format)
         options = o.remedy_options(target, trial_scf, trial_max_functions, trial_seconds)
         spec = make_spec(basis, basis_for, cartesian, basis_source)
         policy = Policy(caution=caution, fail=fail_level)
@@ -68,7 +70,7 @@ def prune(
             prune_cell_file(geometry, spec, policy, options, periodic, unit, ghost, frame, out_dir, quiet)
         if periodic.asked:
             raise not_periodic(geometry)
-        frames = load_molecules(geometry, unit=unit, ghost=ghost)
+        frames = load_molecules(geometry, unit=unit, ghost=ghost, input_format=input_format)
         if not 1 <= frame <= len(frames):
             raise UsageError(f"{geometry}: frame {frame} requested, file has {len(frames)} frame(s)")
         prep = prepare(frames[frame - 1], spec)

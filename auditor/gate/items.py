@@ -18,7 +18,7 @@ from ..report.naming import report_stem, unique_name
 from .periodic import Crystal, PeriodicOptions, is_periodic, load_cells
 
 #: file names a directory argument contributes (recursively)
-GEOMETRY_PATTERNS = ("*.xyz", "*.extxyz", "*.cif")
+GEOMETRY_PATTERNS = ("*.xyz", "*.extxyz", "*.cif", "*.pdb", "*.sdf", "*.mol", "*.chk")
 
 
 @dataclass(frozen=True)
@@ -32,6 +32,7 @@ class GateOptions:
     spectrum_method: str = "auto"
     remedies: bool = False  # remedies cost several times the audit on small molecules; opt in
     periodic: PeriodicOptions | None = None  # the mesh and precision of periodic items
+    input_format: str | None = None  # --input-format: every file read with this reader
 
 
 @dataclass
@@ -137,7 +138,7 @@ def collect_items(args: list[str], options: GateOptions, patterns: Sequence[str]
             if is_periodic(f):
                 frames: list = load_cells(f, unit=options.unit, ghost=options.ghost)
             else:
-                frames = load_molecules(f, unit=options.unit, ghost=options.ghost)
+                frames = load_molecules(f, unit=options.unit, ghost=options.ghost, input_format=options.input_format)
         except Exception as exc:  # one unreadable file is that item's error, never the run's end
             message, _ = failure(exc)
             items.append(Item(shown, None, error=message if isinstance(exc, AuditorError) else f"{shown}: {message}"))

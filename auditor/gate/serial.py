@@ -12,11 +12,14 @@ from ..base.errors import EXIT_FAIL, EXIT_INPUT, EXIT_OK, AuditorError, failure
 from ..base.files import protect
 from ..diagnosis.verdict import Policy
 from ..inputs.basis import BasisSpec
+from ..inputs.fragments import fragments_for
 from ..inputs.readers import load_molecules
+from ..pipeline.counterpoise import audit_counterpoise
 from ..pipeline.result import AuditResult
 from ..pipeline.run import audit_prepared, prepare
 from ..remedies.plan import RemedyOptions
 from ..report.naming import distinct_labels, report_stem, unique_name
+from ..report.scan import write_scan
 from ..report.writers import write_reports
 from .items import expand_inputs
 from .periodic import PeriodicOptions, is_periodic, not_periodic, periodic_results
@@ -50,6 +53,8 @@ class _Settings:
     periodic: PeriodicOptions | None
     on_result: Callable[[AuditResult], None] | None
     on_stage: Callable[[str, str], None] | None
+    input_format: str | None = None
+    fragments: tuple[str, ...] | None = None  # --fragments: a counterpoise audit of every frame
 
 
 def audit_paths(
@@ -65,16 +70,32 @@ def audit_paths(
     remedies: bool | RemedyOptions = True,
     on_stage: Callable[[str, str], None] | None = None,
     periodic: PeriodicOptions | None = None,
+    input_format: str | None = None,
+    fragments: Sequence[str] | None = None,
 ) -> RunOutcome:
     """Audit every frame of every file named by ``paths`` (files, folders searched
     recursively, glob patterns and @lists, as for the gate); collect errors per input
     instead of stopping. Reports of inputs that share a file name get enough of their path
     in the stem to tell them apart. ``on_stage(label, step)`` is told each step of each audit
     as it starts (for a progress display). Periodic files (auditor.gate.periodic) take the
-    periodic path with ``periodic``'s mesh."""
+    periodic path with ``periodic``'s mesh. ``input_format`` forces a reader; ``fragments``
+    (--fragments values), or fragments in a file, make each frame a counterpoise audit.
+    Multi-frame files also get a scan report (auditor.report.scan)."""
     files, missing = expand_inputs([str(p) for p in paths])
     settings = _Settings(
-        spec, policy, out, formats, unit, ghost, spectrum_method, remedies, periodic, on_result, on_stage
+        spec,
+        policy,
+        out,
+        formats,
+        unit,
+        ghost,
+        spectrum_method,
+        remedies,
+        periodic,
+        on_result,
+        on_stage,
+        input_format,
+        tuple(fragments) if fragments else None,
     )
     with protect([*files, *spec.files()]):
         outcome = _audit_each(files, settings)
@@ -87,13 +108,19 @@ def _audit_each(paths: list[Path], s: _Settings) -> RunOutcome:
     used: set[str] = set()
     for path, label in zip(paths, distinct_labels([str(p) for p in paths])):
         try:
-            for result in _results(path, label, s):
+            frames: list[AuditResult] = []
+            comments: list[str] = []
+            for result in _results(path, label, s, comments):
                 if s.out is not None:
                     base = report_stem(label.replace("/", "__"), result.input.frame, result.input.n_frames)
                     outcome.written += write_reports(result, s.out, s.formats, unique_name(base, used))
                 outcome.results.append(result)
+                frames.append(result)
                 if s.on_result:
                     s.on_result(result)
+            if s.out is not None and len(frames) > 1:  # a scan: the curve over the frames
+                stem = unique_name(report_stem(label.replace("/", "__"), 1, 1) + ".scan", used)
+                outcome.written += write_scan(frames, s.out, s.formats, stem, comments)
         except Exception as exc:  # one broken file must not stop the others
             message, code = failure(exc)
             named = str(path) in message and isinstance(exc, AuditorError)
@@ -101,8 +128,9 @@ def _audit_each(paths: list[Path], s: _Settings) -> RunOutcome:
     return outcome
 
 
-def _results(path: Path, label: str, s: _Settings) -> Iterator[AuditResult]:
-    """The audit of every frame of one file, one at a time."""
+def _results(path: Path, label: str, s: _Settings, comments: list[str]) -> Iterator[AuditResult]:
+    """The audit of every frame of one file, one at a time (each frame's comment line
+    appended to ``comments``)."""
     if is_periodic(path):
         yield from periodic_results(
             path, s.spec, s.policy, s.unit, s.ghost, s.periodic or PeriodicOptions(), s.remedies
@@ -110,8 +138,13 @@ def _results(path: Path, label: str, s: _Settings) -> Iterator[AuditResult]:
         return
     if s.periodic is not None and s.periodic.asked:
         raise not_periodic(path)
-    for mol in load_molecules(path, unit=s.unit, ghost=s.ghost):
+    for mol in load_molecules(path, unit=s.unit, ghost=s.ghost, input_format=s.input_format):
         stage = _stage_of(s.on_stage, label + (f" [{mol.frame + 1}]" if mol.n_frames > 1 else ""))
+        comments.append(mol.comment)
+        fragments = fragments_for(mol, s.fragments)
+        if fragments:
+            yield audit_counterpoise(mol, fragments, s.spec, s.policy, s.spectrum_method, s.remedies, stage)[0]
+            continue
         prep = prepare(mol, s.spec, s.spectrum_method, stage)
         yield audit_prepared(prep, s.policy, s.spectrum_method, s.remedies, stage)
 

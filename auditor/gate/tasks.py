@@ -10,7 +10,7 @@ from pathlib import Path
 from .. import __version__
 from ..base.errors import InputError, UsageError, failure
 from ..diagnosis.verdict import Policy
-from ..inputs.basis import BasisSpec, load_shells
+from ..inputs.basis import BasisSpec, FileBasis, load_shells
 from ..inputs.geometry import Molecule
 from ..report.json_report import dumps_result
 from ..report.rows import brief
@@ -45,19 +45,24 @@ def _versions() -> dict:
 def _geometry(mol: Molecule | Crystal) -> dict:
     if isinstance(mol, Crystal):
         return crystal_geometry(mol)  # with the lattice: part of the cache key
-    return {
+    record = {
         "symbols": list(mol.symbols),
         "coords": [[float(x) for x in row] for row in mol.coords],
         "ghost": [bool(g) for g in mol.ghost],
         "charge": int(mol.charge),
         "multiplicity": mol.multiplicity,
     }
+    if mol.bohr is not None:  # the file's own numbers (QCSchema, checkpoints)
+        record["bohr"] = [[float(x) for x in row] for row in mol.bohr]
+    if mol.basis is not None:  # the basis the input carries: part of the item and of its key
+        record["basis"] = mol.basis.as_dict()
+    return record
 
 
 def run_context(options: GateOptions) -> dict:
     """Everything besides the geometry that a result depends on (part of every cache key)."""
     names = [options.spec.default, *options.spec.per_element.values()]
-    files = {n: file_digest(Path(n).expanduser()) for n in names if Path(n).expanduser().is_file()}
+    files = {n: file_digest(Path(n).expanduser()) for n in names if n and Path(n).expanduser().is_file()}
     return {
         "basis": options.spec.as_dict(),
         "basis_files": files,
@@ -116,6 +121,8 @@ def run_item(payload: str) -> str:
             source=p["source"],
             frame=p["frame"],
             n_frames=p["n_frames"],
+            basis=FileBasis.from_dict(g["basis"], p["source"]) if "basis" in g else None,
+            bohr=np.asarray(g["bohr"], dtype=float) if "bohr" in g else None,
         )
         b = p["basis"]
         spec = BasisSpec(b["default"], dict(b["per_element"]), bool(b["cartesian"]), str(b.get("source", "pyscf")))
@@ -161,7 +168,7 @@ def check_basis_names(spec: BasisSpec, elements: Iterable[str]) -> None:
     """A basis name that neither pyscf nor the file system knows is a usage error, not one
     error per item. (load_shells imports pyscf: this runs where the audits run.)"""
     elements = set(elements)
-    for name in sorted({spec.for_element(el) for el in elements}):
+    for name in sorted({spec.for_element(el) for el in elements} - {""}):  # "": the items' own bases
         users = sorted(el for el in elements if spec.for_element(el) == name)
         try:
             load_shells(name, users[0], spec.source)

@@ -52,7 +52,8 @@ class BasisSpec:
         kind = "cartesian" if self.cartesian else "spherical"
         copy = ", basis_set_exchange" if self.source == "bse" else ""
         origin = f" (data of the {self.data.origin})" if self.data is not None else ""
-        return f"{self.default}" + (f" ({extra})" if extra else "") + origin + f" [{kind}{copy}]"
+        name = self.default or "each input's own basis"
+        return name + (f" ({extra})" if extra else "") + origin + f" [{kind}{copy}]"
 
     def files(self) -> list[str]:
         """The basis files this specification names (inputs: never overwritten)."""

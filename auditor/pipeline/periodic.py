@@ -64,6 +64,8 @@ def prepare_cell(
 ) -> PreparedCell:
     """Build the cell, guard the memory, compute S(k) on the mesh with the lattice-sum check."""
     precision = P.DEFAULT_PRECISION if precision is None else float(precision)
+    if not spec.default:
+        raise UsageError(f"{crystal.source}: no basis: a periodic input carries none; give one (--basis)")
     if not (0.0 < precision < 1.0):
         raise UsageError(f"--precision must lie between 0 and 1, got {precision:g}")
     chosen = kmesh or default_kmesh(crystal)

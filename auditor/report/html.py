@@ -18,6 +18,7 @@ from typing import TYPE_CHECKING, Any
 from ..base.files import atomic_write
 from ..base.jsonio import clean
 from ..diagnosis.findings import SEVERITY_ORDER
+from .counterpoise import counterpoise_html
 from .periodic import periodic_figures, periodic_html
 from .style import PAGE_CSS
 from .text import (
@@ -487,6 +488,7 @@ def render_html(result: AuditResult | dict, images: dict[str, bytes] | None = No
         *_page_top(d),
         *_figure_sections(d, images),
         periodic_html(d, images, num, _img),
+        counterpoise_html(d, num),
         '<h2 id="findings">Findings</h2>',
         _findings(d),
         '<h2 id="advice">Canonical orthogonalization</h2>',

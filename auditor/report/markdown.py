@@ -6,6 +6,7 @@ from pathlib import Path
 from typing import TYPE_CHECKING
 
 from ..base.files import atomic_write
+from .counterpoise import counterpoise_lines
 from .periodic import periodic_lines
 from .text import (
     X_NOTE,
@@ -40,6 +41,7 @@ def render_markdown(r: AuditResult | dict, extra_sections: list[str] | None = No
     lines = _heading_lines(d)
     lines += _spectrum_lines(d["spectrum"])
     lines += periodic_lines(d)
+    lines += counterpoise_lines(d)
     lines += _findings_lines(d["findings"])
     lines += _causes_lines(d)
     lines += _orthogonalization_lines(d["recommendation"], n_functions)
