@@ -65,7 +65,19 @@ def check_document(path: object, doc: object) -> None:
     error = best_match(_validator().iter_errors(doc))
     if error is not None:
         where = "/".join(str(p) for p in error.absolute_path) or "document"
-        raise InputError(f"{path}: not a QCSchema molecule or input: {where}: {error.message[:120]}")
+        raise InputError(f"{path}: not a QCSchema molecule or input: {where}: {_schema_message(error)}")
+
+
+def _schema_message(error: Any) -> str:
+    """A short reason for a schema error (the validator's own text can quote a pattern)."""
+    shown = json.dumps(error.instance)[:40] if not isinstance(error.instance, (dict, list)) else "this value"
+    if error.validator == "pattern":
+        return f"{shown} is not a plain number"
+    if error.validator == "type":
+        return f"{shown} should be of type {error.validator_value}"
+    if error.validator in ("oneOf", "anyOf"):
+        return f"{shown} is none of the forms QCSchema allows here"
+    return str(error.message)[:120]
 
 
 def _geometry(mol: dict, n: int, where: str) -> np.ndarray:

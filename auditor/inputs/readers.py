@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import json
 import os
+import re
 from collections.abc import Sequence
 from dataclasses import replace
 from pathlib import Path
@@ -42,6 +43,7 @@ SUFFIXES = {
     ".chk": "chk",
     ".cif": "cif",
 }
+_QCSCHEMA_TAG = re.compile(r'"schema_name"\s*:\s*"qcschema_(?:molecule|input)"')
 _ASE_NAMES = {"extxyz": "extxyz", "pdb": "proteindatabank", "ase-json": "json", "cif": "cif"}
 
 
@@ -71,8 +73,8 @@ def _json_kind(text: str) -> str:
     """'qcschema' when the document's schema_name is a QCSchema molecule or input, else 'ase-json'."""
     try:
         doc = json.loads(text)
-    except ValueError:
-        return "ase-json"  # ASE's reader gives the message
+    except (ValueError, RecursionError):  # a broken document: QCSchema if it says so, for its message
+        return "qcschema" if _QCSCHEMA_TAG.search(text[:100_000]) else "ase-json"
     return "qcschema" if isinstance(doc, dict) and doc.get("schema_name") in QCSCHEMA_NAMES else "ase-json"
 
 

@@ -236,6 +236,9 @@ def scan_png(doc: dict) -> bytes:
                     ax.axvline(x[first - 1], color=line.colour, ls=":", lw=0.9)
             ax.set_xlabel(label)
             ax.set_ylabel("smallest eigenvalue of S")
+        first = doc["first_frame_below"]
+        crossed = ", ".join(f"{k} at frame {v}" for k, v in first.items() if v is not None) or "no level crossed"
+        axes[0][0].set_title(f"Smallest eigenvalue per frame: {crossed}", loc="left")
         axes[0][0].legend(loc="best")
         fig.tight_layout()
         return _png(fig)

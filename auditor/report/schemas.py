@@ -17,6 +17,7 @@ SCHEMAS = {
     "item-error": ("item-error.schema.json", "auditor-item-error/1"),
     "pruned-basis": ("pruned-basis.schema.json", "auditor-pruned-basis/1"),
     "periodic-basis": ("periodic-basis.schema.json", "auditor-periodic-basis/1"),
+    "scan": ("scan.schema.json", "auditor-scan/1"),
 }
 
 _BY_TAG = {tag: name for name, (_, tag) in SCHEMAS.items()}

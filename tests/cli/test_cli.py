@@ -44,7 +44,12 @@ def test_format_json_only_and_multiframe(tmp_path):
     out = tmp_path / "o"
     res = run("check", f, "-b", "sto-3g", "-o", out, "--format", "json")
     assert res.exit_code == 0, res.output
-    assert sorted(p.name for p in out.iterdir()) == ["scan_f001.json", "scan_f002.json", "scan_f003.json"]
+    assert sorted(p.name for p in out.iterdir()) == [
+        "scan.scan.json",
+        "scan_f001.json",
+        "scan_f002.json",
+        "scan_f003.json",
+    ]
     frames = [json.loads((out / f"scan_f00{k}.json").read_text())["input"]["frame"] for k in (1, 2, 3)]
     assert frames == [1, 2, 3]
 

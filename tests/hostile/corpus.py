@@ -818,6 +818,280 @@ CLI_CASES: list[Case] = [
 ]
 
 
+# ---------------------------------------------------------------- readers of other formats
+
+
+def _h5(name: str, mol: object = None, other: bool = False) -> Callable[[Path], None]:
+    """An HDF5 file: a 'mol' entry holding ``mol`` (text, or JSON of a dict/list, or a
+    numeric array when ``mol`` is a number), or only an unrelated dataset (``other``)."""
+
+    def make(folder: Path) -> None:
+        import h5py
+        import numpy as np
+
+        with h5py.File(folder / name, "w") as fh:
+            if other:
+                fh["scf/e_tot"] = -76.0
+            elif isinstance(mol, (int, float)):
+                fh["mol"] = np.full(3, mol)
+            else:
+                fh["mol"] = mol if isinstance(mol, str) else json.dumps(mol)
+
+    return make
+
+
+def _water_chk(folder: Path) -> None:
+    from pyscf import gto, lib
+
+    lib.chkfile.save_mol(gto.M(atom=";".join(WATER_LINES), basis="sto-3g", verbose=0), str(folder / "w.chk"))
+
+
+def _truncated_chk(folder: Path) -> None:
+    _water_chk(folder)
+    data = (folder / "w.chk").read_bytes()
+    (folder / "w.chk").write_bytes(data[: len(data) // 2])
+
+
+_H2O_BOHR = [0.0, 0.0, 0.2217, 0.0, 1.4309, -0.8867, 0.0, -1.4309, -0.8867]
+_ATOM = [["O", _H2O_BOHR[0:3]], ["H", _H2O_BOHR[3:6]], ["H", _H2O_BOHR[6:9]]]
+_SHELLS = {"O": [[0, [5.0, 1.0]], [1, [1.0, 1.0]]], "H": [[0, [1.0, 1.0]]]}
+
+
+def _chk_mol(**changes) -> dict:
+    return {"_atom": _ATOM, "_basis": _SHELLS, "cart": False, **changes}
+
+
+def _qc(mol: dict | None = None, basis: object = "sto-3g", **changes) -> str:
+    m = {"schema_name": "qcschema_molecule", "symbols": ["O", "H", "H"], "geometry": _H2O_BOHR, **(mol or {})}
+    return json.dumps(
+        {"schema_name": "qcschema_input", "molecule": m, "model": {"method": "hf", "basis": basis}, **changes}
+    )
+
+
+def _qc_basis(exponent: object = 1.0, atom_map: tuple = ("O", "H", "H")) -> dict:
+    shell = {"harmonic_type": "spherical", "angular_momentum": [0], "exponents": [exponent], "coefficients": [[1.0]]}
+    center = {"electron_shells": [shell]}
+    return {
+        "schema_name": "qcschema_basis",
+        "name": "tiny",
+        "center_data": {"O": center, "H": center},
+        "atom_map": list(atom_map),
+    }
+
+
+_SDF_HEAD = "water\n  sketch\n\n"
+
+
+def _sdf(counts: str, atoms: list[str], tail: str = "M  END\n") -> str:
+    return _SDF_HEAD + counts + "\n" + "".join(a + "\n" for a in atoms) + tail
+
+
+_SDF_ATOMS = [f"{x:10.4f}{y:10.4f}{z:10.4f} {el:<3} 0  0" for el, x, y, z in
+              (("O", 0, 0, 0.1173), ("H", 0, 0.7572, -0.4692), ("H", 0, -0.7572, -0.4692))]  # fmt: skip
+CHK = ["check", "w.chk", "-o", "out", "-f", "json"]
+QC = ["check", "q.json", "-o", "out", "-f", "json"]
+SDF = ["check", "m.sdf", "-b", "sto-3g", "-o", "out", "-f", "json"]
+
+READER_CASES: list[Case] = [
+    _c("reader-chk-not-hdf5", "message", CHK, 3, "w.chk: not an HDF5 file", {"w.chk": "just text\n"}),
+    _c("reader-chk-no-molecule", "message", CHK, 3, "without a molecule", {}, setup=_h5("w.chk", other=True)),
+    _c(
+        "reader-chk-mol-not-json",
+        "message",
+        CHK,
+        3,
+        "w.chk: the stored molecule is not JSON",
+        {},
+        setup=_h5("w.chk", "{oops"),
+    ),
+    _c("reader-chk-mol-array", "message", CHK, 3, "w.chk: the 'mol' entry is not a text", {}, setup=_h5("w.chk", 1.5)),
+    _c(
+        "reader-chk-python-in-molecule",
+        "code",
+        CHK,
+        3,
+        "w.chk: the stored molecule has no atoms",
+        {},
+        setup=_h5("w.chk", {"atom": PY, "basis": PY, "_atom": PY}),
+        after=_no_canary,
+    ),
+    _c("reader-chk-no-basis", "message", CHK, 3, "no basis data", {}, setup=_h5("w.chk", {"_atom": _ATOM})),
+    _c(
+        "reader-chk-basis-infinite",
+        "hang",
+        CHK,
+        3,
+        "finite",
+        {},
+        setup=_h5("w.chk", json.dumps(_chk_mol()).replace("5.0", "1e999")),
+    ),
+    _c(
+        "reader-chk-basis-wrong-shape",
+        "crash",
+        CHK,
+        3,
+        "w.chk: basis of O",
+        {},
+        setup=_h5("w.chk", _chk_mol(_basis={"O": [[0, 1.0]], "H": [[0, [1.0, 1.0]]]})),
+    ),
+    _c(
+        "reader-chk-unknown-element",
+        "message",
+        CHK,
+        3,
+        "unknown element",
+        {},
+        setup=_h5("w.chk", _chk_mol(_atom=[["Qq", [0, 0, 0]], *_ATOM[1:]])),
+    ),
+    _c("reader-chk-truncated", "crash", CHK, 3, "w.chk", {}, setup=_truncated_chk),
+    _c(
+        "reader-chk-cartesian-option",
+        "wrong",
+        [*CHK, "--cartesian"],
+        2,
+        "carries its basis data",
+        {},
+        setup=_water_chk,
+    ),
+    _c("reader-qcschema-truncated", "message", QC, 3, "q.json: not valid JSON", {"q.json": _qc()[:60]}),
+    _c(
+        "reader-qcschema-geometry-length",
+        "message",
+        QC,
+        3,
+        "geometry holds 8 numbers",
+        {"q.json": _qc({"geometry": _H2O_BOHR[:8]})},
+    ),
+    _c("reader-qcschema-real-length", "message", QC, 3, "real has 2 values", {"q.json": _qc({"real": [True, False]})}),
+    _c(
+        "reader-qcschema-unknown-element",
+        "message",
+        QC,
+        3,
+        "unknown element",
+        {"q.json": _qc({"symbols": ["O", "H", "Qq"]})},
+    ),
+    _c("reader-qcschema-nan", "hang", QC, 3, "q.json: not valid JSON", {"q.json": _qc().replace("0.2217", "NaN")}),
+    _c(
+        "reader-qcschema-huge-coordinate", "hang", QC, 3, "q.json: atom 1", {"q.json": _qc().replace("0.2217", "1e400")}
+    ),
+    _c("reader-qcschema-wrong-type", "message", QC, 3, "not a QCSchema", {"q.json": _qc({"geometry": ["a"] * 9})}),
+    _c(
+        "reader-qcschema-missing-symbols",
+        "message",
+        QC,
+        3,
+        "not a QCSchema",
+        {"q.json": json.dumps({"schema_name": "qcschema_molecule", "geometry": _H2O_BOHR})},
+    ),
+    _c(
+        "reader-qcschema-fragments-overlap",
+        "wrong",
+        QC,
+        3,
+        "fragments must hold every atom",
+        {"q.json": _qc({"fragments": [[0, 1], [1, 2]]})},
+    ),
+    _c(
+        "reader-qcschema-basis-map",
+        "message",
+        QC,
+        3,
+        "atom_map has 2 entries",
+        {"q.json": _qc(basis=_qc_basis(atom_map=("O", "H")))},
+    ),
+    _c("reader-qcschema-basis-exponent", "wrong", QC, 3, "must be positive", {"q.json": _qc(basis=_qc_basis(-1.0))}),
+    _c(
+        "reader-qcschema-basis-text",
+        "code",
+        QC,
+        3,
+        "is not a plain number",
+        {"q.json": _qc(basis=_qc_basis(PY))},
+        after=_no_canary,
+    ),
+    _c("reader-qcschema-basis-is-a-file", "wrong", QC, 3, "names a file", {"q.json": _qc(basis="/etc/hostname")}),
+    _c("reader-qcschema-no-basis", "message", QC, 2, "no basis", {"q.json": _qc(basis=None)}),
+    _c(
+        "reader-sdf-truncated",
+        "message",
+        SDF,
+        3,
+        "m.sdf:4: the counts line announces 3 atoms",
+        {"m.sdf": _sdf("  3  2", _SDF_ATOMS[:1], "")},
+    ),
+    _c(
+        "reader-sdf-v3000",
+        "message",
+        SDF,
+        3,
+        "V3000",
+        {"m.sdf": _SDF_HEAD + "  0  0  0     0  0            999 V3000\nM  END\n"},
+    ),
+    _c(
+        "reader-sdf-coordinate-word",
+        "message",
+        SDF,
+        3,
+        "m.sdf:5: coordinates are not numbers",
+        {"m.sdf": _sdf("  3  0", ["    zero      0.0       0.0 O   0  0", *_SDF_ATOMS[1:]])},
+    ),
+    _c(
+        "reader-sdf-unknown-element",
+        "message",
+        SDF,
+        3,
+        "m.sdf:5: unknown element",
+        {"m.sdf": _sdf("  3  0", [_SDF_ATOMS[0].replace(" O ", " Qq"), *_SDF_ATOMS[1:]])},
+    ),
+    _c(
+        "reader-sdf-counts-word",
+        "message",
+        SDF,
+        3,
+        "m.sdf:4: expected a V2000 counts line",
+        {"m.sdf": _sdf("  a  b", _SDF_ATOMS)},
+    ),
+    _c("reader-xyz-dummy-atom", "message", CHECK_BAD, 3, "bad.xyz:3: 'X' names no element", _bad(xyz("X 0 0 0"))),
+    _c(
+        "reader-extxyz-ghost-column-type",
+        "message",
+        ["check", "bad.extxyz", *CHECK],
+        3,
+        "ghost column must be logical",
+        _bad(
+            "3\nProperties=species:S:1:pos:R:3:ghost:I:1\n" + "".join(f"{ln} 1\n" for ln in WATER_LINES),
+            "bad.extxyz",
+        ),
+    ),
+    _c(
+        "reader-input-format-unknown",
+        "message",
+        ["check", "w.xyz", *CHECK, "--input-format", "gaussian"],
+        2,
+        "--input-format",
+    ),
+    _c(
+        "reader-fragments-overlap",
+        "wrong",
+        ["check", "w.xyz", *CHECK, "--fragments", "1-2", "--fragments", "2-3"],
+        2,
+        "two fragments",
+    ),
+    _c(
+        "reader-gate-bad-checkpoint-among-good",
+        "crash",
+        ["gate", "w.xyz", "bad.chk", "-o", "gout", "--no-cache", "-j", "1", "-b", "sto-3g"],
+        1,
+        "bad.chk: not an HDF5 file",
+        {"w.xyz": WATER_XYZ, "bad.chk": "nothing\n"},
+        errors=1,
+        after=_summary_written,
+    ),
+]
+CLI_CASES += READER_CASES
+
+
 def _dask_silent(case: Case) -> Case:
     port = silent_listener()
     case.args = _dask(f"tcp://127.0.0.1:{port}")
