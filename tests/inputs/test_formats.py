@@ -227,3 +227,26 @@ def test_no_basis_anywhere_is_a_usage_error(tmp_path):
     xyz = write_xyz(tmp_path / "w.xyz", *WATER)
     with pytest.raises(UsageError, match="no basis"):
         auditor.audit(xyz, remedies=False)
+
+
+def test_gate_items_carry_their_own_basis_and_ghosts(tmp_path, monkeypatch):
+    from pyscf import gto, lib
+    from typer.testing import CliRunner
+
+    from auditor.cli import app
+
+    monkeypatch.chdir(tmp_path)
+    atom = "O 0 0 0.1173; H 0 0.7572 -0.4692; ghost-H 0 -0.7572 -0.4692"
+    mol = gto.M(atom=atom, basis="6-31g", spin=1, verbose=0)
+    lib.chkfile.save_mol(mol, "run.chk")
+    write_xyz(tmp_path / "w.xyz", ["O", "H", "Gh(H)"], WATER[1], comment="multiplicity=2")
+    res = CliRunner().invoke(app, ["gate", "run.chk", "w.xyz", "-o", "g", "--no-cache", "-j", "1"])
+    assert res.exit_code == 1  # w.xyz has no basis
+    assert "w.xyz: no basis" in res.output
+    chk = json.loads((tmp_path / "g" / "items" / "run.json").read_text())
+    assert chk["input"]["basis_data"]["from"] == "checkpoint" and chk["input"]["ghost_atoms"] == [3]
+    res = CliRunner().invoke(app, ["gate", "run.chk", "w.xyz", "-b", "6-31g", "-o", "h", "--no-cache", "-j", "1"])
+    assert res.exit_code == 0, res.output
+    items = {p.stem: json.loads(p.read_text()) for p in (tmp_path / "h" / "items").glob("*.json")}
+    assert items["w"]["input"]["ghost_atoms"] == [3]
+    assert items["w"]["spectrum"]["eigenvalues"] == items["run"]["spectrum"]["eigenvalues"]
