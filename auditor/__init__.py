@@ -14,6 +14,7 @@ _EXPORTS = {
     "audit_prepared": "pipeline.run",
     "load_molecules": "inputs.readers",
     "audit_cell": "pipeline.periodic",
+    "audit_counterpoise": "pipeline.counterpoise",
     "Crystal": "inputs.cell",
     "read_cells": "inputs.cell",
     "make_spec": "pipeline.run",

@@ -47,16 +47,20 @@ EXAMPLE_KEYS: dict[str, tuple[type, ...]] = {
     "note": (str,),
     "kmesh": (str,),
     "precision": (float,),
+    "fragments": (list,),
 }
+#: files that carry their own basis (QCSchema inputs, pyscf checkpoints): basis is optional
+OWN_BASIS_SUFFIXES = (".json", ".chk")
 
 
 def _check_example(path: Path, k: int, ex: object) -> None:
     where = f"{path}: example {k}"
     if not isinstance(ex, dict):
         raise InputError(f"{where}: expected a table ([[example]])")
-    for key in ("file", "basis"):
-        if key not in ex:
-            raise InputError(f"{where}: needs a {key}")
+    if "file" not in ex:
+        raise InputError(f"{where}: needs a file")
+    if "basis" not in ex and not str(ex["file"]).lower().endswith(OWN_BASIS_SUFFIXES):
+        raise InputError(f"{where}: needs a basis")
     for key, value in ex.items():
         if key not in EXAMPLE_KEYS:
             raise InputError(f"{where}: unknown key {key!r} (known: {', '.join(EXAMPLE_KEYS)})")
@@ -86,7 +90,7 @@ def run_demo(folder: Path, out: Path) -> tuple[RunOutcome, Path]:
     rows, items = [], []
     policy = Policy()
     for ex in load_manifest(folder):
-        spec = make_spec(ex["basis"], ex.get("basis_for"), bool(ex.get("cartesian", False)))
+        spec = make_spec(ex.get("basis"), ex.get("basis_for"), bool(ex.get("cartesian", False)))
         periodic = PeriodicOptions(parse_kmesh(ex.get("kmesh")), ex.get("precision"))
         o = audit_paths(
             [folder / ex["file"]],
@@ -97,6 +101,7 @@ def run_demo(folder: Path, out: Path) -> tuple[RunOutcome, Path]:
             unit=ex.get("unit", "angstrom"),
             ghost=ex.get("ghost"),
             periodic=periodic,
+            fragments=ex.get("fragments"),
         )
         total.results += o.results
         total.errors += o.errors
@@ -110,8 +115,9 @@ def run_demo(folder: Path, out: Path) -> tuple[RunOutcome, Path]:
             )
             items.append({**item_from_result(r, f"{stem}.html"), "path": Path(r.input.path).name})
         for p, msg, _ in o.errors:
-            rows.append(f"| {Path(p).name} | {ex['basis']} | | unreadable | | {msg} | {ex.get('note', '')} |")
-            items.append({**error_row(Path(p).name, None, "", ex["basis"], msg), "report": ""})
+            basis = ex.get("basis", "")
+            rows.append(f"| {Path(p).name} | {basis} | | unreadable | | {msg} | {ex.get('note', '')} |")
+            items.append({**error_row(Path(p).name, None, "", basis, msg), "report": ""})
     index = out / "index.md"
     atomic_write(
         index,

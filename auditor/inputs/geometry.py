@@ -215,6 +215,10 @@ def check_molecule(mol: Molecule) -> None:
     if len(mol.ghost) != n:
         raise UsageError(f"{where}: {len(mol.ghost)} ghost flags for {n} atoms")
     check_coordinates(coords, where)
+    if mol.bohr is not None:
+        bohr = np.asarray(mol.bohr, dtype=float)
+        if bohr.shape != (n, 3) or not np.isfinite(bohr).all():
+            raise InputError(f"{where}: the bohr coordinates must be {n} rows of three finite numbers")
     header_integer("charge", mol.charge, where)
     if mol.multiplicity is not None:
         header_integer("multiplicity", mol.multiplicity, where)

@@ -315,9 +315,11 @@ def audit(
 ) -> AuditResult:
     """Audit one geometry in one basis and return the result object.
 
-    ``source`` is a path to an XYZ / extended XYZ file (``frame`` picks a frame,
-    1-based), an ASE Atoms, a pyscf Mole (its own basis is used when ``basis`` is
-    None), or a Molecule. ``basis`` is a name pyscf knows or a basis file;
+    ``source`` is a path to a geometry file (XYZ, extended XYZ, PDB, SDF, QCSchema, a
+    pyscf checkpoint, ...; ``frame`` picks a frame, 1-based), an ASE Atoms, a pyscf Mole
+    (its own basis is used when ``basis`` is None), or a Molecule. ``basis`` is a name
+    pyscf knows or a basis file; None uses the basis the input carries (a checkpoint's, a
+    QCSchema input's);
     ``basis_for`` overrides it per element ({'H': 'cc-pvtz'} or ['H=cc-pvtz']);
     ``ghost`` marks atoms (1-based) as ghost atoms; ``remedies`` is True, False or a
     ``auditor.RemedyOptions`` (target, opt-in trial SCF).

@@ -80,13 +80,15 @@ def pruned_basis(
     if len(entries) != table.n_shells:
         raise InputError("pyscf shells and the function table disagree; cannot write a pruned basis")
     pruned_atoms = {int(table.shell_atom[s]) - 1 for s in np.flatnonzero(~keep)}
+    own = [[[l, *prims] for s, (a, l, prims) in enumerate(entries) if a == i and keep[s]] for i in range(mol.n_atoms)]
+    bases = [("ghost-" if ghost else "") + sym for sym, ghost in zip(mol.symbols, mol.ghost)]
+    # atoms of one element whose shells differ (basis data read per atom) get labels of their own too
+    mixed = {b for b in bases if len({repr(own[i]) for i in range(mol.n_atoms) if bases[i] == b}) > 1}
     atoms, basis = [], {}
-    for i, (sym, ghost, xyz) in enumerate(zip(mol.symbols, mol.ghost, mol.coords)):
-        base = ("ghost-" if ghost else "") + sym
-        label = f"{base}{i + 1}" if i in pruned_atoms else base
+    for i, (base, xyz) in enumerate(zip(bases, mol.coords)):
+        label = f"{base}{i + 1}" if i in pruned_atoms or base in mixed else base
         atoms.append([label, [round(float(x), 10) for x in xyz]])
-        if label not in basis:
-            basis[label] = [[l, *prims] for s, (a, l, prims) in enumerate(entries) if a == i and keep[s]]
+        basis.setdefault(label, own[i])
     dropped = [shell_record(table, int(s)) for s in np.flatnonzero(~keep)]
     return {
         "format": PRUNED_FORMAT,

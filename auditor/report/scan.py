@@ -7,12 +7,12 @@ nothing: every number is a result's.
 
 The scan coordinate, in this order:
 
-1. From the comment lines: each comment's numbers, in order, each with the name before it
-   when written ``name=number``, ``name = number`` or ``name: number`` (charge and
-   multiplicity are left out). When every frame has the same names in the same order, the
-   positions whose values change from frame to frame and are not just the frame number are
-   candidates; one named like a coordinate (r, R, d, dist, distance, bond, coord,
-   coordinate, scan, q, angle, dihedral) is taken, else the only candidate, else none.
+1. From the comment lines: each comment's numbers, in order, each named by ``name=number``
+   (or ``name: number``) or else by the word just before it, with a unit right after it if
+   one is written (charge and multiplicity are left out). When every frame has the same
+   names in the same order, the positions whose values change from frame to frame and are
+   not just the frame number are candidates; one named like a coordinate (COORDINATE_NAMES,
+   any case) is taken, else the only candidate, else none.
 2. From the geometry: when exactly one interatomic distance changes (by more than 1e-4 Å
    from the first frame) and every other stays, that distance in ångström.
 """
@@ -36,30 +36,56 @@ from ..base.textio import NUMBER
 SCAN_SCHEMA = "auditor-scan/1"
 #: a distance changes when it moves by more than this from the first frame (ångström)
 DISTANCE_TOLERANCE = 1e-4
-COORDINATE_NAMES = ("r", "d", "dist", "distance", "bond", "coord", "coordinate", "scan", "q", "angle", "dihedral")
+COORDINATE_NAMES = (
+    "r",
+    "d",
+    "dist",
+    "distance",
+    "separation",
+    "bond",
+    "coord",
+    "coordinate",
+    "scan",
+    "q",
+    "angle",
+    "dihedral",
+)
 _SKIP = ("charge", "multiplicity", "mult", "properties", "lattice", "pbc")
-_TOKEN = re.compile(r"(?:([A-Za-z_][\w()]*)\s*[=:]\s*)?(" + NUMBER.pattern + r")(?![\w.])")
+_TOKEN = re.compile(
+    r"(?:([A-Za-z_][\w()]*)\s*[=:]\s*|([A-Za-z]+)\s+)?("
+    + NUMBER.pattern
+    + r")(?![\w.])(?:\s*(Å|A|Ang|angstrom|bohr|deg|degrees)(?!\w))?"
+)
 
 
 def comment_numbers(comment: str) -> list[tuple[str, float]]:
-    """(name or "", value) of every number in a comment line, in order."""
-    out = []
+    """(name or "", value) of every number in a comment line, in order: the name is the one
+    written ``name=number`` (or ``name: number``), else the word just before the number."""
+    return [(name, value) for name, value, _ in _comment_values(comment)]
+
+
+def _comment_values(comment: str) -> list[tuple[str, float, str | None]]:
+    """(name, value, unit or None) of every number in a comment line."""
+    out: list[tuple[str, float, str | None]] = []
     for m in _TOKEN.finditer(comment):
-        name = (m.group(1) or "").lower()
-        start = m.start(2)
-        if start > 0 and (comment[start - 1].isalnum() or comment[start - 1] in "_.") and not m.group(1):
+        name = m.group(1) or m.group(2) or ""
+        start = m.start(3)
+        if start > 0 and (comment[start - 1].isalnum() or comment[start - 1] in "_.") and not name:
             continue  # part of a word (H2O, x1)
-        if name in _SKIP:
+        if name.lower() in _SKIP:
             continue
-        value = float(m.group(2).replace("d", "e").replace("D", "e"))
+        value = float(m.group(3).replace("d", "e").replace("D", "e"))
         if math.isfinite(value):
-            out.append((m.group(1) or "", value))
+            unit: str | None = {"A": "Å", "Ang": "Å", "angstrom": "Å", "degrees": "deg"}.get(
+                m.group(4) or "", m.group(4)
+            )
+            out.append((name, value, unit))
     return out
 
 
 def _from_comments(comments: Sequence[str]) -> dict | None:
-    parsed = [comment_numbers(c) for c in comments]
-    names = [[n for n, _ in p] for p in parsed]
+    parsed = [_comment_values(c) for c in comments]
+    names = [[n for n, _, _ in p] for p in parsed]
     if not parsed[0] or any(n != names[0] for n in names):
         return None
     n = len(parsed)
@@ -68,12 +94,13 @@ def _from_comments(comments: Sequence[str]) -> dict | None:
         values = [p[pos][1] for p in parsed]
         frame_like = values in ([float(k) for k in range(1, n + 1)], [float(k) for k in range(n)])
         if len(set(values)) > 1 and not frame_like:
-            candidates.append((name, values))
+            candidates.append((name, values, parsed[0][pos][2]))
     named = [c for c in candidates if c[0].lower() in COORDINATE_NAMES]
     chosen = named[0] if named else (candidates[0] if len(candidates) == 1 else None)
     if chosen is None:
         return None
-    return {"source": "comment", "name": chosen[0] or "value in the comment line", "unit": None, "values": chosen[1]}
+    name = chosen[0] or "value in the comment line"
+    return {"source": "comment", "name": name, "unit": chosen[2], "values": chosen[1]}
 
 
 def _from_geometry(results: Sequence[Any]) -> dict | None:

@@ -12,6 +12,7 @@ import auditor
 from auditor.base.elements import BOHR_IN_ANGSTROM, atom_label
 from auditor.base.errors import InputError, UsageError
 from auditor.inputs.checkpoint import PYSCF_BOHR
+from auditor.inputs.pruned import load_pruned_doc
 from auditor.inputs.readers import read_geometry
 from auditor.pipeline.run import make_spec, prepare
 from helpers import WATER, write_xyz
@@ -250,3 +251,18 @@ def test_gate_items_carry_their_own_basis_and_ghosts(tmp_path, monkeypatch):
     items = {p.stem: json.loads(p.read_text()) for p in (tmp_path / "h" / "items").glob("*.json")}
     assert items["w"]["input"]["ghost_atoms"] == [3]
     assert items["w"]["spectrum"]["eigenvalues"] == items["run"]["spectrum"]["eigenvalues"]
+
+
+def test_prune_of_a_checkpoint_keeps_each_atoms_own_basis(tmp_path):
+    """Two hydrogens with different bases (per-label basis data): the pruned basis gives each its own."""
+    from pyscf import gto, lib
+
+    atom = "O 0 0 0.1173; H 0 0.7572 -0.4692; H1 0 -0.7572 -0.4692"
+    mol = gto.M(atom=atom, basis={"O": "cc-pvdz", "H": "sto-3g", "H1": "6-31g"}, verbose=0)
+    lib.chkfile.save_mol(mol, str(tmp_path / "run.chk"))
+    prep = prepare(read_geometry(tmp_path / "run.chk")[0], make_spec(None))
+    result, plan = auditor.prune_prepared(prep, options=auditor.RemedyOptions(target=0.05))
+    doc = plan.pruned
+    assert doc is not None and load_pruned_doc(doc).nao == doc["n_functions"]
+    labels = [a[0] for a in doc["atoms"]]
+    assert labels[1] != labels[2]  # H and H1 of the run keep their own shells

@@ -140,5 +140,36 @@ def test_scan_coordinate_from_the_one_changing_distance(tmp_path):
 
 
 def test_comment_numbers():
-    assert comment_numbers("step 3 r = 2.50 E=-76.1 charge=0 H2O") == [("", 3.0), ("r", 2.5), ("E", -76.1)]
+    assert comment_numbers("step 3 r = 2.50 E=-76.1 charge=0 H2O") == [("step", 3.0), ("r", 2.5), ("E", -76.1)]
+    assert comment_numbers("-1.5 monomer separation 2.9 A") == [("", -1.5), ("separation", 2.9)]
     assert comment_numbers("R: 1e-1") == [("R", 0.1)]
+
+
+def _lookup(doc, key):
+    for part in key.split("."):
+        doc = doc[int(part)] if isinstance(doc, list) else doc[part]
+    return doc
+
+
+def _tagged_numbers_match(page: str, doc: dict) -> int:
+    import html
+    import re
+
+    pairs = re.findall(r'data-key="([^"]+)" data-value="([^"]*)"', page)
+    for key, value in pairs:
+        assert json.loads(html.unescape(value)) == _lookup(doc, key), key
+    return len(pairs)
+
+
+def test_counterpoise_and_scan_pages_show_the_json_numbers(tmp_path):
+    from auditor.report.html import render_html
+    from auditor.report.scan import scan_html
+
+    (mol,) = auditor.load_molecules(write_xyz(tmp_path / "d.xyz", *DIMER))
+    result, _ = audit_counterpoise(mol, fragments_for(mol, ["1-3", "4-6"]), make_spec("sto-3g"), remedies=False)
+    doc = json.loads(auditor.to_json(result))
+    page = render_html(result, images={})
+    assert 'id="counterpoise"' in page and _tagged_numbers_match(page, doc) > 40
+    path = _he2_scan(tmp_path / "he2.xyz")
+    scan = scan_document([auditor.audit(path, "sto-3g", frame=k, remedies=False) for k in range(1, 11)])
+    assert _tagged_numbers_match(scan_html(scan, None), scan) == 50  # five numbers in each of ten rows
