@@ -84,7 +84,8 @@ def pruned_basis(
     bases = [("ghost-" if ghost else "") + sym for sym, ghost in zip(mol.symbols, mol.ghost)]
     # atoms of one element whose shells differ (basis data read per atom) get labels of their own too
     mixed = {b for b in bases if len({repr(own[i]) for i in range(mol.n_atoms) if bases[i] == b}) > 1}
-    atoms, basis = [], {}
+    atoms: list[list] = []
+    basis: dict[str, list] = {}
     for i, (base, xyz) in enumerate(zip(bases, mol.coords)):
         label = f"{base}{i + 1}" if i in pruned_atoms or base in mixed else base
         atoms.append([label, [round(float(x), 10) for x in xyz]])

@@ -46,6 +46,7 @@ def combination_name(row: dict) -> str:
 
 def _intro(part: dict) -> str:
     frags = "; ".join(f"fragment {f['fragment']}: atoms {_atoms(f['atoms'])}" for f in part["fragments"])
+    frags = frags[:1].upper() + frags[1:]
     return (
         f"{len(part['combinations'])} spectra: the complex, and each fragment in the complex basis (the other "
         f"fragments as ghost atoms) and in its own basis. {frags}. A fragment in the complex basis has the "
