@@ -297,7 +297,7 @@ def prune_prepared(
     from dataclasses import replace
 
     policy = policy or Policy()
-    options = replace(options or RemedyOptions(), force=True, shell_pivoting=True)
+    options = replace(options or RemedyOptions(), force=True)
     check_target(policy.caution if options.target is None else options.target)
     result = audit_prepared(prep, policy, remedies=False)
     if result.verdict_finding in BROKEN_KINDS:

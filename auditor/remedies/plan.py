@@ -178,42 +178,40 @@ def _shell_sets(s: Selection) -> tuple[np.ndarray, np.ndarray]:
     return s.kept_shells, s.dropped_shells
 
 
-def _best_shell_selection(
+#: The one rule for a whole-shell set, the same in `check`, `prune`, the gate and the API:
+#: the shells the function-level subset leaves whole, then the other shells offered back;
+#: shell pivoting only when that yields nothing (no shell left whole, or an atom emptied).
+#: Measured against the better of both sets (docs/numerics.md, "Whole shells"): as good in
+#: most cases, never more than a few functions worse, and shell pivoting's per-shell Python
+#: loop made `check` 1.2-7.7 times slower.
+WHOLE_SHELL_RULE = "shells the function-level subset leaves whole; shell pivoting when that yields nothing"
+
+
+def whole_shell_selection(
     S: np.ndarray,
-    table: FunctionTable,
     target: float,
     functions: Selection | None,
+    units: np.ndarray,
     atoms: np.ndarray,
     mode: str,
     problems: list[str],
-    shell_pivoting: bool = True,
+    what: str = "shell-pruned basis",
 ) -> Selection | None:
-    """The whole-shell kept set that drops fewer functions: shell pivoting, or the shells the
-    function-level subset leaves untouched (both followed by the add-back pass).
-
-    Without ``shell_pivoting`` only the cheap function-seeded set is tried (shell pivoting
-    then runs only when that fails): its per-shell Python loop costs several
-    eigendecompositions of S on a thousand functions."""
-    found, why = [], None
-    if shell_pivoting or functions is None:
-        try:
-            found.append(select_for_target(S, target, table.func_shell, atoms, verify=mode))
-        except UsageError as exc:
-            why = exc.message
+    """The whole-shell kept set by `WHOLE_SHELL_RULE` (``units`` numbers the shell, or the
+    set of symmetry-equivalent shells, of each function)."""
     if functions is not None:
-        seeded = shells_from_functions(S, functions, table.func_shell, verify=mode)
+        seeded = shells_from_functions(S, functions, units, verify=mode)
         if seeded is not None:
             try:
                 check_atoms_not_emptied(seeded.kept, atoms, what=f"target {target:g}")
-                found.append(seeded)
-            except UsageError as exc:
-                why = why or exc.message
-    if not found and not shell_pivoting and functions is not None:
-        return _best_shell_selection(S, table, target, None, atoms, mode, problems)
-    if not found:
-        problems.append(f"shell-pruned basis: {why or 'no whole-shell set reaches the target'}")
+                return seeded
+            except UsageError:
+                pass
+    try:
+        return select_for_target(S, target, units, atoms, verify=mode)
+    except UsageError as exc:
+        problems.append(f"{what}: {exc.message}")
         return None
-    return min(found, key=lambda s: s.n_dropped)  # ties: shell pivoting (listed first)
 
 
 def _alt(
@@ -276,11 +274,9 @@ def _add_function_subset(plan: RemedyPlan, S: np.ndarray, atoms: np.ndarray, mod
     )
 
 
-def _add_shell_pruning(
-    plan: RemedyPlan, prep: PreparedGeometry, atoms: np.ndarray, mode: str, shell_pivoting: bool
-) -> None:
-    s = plan.shells = _best_shell_selection(
-        prep.S, prep.table, plan.target, plan.functions, atoms, mode, plan.problems, shell_pivoting
+def _add_shell_pruning(plan: RemedyPlan, prep: PreparedGeometry, atoms: np.ndarray, mode: str) -> None:
+    s = plan.shells = whole_shell_selection(
+        prep.S, plan.target, plan.functions, prep.table.func_shell, atoms, mode, plan.problems
     )
     if s is None:
         return
@@ -347,7 +343,6 @@ def plan_remedies(
     smallest: float,
     target: float,
     force: bool = False,
-    shell_pivoting: bool = True,
 ) -> RemedyPlan:
     """Work out every remedy for a prepared geometry and rank them.
 
@@ -368,7 +363,7 @@ def plan_remedies(
     if recommendation.threshold is not None:  # none is advised for a broken geometry
         plan.alternatives.append(_canonical(recommendation, target))
     _add_function_subset(plan, S, atoms, mode)
-    _add_shell_pruning(plan, prep, atoms, mode, shell_pivoting)
+    _add_shell_pruning(plan, prep, atoms, mode)
     _add_diffuse_options(plan, S, table)
     plan.alternatives = rank_alternatives(plan.alternatives, table.n_functions)
     return plan
@@ -378,15 +373,14 @@ def plan_remedies(
 class RemedyOptions:
     """How remedies are worked out: ``target`` smallest eigenvalue (None: the policy's
     caution level), an opt-in trial SCF (``trial_scf`` "hf" or a functional name) with
-    its size and time limits, ``force`` to compute even when nothing needs removing, and
-    ``shell_pivoting`` for the thorough (slower) whole-shell search that `prune` uses."""
+    its size and time limits, and ``force`` to compute even when nothing needs removing.
+    The whole-shell set follows one rule everywhere (`WHOLE_SHELL_RULE`)."""
 
     target: float | None = None
     trial_scf: str | None = None
     trial_max_functions: int = 400
     trial_time_limit: float = 120.0
     force: bool = False
-    shell_pivoting: bool = False
 
 
 def make_plan(
@@ -394,9 +388,7 @@ def make_plan(
 ) -> RemedyPlan:
     """`plan_remedies` plus the opt-in trial SCF."""
     target = caution if options.target is None else options.target
-    plan = plan_remedies(
-        prep, recommendation, smallest, target, force=options.force, shell_pivoting=options.shell_pivoting
-    )
+    plan = plan_remedies(prep, recommendation, smallest, target, force=options.force)
     if options.trial_scf:
         if plan.needed or options.force:
             plan.trial_scf = trial_scf(
