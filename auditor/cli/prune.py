@@ -28,7 +28,12 @@ def prune(
     basis_source: o.BasisSource = "pyscf",
     unit: o.Unit = "angstrom",
     ghost: o.Ghost = None,
-    frame: Annotated[int, typer.Option("--frame", help="Frame of a multi-frame file (1-based).")] = 1,
+    frame: Annotated[
+        int | None,
+        typer.Option(
+            "--frame", help="Prune for this frame alone (1-based); default: one basis for every frame of the file."
+        ),
+    ] = None,
     caution: Annotated[float, typer.Option("--caution", help="Caution level (the default target).")] = 1e-5,
     fail_level: Annotated[float, typer.Option("--fail", help="Fail level (bounds the advised threshold).")] = 1e-7,
     trial_scf: o.TrialScf = None,
@@ -36,17 +41,19 @@ def prune(
     trial_seconds: o.TrialSeconds = 120.0,
     quiet: o.Quiet = False,
 ) -> None:
-    """Write a shell-pruned basis that reaches a target smallest eigenvalue, the canonical
-    orthogonalization matrix X, and a Markdown explanation.
+    """Write a shell-pruned basis that reaches a target smallest eigenvalue (in every frame of
+    a multi-frame file, unless --frame picks one), the canonical orthogonalization matrix X,
+    and a Markdown explanation.
 
     Exit codes: 0 written, 2 usage error (bad target, a pruning that empties an atom),
-    3 unreadable input, 5 internal error.
+    3 unreadable input, 4 too large, 5 internal error.
     """
     # heavy (numpy, pyscf, matplotlib): imported when the command runs, see the package docstring
     from ..base.files import protect
     from ..diagnosis.verdict import Policy
     from ..inputs.geometry import load_molecules
-    from ..pipeline.run import make_spec, prepare, prune_prepared
+    from ..pipeline.frames import prepare_frames, prune_frames
+    from ..pipeline.run import make_spec
     from ..report.naming import report_stem
     from ..report.pruned_files import write_prune_outputs
     from ..report.terminal import print_remedies
@@ -57,24 +64,27 @@ def prune(
         spec = make_spec(basis, basis_for, cartesian, basis_source)
         policy = Policy(caution=caution, fail=fail_level)
         frames = load_molecules(geometry, unit=unit, ghost=ghost)
-        if not 1 <= frame <= len(frames):
+        if frame is not None and not 1 <= frame <= len(frames):
             raise UsageError(f"{geometry}: frame {frame} requested, file has {len(frames)} frame(s)")
-        prep = prepare(frames[frame - 1], spec)
-        result, plan = prune_prepared(prep, policy, options)
-        stem = report_stem(str(geometry), frame, len(frames))
+        preps = prepare_frames(frames if frame is None else [frames[frame - 1]], spec)
+        results, plan = prune_frames(preps, policy, options)
+        stem = report_stem(str(geometry), frame or 1, 1 if frame is None else len(frames))
         with protect([geometry, *spec.files()]):
-            paths = write_prune_outputs(result, plan, prep, out_dir, stem)
+            paths = write_prune_outputs(results, plan, preps, out_dir, stem)
     except AuditorError as exc:
         fail(exc.message, exc.exit_code)
     if not quiet:
-        doc = plan.pruned or {}  # prune_prepared raises when no pruned basis was found
+        doc = plan.pruned or {}  # prune_frames raises when no pruned basis was found
+        every = (
+            f" in every one of {len(results)} frames (frame {plan.deciding_frame} decides)" if len(results) > 1 else ""
+        )
         out.print(
             f"{geometry.name}: kept {doc['n_functions']} of {doc['n_functions_full']} functions, "
             f"dropped {len(doc['dropped_shells'])} shell(s); smallest eigenvalue "
-            f"{doc['smallest_eigenvalue']:.3e} (target {plan.target:.1e}, full basis "
-            f"{result.spectrum.smallest:.3e})",
+            f"{doc['smallest_eigenvalue']:.3e}{every} (target {plan.target:.1e}, full basis "
+            f"{min(r.spectrum.smallest for r in results):.3e})",
             markup=False,
         )
-        print_remedies([result], out, always=True)
+        print_remedies(results, out, always=True)
         out.print("wrote " + ", ".join(str(p) for p in paths), markup=False)
     raise typer.Exit(0)

@@ -13,8 +13,8 @@ from ..base.files import protect
 from ..diagnosis.verdict import Policy
 from ..inputs.basis import BasisSpec
 from ..inputs.geometry import load_molecules
+from ..pipeline.frames import audit_frames
 from ..pipeline.result import AuditResult
-from ..pipeline.run import audit_prepared, prepare
 from ..remedies.plan import RemedyOptions
 from ..report.naming import distinct_labels, report_stem, unique_name
 from ..report.writers import write_reports
@@ -47,9 +47,9 @@ def audit_paths(
     remedies: bool | RemedyOptions = True,
 ) -> RunOutcome:
     """Audit every frame of every file named by ``paths`` (files, folders searched
-    recursively, glob patterns and @lists, as for the gate); collect errors per input
-    instead of stopping. Reports of inputs that share a file name get enough of their path
-    in the stem to tell them apart."""
+    recursively, glob patterns and @lists, as for the gate), the frames of one file as one
+    job (`audit_frames`); collect errors per input instead of stopping. Reports of inputs
+    that share a file name get enough of their path in the stem to tell them apart."""
     files, missing = expand_inputs([str(p) for p in paths])
     with protect([*files, *spec.files()]):
         outcome = _audit_each(files, spec, policy, out, formats, unit, ghost, spectrum_method, on_result, remedies)
@@ -64,8 +64,8 @@ def _audit_each(paths, spec, policy, out, formats, unit, ghost, spectrum_method,
     for path, label in zip(paths, labels):
         try:
             frames = load_molecules(path, unit=unit, ghost=ghost)
-            for mol in frames:
-                result = audit_prepared(prepare(mol, spec, spectrum_method), policy, spectrum_method, remedies)
+            # every frame of one file is one job: one threshold and one set of remedies for all
+            for mol, result in zip(frames, audit_frames(frames, spec, policy, spectrum_method, remedies)):
                 if out is not None:
                     stem = unique_name(report_stem(label.replace("/", "__"), mol.frame + 1, mol.n_frames), used)
                     outcome.written += write_reports(result, out, formats, stem)

@@ -63,14 +63,32 @@ def _shell_entries(pm) -> list[tuple[int, int, list[list[float]]]]:
     return out
 
 
+def pruned_labels(prep: PreparedGeometry, keep: np.ndarray) -> list[str]:
+    """pyscf atom labels of a pruning (``keep``: a flag per shell). Atoms that keep every shell
+    share their element's label ("H", "ghost-H"); atoms that lose some share a label with
+    every atom of the same element that keeps the same shells: the element and the 1-based
+    number of the first of them ("H5", "ghost-H5"). pyscf treats atoms with one label as
+    one kind, so the labels carry exactly the differences between the atoms' basis sets."""
+    mol, table = prep.molecule, prep.table
+    labels: list[str] = []
+    first: dict[tuple[str, tuple[bool, ...]], str] = {}
+    for i, (sym, ghost) in enumerate(zip(mol.symbols, mol.ghost)):
+        base = ("ghost-" if ghost else "") + sym
+        pattern = tuple(keep[table.shell_atom == i + 1].tolist())
+        if all(pattern):
+            labels.append(base)
+        else:
+            labels.append(first.setdefault((base, pattern), f"{base}{i + 1}"))
+    return labels
+
+
 def pruned_basis(
     prep: PreparedGeometry, kept_shells: Iterable[int], target: float | None = None, smallest: float | None = None
 ) -> dict:
     """The pyscf-ready document of a basis that keeps only ``kept_shells`` (0-based).
 
-    Atoms that lose a shell get a label of their own (element plus 1-based atom number,
-    e.g. "H5"); the others share the element's label. Raises UsageError if an atom
-    would keep no function.
+    Atoms are labelled by `pruned_labels`. Raises UsageError if an atom would keep no
+    function.
     """
     mol, table = prep.molecule, prep.table
     keep = np.zeros(table.n_shells, dtype=bool)
@@ -79,11 +97,8 @@ def pruned_basis(
     entries = _shell_entries(prep.mole)
     if len(entries) != table.n_shells:
         raise InputError("pyscf shells and the function table disagree; cannot write a pruned basis")
-    pruned_atoms = {int(table.shell_atom[s]) - 1 for s in np.flatnonzero(~keep)}
     atoms, basis = [], {}
-    for i, (sym, ghost, xyz) in enumerate(zip(mol.symbols, mol.ghost, mol.coords)):
-        base = ("ghost-" if ghost else "") + sym
-        label = f"{base}{i + 1}" if i in pruned_atoms else base
+    for i, (label, xyz) in enumerate(zip(pruned_labels(prep, keep), mol.coords)):
         atoms.append([label, [round(float(x), 10) for x in xyz]])
         if label not in basis:
             basis[label] = [[l, *prims] for s, (a, l, prims) in enumerate(entries) if a == i and keep[s]]
