@@ -16,7 +16,7 @@ from typing import Annotated
 import typer
 
 from ..base.errors import EXIT_INTERNAL
-from . import check, demo, gate, prune
+from . import check, demo, gate, ladder, prune
 from .console import err
 
 app = typer.Typer(
@@ -25,7 +25,7 @@ app = typer.Typer(
     help="Audit Gaussian basis sets for near-linear dependence: overlap spectrum, causes, remedies.",
     pretty_exceptions_enable=False,
 )
-for command in (check.check, prune.prune, demo.demo, gate.gate):
+for command in (check.check, prune.prune, ladder.ladder, demo.demo, gate.gate):
     app.command()(command)
 
 

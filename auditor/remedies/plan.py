@@ -20,6 +20,7 @@ from ..numerics.overlap import FunctionTable
 from ..numerics.spectrum import Spectrum
 from .canonical import Recommendation
 from .frames import frame_order, joint_select
+from .ladder import named_basis_remedy
 from .prepared import PreparedGeometry
 from .pruned_basis import function_record, pruned_basis, shell_record
 from .records import (
@@ -27,6 +28,8 @@ from .records import (
     DiffuseOption,
     FrameFigures,
     FunctionSubset,
+    NamedBasis,
+    NamedRung,
     Remedies,
     ShellPruning,
     SymmetryInfo,
@@ -84,6 +87,7 @@ class RemedyPlan:
     shells: Selection | None = None
     free_shells: Selection | None = None
     symmetry: SymmetryInfo | None = None
+    named_basis: NamedBasis | None = None
     pruned: dict | None = None
     alternatives: list[Alternative] = field(default_factory=list)
     diffuse: list[DiffuseOption] = field(default_factory=list)
@@ -102,6 +106,7 @@ class RemedyPlan:
             cholesky_shells=None if self.shells is None else _shell_pruning(self.shells, table),
             cholesky_shells_unconstrained=None if self.free_shells is None else _shell_pruning(self.free_shells, table),
             symmetry=self.symmetry,
+            named_basis=self.named_basis,
             diffuse_by_element=list(self.diffuse),
             problems=list(self.problems),
             frames=self.frames,
@@ -275,6 +280,36 @@ def _add_diffuse_options(plan: RemedyPlan, Ss: list[np.ndarray], table: Function
             )
 
 
+def _add_named_basis(plan: RemedyPlan, fr: _Frames, n: int) -> None:
+    """The largest smaller published relative of the requested basis that meets the target."""
+    prep = fr.worst
+    ladder = named_basis_remedy([p.molecule for p in fr.preps], prep.spec, plan.target, (plan.target, 0.0))
+    if ladder is None:
+        return
+    rungs = [
+        NamedRung(r.basis, r.use_name, r.matches_published, r.n_functions, r.smallest, r.reaches_target, r.error)
+        for r in ladder.rungs
+    ]
+    plan.named_basis = NamedBasis(ladder.requested, ladder.chosen, ladder.reason, rungs)
+    best = next((r for r in ladder.rungs if r.reaches_target and r.n_functions is not None), None)
+    if best is None or best.n_functions is None:
+        return
+    cite = f"; cite {best.reference}" if best.reference else ""
+    rule = "" if best.published is None else f" ({best.how})"
+    plan.alternatives.append(
+        _alt(
+            "named_basis",
+            f"use the published basis {best.use_name}",
+            n - best.n_functions,
+            "functions",
+            best.smallest,
+            plan.target,
+            f"a named, citable basis{rule}{cite}; auditor ladder compares every relative",
+            basis=best.use_name,
+        )
+    )
+
+
 @dataclass
 class _Frames:
     """The frames of one geometry as the remedies see them: file order and worst first."""
@@ -401,6 +436,7 @@ def _frame_figures(plan: RemedyPlan, fr: _Frames, at: _AtTarget) -> list[FrameFi
 
 #: Ties: the larger smallest eigenvalue (to 3 digits), then whole-shell remedies first.
 _PREFER = {
+    "named_basis": -1,
     "cholesky_shells": 0,
     "drop_diffuse_element": 1,
     "cholesky_shells_unconstrained": 2,
@@ -410,11 +446,14 @@ _PREFER = {
 
 
 def rank_alternatives(alternatives: list[Alternative], n: int) -> list[Alternative]:
-    """Those that reach the target first, then fewest removed, then the larger smallest eigenvalue."""
+    """Those that reach the target first, a published named basis first among them (chemists
+    prefer a citable basis to a custom one), then fewest removed, then the larger smallest
+    eigenvalue."""
     ordered = sorted(
         alternatives,
         key=lambda a: (
             not a.reaches_target,
+            not (a.reaches_target and a.kind == "named_basis"),
             a.removed if a.removed is not None else n,
             -float(f"{a.smallest_after or 0.0:.2e}"),
             _PREFER.get(a.kind, len(_PREFER)),
@@ -455,6 +494,7 @@ def plan_frames(
     _add_function_subset(plan, fr.worst_first, atoms, mode)
     _add_shell_prunings(plan, fr, atoms, mode)
     _add_diffuse_options(plan, fr.worst_first, table)
+    _add_named_basis(plan, fr, table.n_functions)
     if len(fr.preps) > 1:
         plan.frames = _frame_figures(plan, fr, at)
     plan.alternatives = rank_alternatives(plan.alternatives, table.n_functions)

@@ -98,6 +98,29 @@ class FrameFigures:
 
 
 @dataclass(frozen=True)
+class NamedRung:
+    """A smaller published relative of the requested basis at this geometry (worst frame)."""
+
+    basis: str  # as the ladder names it (a rule-built calendar set: its rule name)
+    use_name: str  # the name to use it by: the published one when the rule-built shells match it
+    matches_published: bool | None  # rule-built sets only
+    n_functions: int | None
+    smallest: float | None
+    reaches_target: bool
+    error: str | None
+
+
+@dataclass(frozen=True)
+class NamedBasis:
+    """The relatives evaluated, largest first, until one meets the target; the one chosen."""
+
+    requested: str
+    chosen: str | None
+    reason: str
+    rungs: list[NamedRung]
+
+
+@dataclass(frozen=True)
 class Remedies:
     """The remedies part of an audit result (``remedies`` in the JSON report)."""
 
@@ -111,6 +134,7 @@ class Remedies:
     cholesky_shells: ShellPruning | None = field(default=None, metadata={OMIT_NONE: True})
     cholesky_shells_unconstrained: ShellPruning | None = field(default=None, metadata={OMIT_NONE: True})
     symmetry: SymmetryInfo | None = field(default=None, metadata={OMIT_NONE: True})
+    named_basis: NamedBasis | None = field(default=None, metadata={OMIT_NONE: True})
     diffuse_by_element: list[DiffuseOption] = field(default_factory=list)
     problems: list[str] = field(default_factory=list)
     frames: list[FrameFigures] | None = field(default=None, metadata={OMIT_NONE: True})

@@ -27,6 +27,7 @@ from .text import (
     TrialView,
     frames_view,
     lower_bound_sentence,
+    named_basis_lines,
     remedies_view,
     vectors_note,
 )
@@ -383,6 +384,7 @@ def _remedies(d: dict) -> str:
     out += [f"<p>{escape(problem)}</p>" for problem in view.problems]
     if view.symmetry:
         out.append(f"<p>{escape(view.symmetry.sentence)}</p>")
+    out += [f"<p>{escape(line)}</p>" for line in named_basis_lines(rem.get("named_basis") if rem else None)]
     if view.shells:
         out += _dropped_shells(view.shells, n)
     if view.unconstrained:

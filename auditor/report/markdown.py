@@ -15,6 +15,7 @@ from .text import (
     advice_sentence,
     frames_view,
     lower_bound_sentence,
+    named_basis_lines,
     remedies_view,
     vectors_note,
 )
@@ -165,6 +166,8 @@ def remedies_lines(rem: dict | None, n_functions: int) -> list[str]:
         lines += [problem, ""]
     if view.symmetry:
         lines += [view.symmetry.sentence, ""]
+    for line in named_basis_lines((rem or {}).get("named_basis")):
+        lines += [line, ""]
     if view.shells:
         lines += _dropped_shell_lines(view.shells)
     if view.unconstrained:

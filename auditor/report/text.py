@@ -206,6 +206,21 @@ class SymmetryView:
         )
 
 
+def named_basis_lines(nb: dict | None) -> list[str]:
+    """The published relatives the remedies evaluated, as plain sentences (every format)."""
+    if not nb:
+        return []
+    rungs = "; ".join(
+        f"{r['use_name']} {r['n_functions']} functions, smallest eigenvalue "
+        + ("—" if r["smallest"] is None else f"{r['smallest']:.2e}")
+        + (" (reaches the target)" if r["reaches_target"] else "")
+        for r in nb.get("rungs") or []
+        if r.get("error") is None
+    )
+    head = f"Published relatives of {nb['requested']}, largest first until one reaches the target: {rungs}."
+    return [head, f"{nb['reason'][:1].upper()}{nb['reason'][1:]} (auditor ladder shows them all)."]
+
+
 def lower_bound_sentence(lower: int | None, target: float | None) -> str:
     """What the interlacing bound says, in one sentence for every format."""
     at = "" if target is None else f" {target:.1e}"
@@ -307,6 +322,7 @@ KNOWN_REMEDY_KEYS = (
     "cholesky_shells",
     "cholesky_shells_unconstrained",
     "symmetry",
+    "named_basis",
     "cholesky_functions",
     "diffuse_by_element",
     "frames",
