@@ -40,6 +40,14 @@ def check(
     ] = 1e-7,
     spectrum: o.Spectrum = "auto",
     target: o.Target = None,
+    write_x: Annotated[
+        bool,
+        typer.Option(
+            "--write-x",
+            help="Also write <stem>.X.npy: X for canonical orthogonalization at the advised threshold "
+            "(pyscf AO order, X^T S X = 1).",
+        ),
+    ] = False,
     trial_scf: o.TrialScf = None,
     trial_max_functions: o.TrialMaxFunctions = 400,
     trial_seconds: o.TrialSeconds = 120.0,
@@ -69,7 +77,16 @@ def check(
     except AuditorError as exc:
         fail(exc.message, exc.exit_code)
     outcome = audit_paths(
-        geometry, spec, policy, out_dir, fmt, unit=unit, ghost=ghost, remedies=remedies, spectrum_method=spectrum
+        geometry,
+        spec,
+        policy,
+        out_dir,
+        fmt,
+        unit=unit,
+        ghost=ghost,
+        remedies=remedies,
+        spectrum_method=spectrum,
+        write_x=write_x,
     )
     for _, message, _ in outcome.errors:
         err.print(f"[bold red]error:[/] {message}")

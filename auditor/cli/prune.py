@@ -36,6 +36,14 @@ def prune(
     ] = None,
     caution: Annotated[float, typer.Option("--caution", help="Caution level (the default target).")] = 1e-5,
     fail_level: Annotated[float, typer.Option("--fail", help="Fail level (bounds the advised threshold).")] = 1e-7,
+    export: Annotated[
+        str | None,
+        typer.Option(
+            "--export",
+            help="Also write the basis for other programs through basis_set_exchange: comma-separated writer "
+            "formats, all, or none (default nwchem,gaussian94,psi4,orca,molpro,cfour,turbomole).",
+        ),
+    ] = None,
     trial_scf: o.TrialScf = None,
     trial_max_functions: o.TrialMaxFunctions = 400,
     trial_seconds: o.TrialSeconds = 120.0,
@@ -54,6 +62,7 @@ def prune(
     from ..inputs.geometry import load_molecules
     from ..pipeline.frames import prepare_frames, prune_frames
     from ..pipeline.run import make_spec
+    from ..remedies.export import parse_formats
     from ..report.naming import report_stem
     from ..report.pruned_files import write_prune_outputs
     from ..report.terminal import print_remedies
@@ -61,6 +70,7 @@ def prune(
     try:
         o.check_unit(unit)
         options = o.remedy_options(target, trial_scf, trial_max_functions, trial_seconds)
+        formats = parse_formats(export)
         spec = make_spec(basis, basis_for, cartesian, basis_source)
         policy = Policy(caution=caution, fail=fail_level)
         frames = load_molecules(geometry, unit=unit, ghost=ghost)
@@ -70,7 +80,7 @@ def prune(
         results, plan = prune_frames(preps, policy, options)
         stem = report_stem(str(geometry), frame or 1, 1 if frame is None else len(frames))
         with protect([geometry, *spec.files()]):
-            paths = write_prune_outputs(results, plan, preps, out_dir, stem)
+            paths, exported = write_prune_outputs(results, plan, preps, out_dir, stem, formats)
     except AuditorError as exc:
         fail(exc.message, exc.exit_code)
     if not quiet:
@@ -86,5 +96,8 @@ def prune(
             markup=False,
         )
         print_remedies(results, out, always=True)
+        for rec in exported:
+            what = f"{rec.file}: read back: {rec.checked}" if rec.written else f"{rec.format}: {rec.note}"
+            out.print(f"  {what}", markup=False, soft_wrap=True)
         out.print("wrote " + ", ".join(str(p) for p in paths), markup=False)
     raise typer.Exit(0)

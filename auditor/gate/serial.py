@@ -15,8 +15,10 @@ from ..inputs.basis import BasisSpec
 from ..inputs.geometry import load_molecules
 from ..pipeline.frames import audit_frames
 from ..pipeline.result import AuditResult
+from ..pipeline.run import prepare
 from ..remedies.plan import RemedyOptions
 from ..report.naming import distinct_labels, report_stem, unique_name
+from ..report.pruned_files import write_transform
 from ..report.writers import write_reports
 from .items import expand_inputs
 
@@ -45,19 +47,25 @@ def audit_paths(
     spectrum_method: str = "auto",
     on_result: Callable[[AuditResult], None] | None = None,
     remedies: bool | RemedyOptions = True,
+    write_x: bool = False,
 ) -> RunOutcome:
     """Audit every frame of every file named by ``paths`` (files, folders searched
     recursively, glob patterns and @lists, as for the gate), the frames of one file as one
     job (`audit_frames`); collect errors per input instead of stopping. Reports of inputs
-    that share a file name get enough of their path in the stem to tell them apart."""
+    that share a file name get enough of their path in the stem to tell them apart. With
+    ``write_x`` each frame that has an advised threshold also gets <stem>.X.npy."""
     files, missing = expand_inputs([str(p) for p in paths])
     with protect([*files, *spec.files()]):
-        outcome = _audit_each(files, spec, policy, out, formats, unit, ghost, spectrum_method, on_result, remedies)
+        outcome = _audit_each(
+            files, spec, policy, out, formats, unit, ghost, spectrum_method, on_result, remedies, write_x
+        )
     outcome.errors = [(arg, message, EXIT_INPUT) for arg, message in missing] + outcome.errors
     return outcome
 
 
-def _audit_each(paths, spec, policy, out, formats, unit, ghost, spectrum_method, on_result, remedies) -> RunOutcome:
+def _audit_each(
+    paths, spec, policy, out, formats, unit, ghost, spectrum_method, on_result, remedies, write_x=False
+) -> RunOutcome:
     outcome = RunOutcome()
     used: set[str] = set()
     labels = distinct_labels([str(p) for p in paths])
@@ -69,6 +77,9 @@ def _audit_each(paths, spec, policy, out, formats, unit, ghost, spectrum_method,
                 if out is not None:
                     stem = unique_name(report_stem(label.replace("/", "__"), mol.frame + 1, mol.n_frames), used)
                     outcome.written += write_reports(result, out, formats, stem)
+                    if write_x and result.recommendation.threshold is not None:
+                        prep = prepare(mol, spec, spectrum_method)
+                        outcome.written.append(write_transform(result, prep, out / f"{stem}.X.npy", 0.0))
                 outcome.results.append(result)
                 if on_result:
                     on_result(result)

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import io
+from dataclasses import replace
 from pathlib import Path
 from typing import TYPE_CHECKING
 
@@ -10,6 +11,7 @@ import numpy as np
 
 from ..base.files import atomic_write
 from ..remedies.canonical import canonical_transform
+from ..remedies.export import ExportFile, export_texts, file_name
 from ..remedies.plan import RemedyPlan
 from ..remedies.pruned_basis import write_pruned
 from .markdown import caveat_lines, frames_lines, remedies_lines
@@ -118,15 +120,48 @@ def write_transform(result: AuditResult, prep: Prepared, path: Path, target: flo
     return _save_npy(path, canonical_transform(prep, target if tau is None else tau))
 
 
+def write_exports(doc: dict, formats: list[str], out_dir: Path, stem: str) -> list[ExportFile]:
+    """The pruned basis in other programs' formats (basis_set_exchange's writers), each read
+    back where a reader exists; refused formats are listed with the reason."""
+    records = []
+    for rec, text in export_texts(doc, formats):
+        if text is not None:
+            name = file_name(stem, rec.format)
+            atomic_write(out_dir / name, text)
+            rec = replace(rec, file=name)
+        records.append(rec)
+    return records
+
+
+def export_lines(records: list[ExportFile]) -> list[str]:
+    """The exported files as a Markdown table."""
+    if not records:
+        return []
+    lines = [
+        "",
+        "The same basis for other programs (basis_set_exchange's writers; each file read back with its reader "
+        "where one exists):",
+        "",
+        "| format | program | file | read back |",
+        "|---|---|---|---|",
+    ]
+    for r in records:
+        shown = f"`{r.file}`" if r.file else "—"
+        lines.append(f"| {r.format} | {r.program} | {shown} | {r.checked if r.written else r.note} |")
+    return lines
+
+
 def write_prune_outputs(
     results: AuditResult | list[AuditResult],
     plan: RemedyPlan,
     preps: Prepared | list[Prepared],
     out_dir: Path,
     stem: str,
-) -> list[Path]:
+    exports: list[str] | None = None,
+) -> tuple[list[Path], list[ExportFile]]:
     """Write DIR/<stem>.pruned.json, DIR/<stem>.X.npy (one per frame, <stem>_fNNN.X.npy, for
-    several frames) and DIR/<stem>.prune.md."""
+    several frames), the basis in the ``exports`` formats (DIR/<stem>.pruned.<format><ext>)
+    and DIR/<stem>.prune.md. Returns the paths and the export records."""
     results = results if isinstance(results, list) else [results]
     preps = preps if isinstance(preps, list) else [preps]
     out_dir = Path(out_dir)
@@ -138,6 +173,9 @@ def write_prune_outputs(
         paths.append(write_transform(result, prep, out_dir / name, plan.target))
     if len(results) > 1:
         files["transform"] = f"{stem}_fNNN.X.npy"
+    records = write_exports(_pruned_document(plan), list(exports or []), out_dir, stem)
+    paths += [out_dir / r.file for r in records if r.file]
+    files["exports"] = export_lines(records)
     atomic_write(out_dir / files["explain"], explain_markdown(list(results), plan, files))
     paths.append(out_dir / files["explain"])
-    return paths
+    return paths, records
