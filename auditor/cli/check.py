@@ -72,7 +72,7 @@ def check(
         policy = Policy(caution=caution, fail=fail_level)
         o.check_unit(unit)
         o.check_ghost(ghost)
-        remedies = o.remedy_options(target, trial_scf, trial_max_functions, trial_seconds)
+        remedies = o.remedy_options(target, trial_scf, trial_max_functions, trial_seconds, quiet)
         o.check_spectrum_method(spectrum)
     except AuditorError as exc:
         fail(exc.message, exc.exit_code)
@@ -88,6 +88,7 @@ def check(
         spectrum_method=spectrum,
         write_x=write_x,
     )
+    o.end_progress(remedies)
     for _, message, _ in outcome.errors:
         err.print(f"[bold red]error:[/] {message}")
     if not quiet:

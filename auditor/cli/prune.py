@@ -69,7 +69,7 @@ def prune(
 
     try:
         o.check_unit(unit)
-        options = o.remedy_options(target, trial_scf, trial_max_functions, trial_seconds)
+        options = o.remedy_options(target, trial_scf, trial_max_functions, trial_seconds, quiet)
         formats = parse_formats(export)
         spec = make_spec(basis, basis_for, cartesian, basis_source)
         policy = Policy(caution=caution, fail=fail_level)
@@ -77,7 +77,10 @@ def prune(
         if frame is not None and not 1 <= frame <= len(frames):
             raise UsageError(f"{geometry}: frame {frame} requested, file has {len(frames)} frame(s)")
         preps = prepare_frames(frames if frame is None else [frames[frame - 1]], spec)
-        results, plan = prune_frames(preps, policy, options)
+        try:
+            results, plan = prune_frames(preps, policy, options)
+        finally:
+            o.end_progress(options)
         stem = report_stem(str(geometry), frame or 1, 1 if frame is None else len(frames))
         with protect([geometry, *spec.files()]):
             paths, exported = write_prune_outputs(results, plan, preps, out_dir, stem, formats)

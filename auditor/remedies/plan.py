@@ -44,7 +44,7 @@ from .shells import (
 )
 from .subset import Selection, check_atoms_not_emptied, check_target
 from .symmetry import SYMMETRY_TOLERANCE
-from .trial_scf import check_method, trial_scf
+from .trial_scf import TIME_LIMIT, Progress, check_method, trial_scf
 
 __all__ = [
     "WHOLE_SHELL_RULE",
@@ -520,14 +520,18 @@ def plan_remedies(
 class RemedyOptions:
     """How remedies are worked out: ``target`` smallest eigenvalue (None: the policy's
     caution level), an opt-in trial SCF (``trial_scf`` "hf" or a functional name) with
-    its size and time limits, and ``force`` to compute even when nothing needs removing.
+    its size and time limits and an optional per-cycle ``progress`` callback, and ``force``
+    to compute even when nothing needs removing.
     The whole-shell set follows one rule everywhere (`WHOLE_SHELL_RULE`)."""
 
     target: float | None = None
     trial_scf: str | None = None
     trial_max_functions: int = 400
-    trial_time_limit: float = 120.0
+    trial_time_limit: float = TIME_LIMIT
     force: bool = False
+    #: called after every trial-SCF cycle with {basis, cycle, energy, seconds} (the command
+    #: line prints it on a terminal); not part of the options' identity
+    progress: Progress | None = field(default=None, compare=False, repr=False)
 
 
 def make_plan(
@@ -553,6 +557,7 @@ def make_plan(
                 plan.pruned,
                 options.trial_max_functions,
                 options.trial_time_limit,
+                options.progress,
             )
         else:
             plan.trial_scf = {

@@ -498,6 +498,7 @@ def _trial_scf(tri: TrialView) -> list[str]:
         '<th>converged</th><th class="n">cycles</th><th class="n">energy (hartree)</th>'
         f'<th class="n">time (s)</th><th>note</th></tr>{rows}</table>'
     )
+    out += [f"<p><strong>{escape(line)}</strong></p>" for line in tri.alerts]
     if tri.difference_microhartree is not None:
         out.append(
             f"<p>Pruned basis minus canonical orthogonalization: "

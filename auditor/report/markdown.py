@@ -277,6 +277,8 @@ def _trial_lines(tri: TrialView) -> list[str]:
             f"| {run.basis} | {run.n_functions} | {run.directions_removed} | "
             f"{run.converged_text} | {run.cycles} | {energy} |"
         )
+    for line in tri.alerts:
+        lines += ["", f"**{line}**"]
     if tri.difference_microhartree is not None:
         lines += ["", f"Pruned minus canonically orthogonalized: {tri.difference_microhartree:+.1f} microhartree."]
     return lines + [""]

@@ -111,7 +111,13 @@ def _remedy_lines(d: dict, view: RemediesView, frames: FramesView | None, top: i
             f"    trial SCF ({tri.method}): pruned minus canonical orthogonalization "
             f"{tri.difference_microhartree:+.1f} microhartree"
         )
+    lines += [f"    trial SCF: {line}" for line in (tri.alerts if tri else [])]
     return lines
+
+
+def _threshold_cell(value: float | None) -> str:
+    """The advised threshold of a summary row; a dash where none is advised (a broken geometry)."""
+    return "—" if value is None or not math.isfinite(value) else f"{value:.1e}"
 
 
 def worst_rows(rows: list[dict], n: int) -> list[dict]:
@@ -148,7 +154,7 @@ def worst_table(rows: list[dict], n: int = 10) -> Group:
             f"{lam:.2e}" if ok else "",
             ("inf" if math.isinf(cond) else f"{math.log10(cond):.1f}") if ok else "",
             r["top_atom"],
-            f"{r['threshold']:.1e}" if ok else "",
+            _threshold_cell(r["threshold"]) if ok else "",
             "" if r["n_removed"] is None else str(r["n_removed"]),
         )
         if r["verdict"] != "pass" or r.get("outcome") != "ok" or r.get("change"):

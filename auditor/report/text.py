@@ -180,6 +180,7 @@ class TrialView:
     runs: list[TrialRunRow]
     difference_microhartree: float | None
     reminder: str
+    alerts: list[str]  # a plain line per run that stopped at its time limit, did not converge or failed
 
 
 @dataclass(frozen=True)
@@ -466,4 +467,5 @@ def _trial(tri: dict | None) -> TrialView | None:
         runs=runs,
         difference_microhartree=tri.get("difference_microhartree"),
         reminder=str(tri.get("reminder") or ""),
+        alerts=[str(a) for a in tri.get("alerts") or []],
     )
