@@ -50,7 +50,7 @@ def check(
     ] = False,
     trial_scf: o.TrialScf = None,
     trial_max_functions: o.TrialMaxFunctions = 400,
-    trial_seconds: o.TrialSeconds = 120.0,
+    trial_seconds: o.TrialSeconds = 900.0,
     quiet: o.Quiet = False,
 ) -> None:
     """Audit each geometry in one basis; write DIR/<stem>.json, .md and .html per frame.

@@ -46,7 +46,7 @@ def prune(
     ] = None,
     trial_scf: o.TrialScf = None,
     trial_max_functions: o.TrialMaxFunctions = 400,
-    trial_seconds: o.TrialSeconds = 120.0,
+    trial_seconds: o.TrialSeconds = 900.0,
     quiet: o.Quiet = False,
 ) -> None:
     """Write a shell-pruned basis that reaches a target smallest eigenvalue (in every frame of

@@ -22,7 +22,11 @@ if TYPE_CHECKING:
     from pyscf import gto
 
 MAX_FUNCTIONS = 400
-TIME_LIMIT = 120.0  # seconds per SCF run
+#: seconds per SCF run. Measured (benchmarks/bench_trial_scf.py, docs/benchmarks.md): near the
+#: size limit a run took up to 357 s (9 waters in aug-cc-pVDZ, 369 functions, HF) and 309 s
+#: (pyridine in aug-cc-pVTZ, 391 functions, HF) on a shared two-core machine; pyscf computes the
+#: integrals anew every cycle above about 250 functions (direct SCF), so time grows fast with size.
+TIME_LIMIT = 900.0
 HF_NAMES = ("hf", "scf", "rhf", "uhf")
 
 
