@@ -19,7 +19,7 @@ import typer.rich_utils
 from typer.exceptions import Abort, TyperException
 
 from ..base.errors import EXIT_INTERNAL, EXIT_USAGE
-from . import check, demo, gate, prune
+from . import check, demo, gate, ladder, prune
 from .console import err, error_line
 
 #: Width of --help when standard output is not a terminal (pipes, CI logs): fixed, so that
@@ -35,7 +35,7 @@ app = typer.Typer(
     help="Audit Gaussian basis sets for near-linear dependence: overlap spectrum, causes, remedies.",
     pretty_exceptions_enable=False,
 )
-for command in (check.check, prune.prune, demo.demo, gate.gate):
+for command in (check.check, prune.prune, ladder.ladder, demo.demo, gate.gate):
     app.command()(command)
 
 

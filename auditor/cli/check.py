@@ -42,9 +42,17 @@ def check(
     ] = 1e-7,
     spectrum: o.Spectrum = "auto",
     target: o.Target = None,
+    write_x: Annotated[
+        bool,
+        typer.Option(
+            "--write-x",
+            help="Also write <stem>.X.npy: X for canonical orthogonalization at the advised threshold "
+            "(pyscf AO order, X^T S X = 1).",
+        ),
+    ] = False,
     trial_scf: o.TrialScf = None,
     trial_max_functions: o.TrialMaxFunctions = 400,
-    trial_seconds: o.TrialSeconds = 120.0,
+    trial_seconds: o.TrialSeconds = 900.0,
     no_remedies: Annotated[
         bool,
         typer.Option(
@@ -79,7 +87,9 @@ def check(
         o.check_ghost(ghost)
         o.check_input_format(input_format)
         o.check_fragments(fragments)
-        remedies = False if no_remedies else o.remedy_options(target, trial_scf, trial_max_functions, trial_seconds)
+        remedies = (
+            False if no_remedies else o.remedy_options(target, trial_scf, trial_max_functions, trial_seconds, quiet)
+        )
         o.check_spectrum_method(spectrum)
         periodic = o.periodic_options(kmesh, precision)
         o.start_run(out_dir, max_input_mb)
@@ -100,7 +110,9 @@ def check(
             periodic=periodic,
             input_format=input_format,
             fragments=fragments,
+            write_x=write_x,
         )
+    o.end_progress(remedies)
     for _, message, _ in outcome.errors:
         error_line(message)
     if not quiet:

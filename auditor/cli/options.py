@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import math
 from pathlib import Path
-from typing import TYPE_CHECKING, Annotated
+from typing import IO, TYPE_CHECKING, Annotated
 
 import typer
 
@@ -159,10 +159,54 @@ def start_run(out_dir: Path | None, max_input_mb: float) -> None:
         check_output_dir(out_dir)
 
 
+class ScfProgress:
+    """Trial-SCF progress on a terminal: one line per run (cycle, energy, elapsed time),
+    rewritten after every cycle; ``close`` ends the last line."""
+
+    def __init__(self, stream: IO[str]) -> None:
+        self.stream = stream
+        self.label: str | None = None
+
+    def __call__(self, p: dict) -> None:
+        if self.label is not None and p["basis"] != self.label:
+            self.stream.write("\n")
+        self.label = p["basis"]
+        energy = "" if p.get("energy") is None else f", energy {p['energy']:.8f} hartree"
+        self.stream.write(f"\r  trial SCF, {p['basis']}: cycle {p['cycle']}{energy}, {p['seconds']:.1f} s\x1b[K")
+        self.stream.flush()
+
+    def close(self) -> None:
+        if self.label is not None:
+            self.stream.write("\n")
+            self.stream.flush()
+            self.label = None
+
+
+def progress_for(trial_scf: str | None, quiet: bool) -> ScfProgress | None:
+    """A progress printer when a trial SCF is asked for, output is a terminal and not --quiet."""
+    from .console import out
+
+    if not trial_scf or quiet or not out.is_terminal:
+        return None
+    return ScfProgress(out.file)
+
+
+def end_progress(options: RemedyOptions | bool) -> None:
+    """End the progress line of a trial SCF, if one was printed."""
+    progress = getattr(options, "progress", None)
+    if isinstance(progress, ScfProgress):
+        progress.close()
+
+
 def remedy_options(
-    target: float | None, trial_scf: str | None, trial_max_functions: int, trial_seconds: float
+    target: float | None,
+    trial_scf: str | None,
+    trial_max_functions: int,
+    trial_seconds: float,
+    quiet: bool = True,
 ) -> RemedyOptions:
-    """RemedyOptions from the command line, every value checked."""
+    """RemedyOptions from the command line, every value checked; with a trial SCF on a
+    terminal (and not ``quiet``) its progress is printed."""
     from ..remedies.plan import RemedyOptions
     from ..remedies.subset import check_target
     from ..remedies.trial_scf import check_method
@@ -174,5 +218,9 @@ def remedy_options(
     if trial_max_functions < 1 or not trial_seconds > 0:
         raise UsageError("--trial-max-functions and --trial-seconds must be positive")
     return RemedyOptions(
-        target=target, trial_scf=trial_scf, trial_max_functions=trial_max_functions, trial_time_limit=trial_seconds
+        target=target,
+        trial_scf=trial_scf,
+        trial_max_functions=trial_max_functions,
+        trial_time_limit=trial_seconds,
+        progress=progress_for(trial_scf, quiet),
     )

@@ -13,12 +13,15 @@ from ..base.files import protect
 from ..diagnosis.verdict import Policy
 from ..inputs.basis import BasisSpec
 from ..inputs.fragments import fragments_for
+from ..inputs.geometry import Molecule
 from ..inputs.readers import load_molecules
 from ..pipeline.counterpoise import audit_counterpoise
+from ..pipeline.frames import audit_frames
 from ..pipeline.result import AuditResult
-from ..pipeline.run import audit_prepared, prepare
+from ..pipeline.run import prepare
 from ..remedies.plan import RemedyOptions
 from ..report.naming import distinct_labels, report_stem, unique_name
+from ..report.pruned_files import write_transform
 from ..report.scan import write_scan
 from ..report.writers import write_reports
 from .items import expand_inputs
@@ -55,6 +58,7 @@ class _Settings:
     on_stage: Callable[[str, str], None] | None
     input_format: str | None = None
     fragments: tuple[str, ...] | None = None  # --fragments: a counterpoise audit of every frame
+    write_x: bool = False  # also <stem>.X.npy for every frame that has an advised threshold
 
 
 def audit_paths(
@@ -72,15 +76,18 @@ def audit_paths(
     periodic: PeriodicOptions | None = None,
     input_format: str | None = None,
     fragments: Sequence[str] | None = None,
+    write_x: bool = False,
 ) -> RunOutcome:
     """Audit every frame of every file named by ``paths`` (files, folders searched
-    recursively, glob patterns and @lists, as for the gate); collect errors per input
-    instead of stopping. Reports of inputs that share a file name get enough of their path
-    in the stem to tell them apart. ``on_stage(label, step)`` is told each step of each audit
-    as it starts (for a progress display). Periodic files (auditor.gate.periodic) take the
-    periodic path with ``periodic``'s mesh. ``input_format`` forces a reader; ``fragments``
-    (--fragments values), or fragments in a file, make each frame a counterpoise audit.
-    Multi-frame files also get a scan report (auditor.report.scan)."""
+    recursively, glob patterns and @lists, as for the gate), the frames of one file as one
+    job (`audit_frames`); collect errors per input instead of stopping. Reports of inputs
+    that share a file name get enough of their path in the stem to tell them apart.
+    ``on_stage(label, step)`` is told each step of each audit as it starts (for a progress
+    display). Periodic files (auditor.gate.periodic) take the periodic path with
+    ``periodic``'s mesh. ``input_format`` forces a reader; ``fragments`` (--fragments
+    values), or fragments in a file, make each frame a counterpoise audit. Multi-frame files
+    also get a scan report (auditor.report.scan). With ``write_x`` each frame that has an
+    advised threshold also gets <stem>.X.npy."""
     files, missing = expand_inputs([str(p) for p in paths])
     settings = _Settings(
         spec,
@@ -96,6 +103,7 @@ def audit_paths(
         on_stage,
         input_format,
         tuple(fragments) if fragments else None,
+        write_x,
     )
     with protect([*files, *spec.files()]):
         outcome = _audit_each(files, settings)
@@ -110,10 +118,14 @@ def _audit_each(paths: list[Path], s: _Settings) -> RunOutcome:
         try:
             frames: list[AuditResult] = []
             comments: list[str] = []
-            for result in _results(path, label, s, comments):
+            for mol, result in _results(path, label, s, comments):
                 if s.out is not None:
                     base = report_stem(label.replace("/", "__"), result.input.frame, result.input.n_frames)
-                    outcome.written += write_reports(result, s.out, s.formats, unique_name(base, used))
+                    stem = unique_name(base, used)
+                    outcome.written += write_reports(result, s.out, s.formats, stem)
+                    if s.write_x and mol is not None and result.recommendation.threshold is not None:
+                        prep = prepare(mol, s.spec, s.spectrum_method)
+                        outcome.written.append(write_transform(result, prep, s.out / f"{stem}.X.npy", 0.0))
                 outcome.results.append(result)
                 frames.append(result)
                 if s.on_result:
@@ -128,25 +140,34 @@ def _audit_each(paths: list[Path], s: _Settings) -> RunOutcome:
     return outcome
 
 
-def _results(path: Path, label: str, s: _Settings, comments: list[str]) -> Iterator[AuditResult]:
-    """The audit of every frame of one file, one at a time (each frame's comment line
-    appended to ``comments``)."""
+def _results(
+    path: Path, label: str, s: _Settings, comments: list[str]
+) -> Iterator[tuple[Molecule | None, AuditResult]]:
+    """(molecule, audit) of every frame of one file; each frame's comment line appended to
+    ``comments``. The frames of one file are one job (one threshold, one set of remedies);
+    a frame with fragments is a counterpoise audit of its own; a cell has no molecule."""
     if is_periodic(path):
-        yield from periodic_results(
+        for result in periodic_results(
             path, s.spec, s.policy, s.unit, s.ghost, s.periodic or PeriodicOptions(), s.remedies
-        )
+        ):
+            yield None, result
         return
     if s.periodic is not None and s.periodic.asked:
         raise not_periodic(path)
-    for mol in load_molecules(path, unit=s.unit, ghost=s.ghost, input_format=s.input_format):
-        stage = _stage_of(s.on_stage, label + (f" [{mol.frame + 1}]" if mol.n_frames > 1 else ""))
-        comments.append(mol.comment)
-        fragments = fragments_for(mol, s.fragments)
-        if fragments:
-            yield audit_counterpoise(mol, fragments, s.spec, s.policy, s.spectrum_method, s.remedies, stage)[0]
-            continue
-        prep = prepare(mol, s.spec, s.spectrum_method, stage)
-        yield audit_prepared(prep, s.policy, s.spectrum_method, s.remedies, stage)
+    frames = load_molecules(path, unit=s.unit, ghost=s.ghost, input_format=s.input_format)
+    comments += [mol.comment for mol in frames]
+    if any(fragments_for(mol, s.fragments) for mol in frames):
+        for mol in frames:
+            stage = _stage_of(s.on_stage, label + (f" [{mol.frame + 1}]" if mol.n_frames > 1 else ""))
+            yield (
+                mol,
+                audit_counterpoise(
+                    mol, fragments_for(mol, s.fragments), s.spec, s.policy, s.spectrum_method, s.remedies, stage
+                )[0],
+            )
+        return
+    stage = _stage_of(s.on_stage, label + (f" ({len(frames)} frames)" if len(frames) > 1 else ""))
+    yield from zip(frames, audit_frames(frames, s.spec, s.policy, s.spectrum_method, s.remedies, stage))
 
 
 def _stage_of(on_stage: Callable[[str, str], None] | None, name: str) -> Callable[[str], None] | None:

@@ -497,18 +497,19 @@ def _min_exponent_by_l(shells: tuple | list) -> dict[int, float]:
 
 
 @cache
-def diffuse_rule(name: str, element: str) -> tuple[str, dict[int, float], float]:
-    """How shells of ``element`` in basis ``name`` are judged diffuse.
+def diffuse_rule(name: str, element: str, source: str = "pyscf") -> tuple[str, dict[int, float], float]:
+    """How shells of ``element`` in basis ``name`` (the copy ``source``) are judged diffuse.
 
     Returns (how, cut-off exponent per l, cut-off for l not listed). A shell whose
     smallest exponent lies below the cut-off for its l is diffuse. With a known
     parent basis the cut-off is the parent's smallest exponent (the shells that the
-    augmentation added); otherwise FALLBACK_FRACTION of a reference valence basis.
+    augmentation added, read from the same copy: copies of one basis can differ in their
+    exponents); otherwise FALLBACK_FRACTION of a reference valence basis.
     """
     parent = parent_basis(name) if not Path(name).expanduser().is_file() else None
     if parent:
         try:
-            ref = _min_exponent_by_l(load_shells(parent, element))
+            ref = _min_exponent_by_l(load_shells(parent, element, source))
             return (f"below the smallest exponent of {parent}", {l: a * 0.999 for l, a in ref.items()}, float("inf"))
         except InputError:
             pass
@@ -523,7 +524,8 @@ def diffuse_rule(name: str, element: str) -> tuple[str, dict[int, float], float]
     return ("no reference basis for this element", {}, 0.0)
 
 
-def is_diffuse(name: str, element: str, l: int, exponent: float) -> bool:
-    """Whether a shell with angular momentum ``l`` and smallest exponent counts as diffuse."""
-    _, cut, other = diffuse_rule(name, element)
+def is_diffuse(name: str, element: str, l: int, exponent: float, source: str = "pyscf") -> bool:
+    """Whether a shell with angular momentum ``l`` and smallest exponent counts as diffuse
+    (``source``: the copy of the basis, as for `load_shells`)."""
+    _, cut, other = diffuse_rule(name, element, source)
     return exponent < cut.get(l, other)

@@ -196,7 +196,7 @@ def mole_function_table(pm: gto.Mole, mol: Molecule, spec: BasisSpec) -> Functio
             shell_atom.append(ia + 1)
             shell_l.append(l)
             shell_exp.append(amin)
-            shell_dif.append(is_diffuse(spec.for_element(el), el, l, amin))
+            shell_dif.append(is_diffuse(spec.for_element(el), el, l, amin, spec.source))
             shell_name.append(ao_labels[f][2])
             shell_first.append(f)
             for k in range(ncomp):

@@ -22,6 +22,46 @@ CAVEATS = (
 )
 
 
+def frames_caveat(n_frames: int) -> str:
+    """The warning every report of a multi-frame input carries."""
+    return (
+        f"This input has {n_frames} frames (a scan or a trajectory). Per-frame thresholds and per-frame pruned "
+        "bases make energy curves discontinuous: wherever one frame removes a direction or a function that the "
+        "next frame keeps, the energy jumps there. Use one threshold and one basis for every frame: auditor check "
+        "reports one threshold and one pruned basis that hold for every frame of the file (the worst frame "
+        "decides), and auditor prune writes that basis."
+    )
+
+
+def caveats_for(n_frames: int) -> tuple[str, ...]:
+    """The caveats of a report of one frame of an input with ``n_frames`` frames."""
+    return CAVEATS + ((frames_caveat(n_frames),) if n_frames > 1 else ())
+
+
+@dataclass(frozen=True)
+class FrameRow:
+    """One frame of a multi-frame input: its own figures, and those at the one threshold."""
+
+    frame: int  # 1-based
+    smallest: float
+    verdict: str
+    advised_threshold: float | None  # what this frame alone would be advised
+    directions_removed: int | None  # at the one threshold for all frames
+    smallest_kept: float | None  # at the one threshold for all frames
+
+
+@dataclass(frozen=True)
+class FramesInfo:
+    """One threshold for every frame of a multi-frame input: the frame that decides it, each
+    frame's figures, and whether the count of removed directions changes between frames."""
+
+    n_frames: int
+    threshold: float | None
+    deciding_frame: int | None  # 1-based; None when every frame is broken
+    per_frame: tuple[FrameRow, ...]
+    note: str
+
+
 @dataclass(frozen=True)
 class InputInfo:
     path: str
@@ -68,6 +108,8 @@ class AuditResult:
     causes: Causes
     recommendation: Recommendation
     remedies: Remedies | None = None
+    #: None for a single frame, or for a frame audited on its own (the gate's items)
+    frames: FramesInfo | None = None
     caveats: tuple[str, ...] = CAVEATS
     extra: dict = field(default_factory=dict)
 

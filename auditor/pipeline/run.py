@@ -34,7 +34,7 @@ from ..numerics.spectrum import Spectrum
 from ..remedies.canonical import Recommendation, advise, broken_geometry_advice
 from ..remedies.plan import Remedies, RemedyOptions, RemedyPlan, make_plan, remedies_for
 from ..remedies.subset import check_target
-from .result import AuditResult, InputInfo, SpectrumInfo
+from .result import AuditResult, InputInfo, SpectrumInfo, caveats_for
 
 
 @dataclass
@@ -138,21 +138,21 @@ def _from_mole(pm: Any) -> tuple[Molecule, BasisSpec]:
     return mol, spec
 
 
-def audit_prepared(
-    prep: Prepared,
-    policy: Policy | None = None,
-    spectrum_method: str = "auto",
-    remedies: bool | RemedyOptions = True,
-    stage: Callable[[str], None] | None = None,
-) -> AuditResult:
-    """Run the whole audit on a prepared geometry + basis.
+@dataclass(frozen=True)
+class Audited:
+    """One frame audited without remedies: the result, its spectrum, and the decision when
+    the geometry is broken (no threshold and no remedy then)."""
 
-    ``remedies``: True (default options), an ``auditor.RemedyOptions``, or False to skip them.
-    A broken geometry (coincident atoms, an impossible contact, a unit mix-up) gets no
-    threshold and no remedy: the file must be fixed first. ``stage`` (optional) is told the
-    name of each step as it starts, for progress displays and timings.
-    """
-    policy = policy or Policy()
+    result: AuditResult
+    spectrum: Spectrum
+    broken: Decision | None
+
+
+def audit_core(
+    prep: Prepared, policy: Policy, spectrum_method: str = "auto", stage: Callable[[str], None] | None = None
+) -> Audited:
+    """Spectrum, causes, findings, verdict and advice of one frame, without remedies;
+    ``stage`` (optional) is told the name of each step as it starts."""
     stage = stage or _quiet
     spec = compute_spectrum(prep.S, vector_level=policy.caution, method=spectrum_method, stage=stage)
     stage("findings and causes")
@@ -164,9 +164,7 @@ def audit_prepared(
         recommendation = broken_geometry_advice(spec, decision.finding or "")
     else:
         recommendation = advise(spec, _default_threshold(policy), policy.fail, prep.spec.cartesian)
-    if remedies is not False and not broken:
-        stage("remedies")
-    return AuditResult(
+    result = AuditResult(
         version=__version__,
         input=_input_info(prep),
         verdict=decision.verdict,
@@ -177,8 +175,30 @@ def audit_prepared(
         findings=tuple(findings),
         causes=causes,
         recommendation=recommendation,
-        remedies=_remedies(prep, recommendation, spec.smallest, policy, remedies, decision if broken else None),
+        caveats=caveats_for(prep.molecule.n_frames),
     )
+    return Audited(result, spec, decision if broken else None)
+
+
+def audit_prepared(
+    prep: Prepared,
+    policy: Policy | None = None,
+    spectrum_method: str = "auto",
+    remedies: bool | RemedyOptions = True,
+    stage: Callable[[str], None] | None = None,
+) -> AuditResult:
+    """Run the whole audit on a prepared geometry + basis (one frame on its own; see
+    `auditor.pipeline.frames.audit_frames` for every frame of a scan at once).
+
+    ``remedies``: True (default options), an ``auditor.RemedyOptions``, or False to skip them.
+    A broken geometry (coincident atoms, an impossible contact, a unit mix-up) gets no
+    threshold and no remedy: the file must be fixed first. ``stage`` (optional) is told the
+    name of each step as it starts, for progress displays and timings.
+    """
+    policy = policy or Policy()
+    core = audit_core(prep, policy, spectrum_method, stage)
+    rem = remedies_of([prep], [core], policy, remedies, stage=stage)
+    return replace(core.result, remedies=rem)
 
 
 def _quiet(_: str) -> None:
@@ -197,22 +217,38 @@ def _findings(prep: Prepared, spec: Spectrum, policy: Policy, causes: Causes) ->
     return findings
 
 
-def _remedies(
-    prep: Prepared,
-    recommendation: Recommendation,
-    smallest: float,
+def remedies_of(
+    preps: list[Prepared],
+    cores: list[Audited],
     policy: Policy,
     remedies: bool | RemedyOptions,
-    broken: Decision | None,
+    recommendation: Recommendation | None = None,
+    stage: Callable[[str], None] | None = None,
 ) -> Remedies | None:
+    """The remedies of the frames ``preps`` (one set for all), or None when switched off.
+    A broken frame gets none: the file must be fixed first."""
     if remedies is False:
         return None
     options = remedies if isinstance(remedies, RemedyOptions) else RemedyOptions()
-    if broken is not None:
+    broken = [(k, c.broken) for k, c in enumerate(cores) if c.broken is not None]
+    if broken:
         target = policy.caution if options.target is None else options.target
-        why = f"the geometry is broken ({broken.finding}): fix the geometry first; no remedy is offered for it"
-        return Remedies(target=target, needed=smallest < target, alternatives=[], problems=[why])
-    return remedies_for(prep, recommendation, smallest, options, policy.caution)
+        k, decision = broken[0]
+        where = f"frame {cores[k].result.input.frame} of the file is" if len(cores) > 1 else "the geometry is"
+        why = f"{where} broken ({decision.finding}): fix the geometry first; no remedy is offered for it"
+        return no_remedies(cores, target, why)
+    rec = recommendation or cores[0].result.recommendation
+    if stage:
+        stage("remedies")
+    return remedies_for(preps, rec, [c.spectrum for c in cores], options, policy.caution)
+
+
+def no_remedies(cores: list[Audited], target: float, why: str) -> Remedies:
+    """Remedies that were not worked out (``why``), with the interlacing bound all the same."""
+    counts = [c.spectrum.count_below(target) for c in cores]
+    lower = None if None in counts else max(c for c in counts if c is not None)
+    smallest = min(c.spectrum.smallest for c in cores)
+    return Remedies(target=target, needed=smallest < target, alternatives=[], lower_bound=lower, problems=[why])
 
 
 def _default_threshold(policy: Policy) -> float:
@@ -354,18 +390,38 @@ def prune_prepared(
 
     Returns (AuditResult with remedies, RemedyPlan). Raises UsageError when no shell-pruned
     basis reaches the target (for example because an atom would lose every function).
+    `auditor.pipeline.frames.prune_frames` does the same for every frame of a scan.
     """
     policy = policy or Policy()
-    options = replace(options or RemedyOptions(), force=True, shell_pivoting=True)
+    options = prune_options(options, policy)
+    core = audit_core(prep, policy)
+    refuse_broken(core)
+    plan = make_plan(prep, core.result.recommendation, core.spectrum, options, policy.caution)
+    check_pruned(plan)
+    return replace(core.result, remedies=plan.report(prep.table)), plan
+
+
+def prune_options(options: RemedyOptions | None, policy: Policy) -> RemedyOptions:
+    """``options`` with ``force`` on (prune works out the basis even when nothing must go);
+    UsageError for a bad target."""
+    options = replace(options or RemedyOptions(), force=True)
     check_target(policy.caution if options.target is None else options.target)
-    result = audit_prepared(prep, policy, remedies=False)
-    if result.verdict_finding in BROKEN_KINDS:
-        raise UsageError(f"{prep.molecule.source}: {result.verdict_reason} Fix the geometry before pruning its basis.")
-    plan = make_plan(prep, result.recommendation, result.spectrum.smallest, options, policy.caution)
+    return options
+
+
+def refuse_broken(core: Audited) -> None:
+    """UsageError for a broken geometry: its basis is not pruned, the file must be fixed."""
+    if core.result.verdict_finding in BROKEN_KINDS:
+        r = core.result
+        raise UsageError(f"{r.input.path}: {r.verdict_reason} Fix the geometry before pruning its basis.")
+
+
+def check_pruned(plan: RemedyPlan) -> None:
+    """ResourceError when the remedies did not fit in memory, UsageError when no shell-pruned
+    basis reaches the target."""
     if plan.pruned is None:
         memory = [p for p in plan.problems if p.startswith("remedies skipped")]
         if memory:
             raise ResourceError(memory[0])
         why = next((p for p in plan.problems if p.startswith("shell-pruned")), "no pruned basis found")
         raise UsageError(why)
-    return replace(result, remedies=plan.report(prep.table)), plan

@@ -112,9 +112,16 @@ def advise(spec: Spectrum, default_threshold: float, min_kept: float = 0.0, cart
             f"no clear gap in the spectrum between {GAP_WINDOW[0]:.0e} and {GAP_WINDOW[1]:.0e}; "
             f"the policy default {default_threshold:.0e} is used"
         )
+    return recommendation_at(spec, tau, reason, cartesian)
+
+
+def recommendation_at(spec: Spectrum, tau: float, reason: str, cartesian: bool = False) -> Recommendation:
+    """The advice for threshold ``tau`` (chosen for ``reason``): what it removes and keeps,
+    the candidates, how to apply it and what it changes against pyscf's default."""
     chosen = candidate(spec, tau)
-    if chosen.n_removed == 0:
-        reason += "; nothing falls below it, so no function needs removing"
+    nothing = "; nothing falls below it, so no function needs removing"
+    if chosen.n_removed == 0 and nothing not in reason:
+        reason += nothing
     how_to = (
         "from pyscf import scf; scf.hf.overlap_zero_eigenvalue_threshold = "
         f"{tau:.1e}  # before building the SCF object; pyscf applies it to its own S, which has "
@@ -133,6 +140,26 @@ def advise(spec: Spectrum, default_threshold: float, min_kept: float = 0.0, cart
         library_default=library,
         same_as_library_default=_same(tau, library),
         versus_library=_versus_library(chosen, candidate(spec, library), cartesian),
+    )
+
+
+def deciding_frame(recommendations: list[Recommendation], smallest: list[float]) -> int | None:
+    """The frame (0-based) whose advised threshold is the largest: one threshold for every
+    frame of a scan. Ties go to the frame with the smaller smallest eigenvalue, then the
+    first. None when no frame has a threshold (every frame is broken)."""
+    usable = [k for k, r in enumerate(recommendations) if r.threshold is not None]
+    if not usable:
+        return None
+    return max(usable, key=lambda k: (recommendations[k].threshold, -smallest[k], -k))
+
+
+def frames_reason(own: Recommendation, k: int, n_frames: int, decider: Recommendation) -> str:
+    """Why a frame gets the threshold of frame ``k`` (0-based) of ``n_frames``."""
+    mine = "" if own.threshold is None else f"; this frame alone would get {own.threshold:.1e}"
+    why = decider.reason.split("; nothing falls below it")[0]
+    return (
+        f"one threshold for all {n_frames} frames: frame {k + 1} needs the largest ({why}){mine}. "
+        "Every frame keeps only eigenvalues at or above it, which its own advice keeps as well"
     )
 
 

@@ -1,134 +1,99 @@
-"""Remedies a chemist can apply, ranked: canonical orthogonalization, a pivoted-Cholesky
-subset of functions, a shell-pruned per-atom basis, and dropping one element's diffuse shells."""
+"""Remedies a chemist can apply, ranked at one target: canonical orthogonalization at the
+target, a pivoted-Cholesky subset of functions, a shell-pruned per-atom basis (keeping the
+point group, and without that constraint when it costs functions), and dropping one
+element's diffuse shells. Several frames of one geometry get one set of remedies that
+meets the target in every frame."""
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass, field, replace
 from typing import Any
 
 import numpy as np
 
 from ..base.errors import UsageError
-from ..base.jsonio import OMIT_NONE
 from ..numerics.cholesky import smallest_eigenvalue, verify_mode
+from ..numerics.eigen import compute_spectrum
 from ..numerics.memory import available_bytes
 from ..numerics.overlap import FunctionTable
+from ..numerics.spectrum import Spectrum
 from .canonical import Recommendation
+from .frames import frame_order, joint_select
+from .ladder import named_basis_remedy
 from .prepared import PreparedGeometry
 from .pruned_basis import function_record, pruned_basis, shell_record
-from .subset import Selection, check_atoms_not_emptied, check_target, select_for_target, shells_from_functions
-from .trial_scf import check_method, trial_scf
+from .records import (
+    Alternative,
+    DiffuseOption,
+    FrameFigures,
+    FunctionSubset,
+    NamedBasis,
+    NamedRung,
+    Remedies,
+    ShellPruning,
+    SymmetryInfo,
+)
+from .shells import (
+    WHOLE_SHELL_RULE,
+    SymmetryFound,
+    find_frames_symmetry,
+    full_point_group,
+    pruned_point_group,
+    whole_shell_selection,
+)
+from .subset import Selection, check_atoms_not_emptied, check_target
+from .symmetry import SYMMETRY_TOLERANCE
+from .trial_scf import TIME_LIMIT, Progress, check_method, trial_scf
+
+__all__ = [
+    "WHOLE_SHELL_RULE",
+    "Alternative",
+    "DiffuseOption",
+    "FrameFigures",
+    "FunctionSubset",
+    "Remedies",
+    "RemedyOptions",
+    "RemedyPlan",
+    "ShellPruning",
+    "SymmetryInfo",
+    "make_plan",
+    "plan_frames",
+    "plan_remedies",
+    "rank_alternatives",
+    "remedies_for",
+]
 
 #: Peak number of N x N arrays the remedies hold beside S, rounded up (measured: 2.07 at
 #: N = 11960, audit with remedies on the large path: the pivoted factor, then the shifted
-#: copy or the add-back factor, each released before the next is made).
+#: copy or the add-back factor, each released before the next is made). Several frames
+#: hold one more factor per further frame during the joint add-back pass.
 REMEDY_COPIES = 3
-
-
-@dataclass(frozen=True)
-class Alternative:
-    """One ranked remedy: what it removes (functions or directions) and what it leaves."""
-
-    kind: str
-    title: str
-    removed: int | None
-    unit: str  # "functions" | "directions"
-    smallest_after: float | None
-    reaches_target: bool
-    how: str
-    threshold: float | None = field(default=None, metadata={OMIT_NONE: True})
-    tolerance: float | None = field(default=None, metadata={OMIT_NONE: True})
-    shells_removed: int | None = field(default=None, metadata={OMIT_NONE: True})
-    element: str | None = field(default=None, metadata={OMIT_NONE: True})
-    rank: int = 0
-
-
-@dataclass(frozen=True)
-class FunctionSubset:
-    """The pivoted-Cholesky subset of single functions (records are 1-based)."""
-
-    tolerance: float
-    smallest_kept: float
-    factorizations: int
-    kept: int
-    kept_by_pivoting: int
-    added_back: int
-    dropped: list[dict]
-    kept_functions_in_order: list[int]
-
-
-@dataclass(frozen=True)
-class ShellPruning:
-    """The shell-pruned basis: whole shells kept or dropped."""
-
-    chosen_by: str
-    tolerance: float
-    smallest_kept: float
-    factorizations: int
-    kept: int
-    kept_by_pivoting: int
-    added_back: int
-    dropped_shells: list[dict]
-
-
-@dataclass(frozen=True)
-class DiffuseOption:
-    """Dropping the diffuse shells of one element on every atom of it."""
-
-    element: str
-    removed: int
-    shells: int
-    shell_names: list[str]
-    smallest_after: float
-    reaches_target: bool
-
-
-@dataclass(frozen=True)
-class Remedies:
-    """The remedies part of an audit result (``remedies`` in the JSON report)."""
-
-    target: float
-    needed: bool
-    alternatives: list[Alternative]
-    cholesky_functions: FunctionSubset | None = field(default=None, metadata={OMIT_NONE: True})
-    cholesky_shells: ShellPruning | None = field(default=None, metadata={OMIT_NONE: True})
-    diffuse_by_element: list[DiffuseOption] = field(default_factory=list)
-    problems: list[str] = field(default_factory=list)
-    trial_scf: dict | None = None
-
-
-def diffuse_element_options(S: np.ndarray, table: FunctionTable, target: float) -> list[DiffuseOption]:
-    """For each element with diffuse shells: drop them on every atom of that element."""
-    out = []
-    func_el = np.array([str(table.elements[a - 1]) for a in table.func_atom])
-    func_dif = table.shell_diffuse[table.func_shell]
-    for el in sorted(set(func_el[func_dif])):
-        drop = func_dif & (func_el == el)
-        kept = np.flatnonzero(~drop)
-        try:
-            check_atoms_not_emptied(kept, table.func_atom - 1)
-        except UsageError:
-            continue
-        low = smallest_eigenvalue(S, kept)
-        shells = np.unique(table.func_shell[drop])
-        names = sorted({table.shell_name[s][-1] + f" {table.shell_exponent[s]:.4g}" for s in shells})
-        out.append(DiffuseOption(str(el), int(drop.sum()), len(shells), names, low, bool(low >= target)))
-    return out
 
 
 @dataclass
 class RemedyPlan:
     """The working state of the remedies: the selections found, the pruned-basis document,
-    the ranked alternatives; ``report`` turns it into the typed ``Remedies``."""
+    the ranked alternatives; ``report`` turns it into the typed ``Remedies``.
+
+    ``shells`` is the written shell-pruned basis (pruned alike on equivalent atoms when the
+    geometry has symmetry); ``free_shells`` the pruning without that constraint, kept only
+    when it keeps more functions."""
 
     target: float
     needed: bool
+    lower_bound: int | None = None
     functions: Selection | None = None
     shells: Selection | None = None
+    free_shells: Selection | None = None
+    symmetry: SymmetryInfo | None = None
+    named_basis: NamedBasis | None = None
     pruned: dict | None = None
     alternatives: list[Alternative] = field(default_factory=list)
     diffuse: list[DiffuseOption] = field(default_factory=list)
     problems: list[str] = field(default_factory=list)
+    frames: list[FrameFigures] | None = None
+    deciding_frame: int | None = None
     trial_scf: dict | None = None
 
     def report(self, table: FunctionTable) -> Remedies:
@@ -136,10 +101,16 @@ class RemedyPlan:
             target=self.target,
             needed=self.needed,
             alternatives=list(self.alternatives),
+            lower_bound=self.lower_bound,
             cholesky_functions=None if self.functions is None else _function_subset(self.functions, table),
             cholesky_shells=None if self.shells is None else _shell_pruning(self.shells, table),
+            cholesky_shells_unconstrained=None if self.free_shells is None else _shell_pruning(self.free_shells, table),
+            symmetry=self.symmetry,
+            named_basis=self.named_basis,
             diffuse_by_element=list(self.diffuse),
             problems=list(self.problems),
+            frames=self.frames,
+            deciding_frame=self.deciding_frame,
             trial_scf=self.trial_scf,
         )
 
@@ -157,6 +128,11 @@ def _function_subset(f: Selection, table: FunctionTable) -> FunctionSubset:
     )
 
 
+def _dropped_shells(s: Selection, table: FunctionTable) -> np.ndarray:
+    """The shells (not units) a whole-unit selection drops."""
+    return np.setdiff1d(np.arange(table.n_shells), np.unique(table.func_shell[s.kept]))
+
+
 def _shell_pruning(s: Selection, table: FunctionTable) -> ShellPruning:
     chosen = "shell pivoting" if s.search != "from-functions" else "shells the function-level subset leaves whole"
     return ShellPruning(
@@ -167,53 +143,31 @@ def _shell_pruning(s: Selection, table: FunctionTable) -> ShellPruning:
         kept=int(s.kept.size),
         kept_by_pivoting=s.prefix,
         added_back=s.added_back,
-        dropped_shells=[shell_record(table, int(i)) for i in _shell_sets(s)[1]],
+        dropped_shells=[shell_record(table, int(i)) for i in _dropped_shells(s, table)],
     )
 
 
-def _shell_sets(s: Selection) -> tuple[np.ndarray, np.ndarray]:
-    """The shells a whole-shell selection keeps and those it drops."""
-    if s.kept_shells is None or s.dropped_shells is None:
-        raise ValueError("not a whole-shell selection")
-    return s.kept_shells, s.dropped_shells
-
-
-def _best_shell_selection(
-    S: np.ndarray,
-    table: FunctionTable,
-    target: float,
-    functions: Selection | None,
-    atoms: np.ndarray,
-    mode: str,
-    problems: list[str],
-    shell_pivoting: bool = True,
-) -> Selection | None:
-    """The whole-shell kept set that drops fewer functions: shell pivoting, or the shells the
-    function-level subset leaves untouched (both followed by the add-back pass).
-
-    Without ``shell_pivoting`` only the cheap function-seeded set is tried (shell pivoting
-    then runs only when that fails): its per-shell Python loop costs several
-    eigendecompositions of S on a thousand functions."""
-    found, why = [], None
-    if shell_pivoting or functions is None:
+def diffuse_element_options(
+    S: np.ndarray | Sequence[np.ndarray], table: FunctionTable, target: float
+) -> list[DiffuseOption]:
+    """For each element with diffuse shells: drop them on every atom of that element (in
+    every frame of ``S``, a matrix or a list of one per frame: the worst frame's value)."""
+    Ss = [S] if isinstance(S, np.ndarray) else list(S)
+    out = []
+    func_el = np.array([str(table.elements[a - 1]) for a in table.func_atom])
+    func_dif = table.shell_diffuse[table.func_shell]
+    for el in sorted(set(func_el[func_dif])):
+        drop = func_dif & (func_el == el)
+        kept = np.flatnonzero(~drop)
         try:
-            found.append(select_for_target(S, target, table.func_shell, atoms, verify=mode))
-        except UsageError as exc:
-            why = exc.message
-    if functions is not None:
-        seeded = shells_from_functions(S, functions, table.func_shell, verify=mode)
-        if seeded is not None:
-            try:
-                check_atoms_not_emptied(seeded.kept, atoms, what=f"target {target:g}")
-                found.append(seeded)
-            except UsageError as exc:
-                why = why or exc.message
-    if not found and not shell_pivoting and functions is not None:
-        return _best_shell_selection(S, table, target, None, atoms, mode, problems)
-    if not found:
-        problems.append(f"shell-pruned basis: {why or 'no whole-shell set reaches the target'}")
-        return None
-    return min(found, key=lambda s: s.n_dropped)  # ties: shell pivoting (listed first)
+            check_atoms_not_emptied(kept, table.func_atom - 1)
+        except UsageError:
+            continue
+        low = min(smallest_eigenvalue(Sf, kept) for Sf in Ss)
+        shells = np.unique(table.func_shell[drop])
+        names = sorted({table.shell_name[s][-1] + f" {table.shell_exponent[s]:.4g}" for s in shells})
+        out.append(DiffuseOption(str(el), int(drop.sum()), len(shells), names, low, bool(low >= target)))
+    return out
 
 
 def _alt(
@@ -230,8 +184,8 @@ def _alt(
     return Alternative(kind, title, removed, unit, smallest, reaches, how, **extra)
 
 
-def _memory_problem(n: int) -> str | None:
-    need = REMEDY_COPIES * 8 * n * n
+def _memory_problem(n: int, n_frames: int = 1) -> str | None:
+    need = (REMEDY_COPIES + max(0, n_frames - 1)) * 8 * n * n
     free = available_bytes()
     if need <= free:
         return None
@@ -241,24 +195,55 @@ def _memory_problem(n: int) -> str | None:
     )
 
 
-def _canonical(rec: Recommendation, target: float) -> Alternative:
-    how = "keep the basis; drop eigenvectors of S below the threshold (canonical orthogonalization section)"
-    title = f"canonical orthogonalization at {rec.threshold:.1e}"
+@dataclass(frozen=True)
+class _AtTarget:
+    """Canonical orthogonalization at the target in every frame (file order)."""
+
+    counts: list[int | None]
+    kept: list[float | None]
+
+    @property
+    def removed(self) -> int | None:
+        return None if any(c is None for c in self.counts) else max(c for c in self.counts if c is not None)
+
+    @property
+    def smallest_after(self) -> float | None:
+        return None if any(v is None for v in self.kept) else min(v for v in self.kept if v is not None)
+
+
+def _at_target(spectra: Sequence[Spectrum], target: float) -> _AtTarget:
+    counts, kept = [], []
+    for spec in spectra:
+        c = spec.count_below(target)
+        counts.append(c)
+        kept.append(float(spec.values[c]) if c is not None and c < spec.values.size else None)
+    return _AtTarget(counts, kept)
+
+
+def _canonical(at: _AtTarget, target: float) -> Alternative:
+    how = (
+        "keep the basis; drop the eigenvectors of S below the target "
+        f"(in pyscf: scf.hf.overlap_zero_eigenvalue_threshold = {target:.1e}); removes exactly the "
+        "eigenvalues below the target, the fewest any remedy can"
+    )
+    known = [c for c in at.counts if c is not None]
+    if len(at.counts) > 1 and known and min(known) != max(known):
+        how += f"; {min(known)} to {max(known)} directions depending on the frame"
     return _alt(
         "canonical_orthogonalization",
-        title,
-        rec.n_removed,
+        f"canonical orthogonalization at the target {target:.1e}",
+        at.removed,
         "directions",
-        rec.smallest_kept,
+        at.smallest_after,
         target,
         how,
-        threshold=rec.threshold,
+        threshold=target,
     )
 
 
-def _add_function_subset(plan: RemedyPlan, S: np.ndarray, atoms: np.ndarray, mode: str) -> None:
+def _add_function_subset(plan: RemedyPlan, Ss: list[np.ndarray], atoms: np.ndarray, mode: str) -> None:
     try:
-        f = plan.functions = select_for_target(S, plan.target, atom_of_function=atoms, verify=mode)
+        f = plan.functions = joint_select(Ss, plan.target, None, atoms, verify=mode)
     except UsageError as exc:
         plan.problems.append(f"pivoted-Cholesky subset: {exc.message}")
         return
@@ -276,36 +261,8 @@ def _add_function_subset(plan: RemedyPlan, S: np.ndarray, atoms: np.ndarray, mod
     )
 
 
-def _add_shell_pruning(
-    plan: RemedyPlan, prep: PreparedGeometry, atoms: np.ndarray, mode: str, shell_pivoting: bool
-) -> None:
-    s = plan.shells = _best_shell_selection(
-        prep.S, prep.table, plan.target, plan.functions, atoms, mode, plan.problems, shell_pivoting
-    )
-    if s is None:
-        return
-    try:
-        plan.pruned = pruned_basis(prep, _shell_sets(s)[0], plan.target, s.smallest_kept)
-    except UsageError as exc:
-        plan.problems.append(f"shell-pruned basis: {exc.message}")
-        return
-    plan.alternatives.append(
-        _alt(
-            "cholesky_shells",
-            "shell-pruned basis (whole shells, pivoted Cholesky)",
-            s.n_dropped,
-            "functions",
-            s.smallest_kept,
-            plan.target,
-            "auditor prune writes it as a pyscf basis (JSON)",
-            tolerance=s.tolerance,
-            shells_removed=len(_shell_sets(s)[1]),
-        )
-    )
-
-
-def _add_diffuse_options(plan: RemedyPlan, S: np.ndarray, table: FunctionTable) -> None:
-    plan.diffuse = diffuse_element_options(S, table, plan.target)
+def _add_diffuse_options(plan: RemedyPlan, Ss: list[np.ndarray], table: FunctionTable) -> None:
+    plan.diffuse = diffuse_element_options(Ss, table, plan.target)
     for opt in plan.diffuse:
         if opt.reaches_target:
             how = f"use the parent basis without augmentation for {opt.element} (e.g. --basis-for)"
@@ -323,22 +280,225 @@ def _add_diffuse_options(plan: RemedyPlan, S: np.ndarray, table: FunctionTable) 
             )
 
 
+def _add_named_basis(plan: RemedyPlan, fr: _Frames, n: int) -> None:
+    """The largest smaller published relative of the requested basis that meets the target."""
+    prep = fr.worst
+    ladder = named_basis_remedy([p.molecule for p in fr.preps], prep.spec, plan.target, (plan.target, 0.0))
+    if ladder is None:
+        return
+    rungs = [
+        NamedRung(r.basis, r.use_name, r.matches_published, r.n_functions, r.smallest, r.reaches_target, r.error)
+        for r in ladder.rungs
+    ]
+    plan.named_basis = NamedBasis(ladder.requested, ladder.chosen, ladder.reason, rungs)
+    best = next((r for r in ladder.rungs if r.reaches_target and r.n_functions is not None), None)
+    if best is None or best.n_functions is None:
+        return
+    cite = f"; cite {best.reference}" if best.reference else ""
+    rule = "" if best.published is None else f" ({best.how})"
+    plan.alternatives.append(
+        _alt(
+            "named_basis",
+            f"use the published basis {best.use_name}",
+            n - best.n_functions,
+            "functions",
+            best.smallest,
+            plan.target,
+            f"a named, citable basis{rule}{cite}; auditor ladder compares every relative",
+            basis=best.use_name,
+        )
+    )
+
+
+@dataclass
+class _Frames:
+    """The frames of one geometry as the remedies see them: file order and worst first."""
+
+    preps: list[PreparedGeometry]
+    spectra: list[Spectrum]
+    order: list[int]  # frame indices, worst (smallest eigenvalue) first
+    sym: SymmetryFound | None = None  # found by the whole-shell step
+
+    @property
+    def worst(self) -> PreparedGeometry:
+        return self.preps[self.order[0]]
+
+    @property
+    def worst_first(self) -> list[np.ndarray]:
+        return [self.preps[k].S for k in self.order]
+
+
+def _add_shell_prunings(plan: RemedyPlan, fr: _Frames, atoms: np.ndarray, mode: str) -> None:
+    """The shell-pruned basis (equivalent atoms pruned alike), and the one that ignores
+    symmetry when it keeps more functions; point groups of the full and pruned bases."""
+    table, Ss = fr.worst.table, fr.worst_first
+    free = whole_shell_selection(Ss, plan.target, plan.functions, table.func_shell, atoms, mode, plan.problems)
+    sym = fr.sym = find_frames_symmetry(fr.preps)
+    kept = free
+    if not sym.trivial:
+        problems: list[str] = []
+        what = "shell-pruned basis keeping the point group"
+        kept = whole_shell_selection(Ss, plan.target, plan.functions, sym.units, atoms, mode, problems, what)
+        if kept is None:
+            plan.problems += problems
+            kept = free
+    plan.shells = kept
+    if kept is not None and free is not None and kept is not free and free.kept.size > kept.kept.size:
+        plan.free_shells = free
+    if kept is None:
+        return
+    plan.symmetry = _symmetry_info(plan, fr, sym)
+    try:
+        plan.pruned = pruned_basis(fr.worst, np.unique(table.func_shell[kept.kept]), plan.target, kept.smallest_kept)
+    except UsageError as exc:
+        plan.problems.append(f"shell-pruned basis: {exc.message}")
+        return
+    if len(fr.preps) > 1:  # one basis for every frame: the document carries every frame's coordinates
+        plan.pruned["frame"] = fr.worst.molecule.frame + 1
+        plan.pruned["frames"] = [[[round(float(x), 10) for x in xyz] for xyz in p.molecule.coords] for p in fr.preps]
+    for s, kind in ((kept, "cholesky_shells"), (plan.free_shells, "cholesky_shells_unconstrained")):
+        if s is not None:
+            plan.alternatives.append(_shell_alternative(plan, s, kind, table))
+
+
+def _shell_alternative(plan: RemedyPlan, s: Selection, kind: str, table: FunctionTable) -> Alternative:
+    info = plan.symmetry
+    if kind == "cholesky_shells_unconstrained" and info is not None:
+        title = f"shell-pruned basis ignoring symmetry (point group {info.unconstrained_point_group})"
+        how = "drop whole shells without regard to equivalent atoms; the pruned basis lowers the point group"
+    else:
+        group = f", point group {info.pruned_point_group}" if info is not None and info.point_group != "C1" else ""
+        title = f"shell-pruned basis (whole shells, pivoted Cholesky{group})"
+        how = "auditor prune writes it as a pyscf basis (JSON) and in other programs' formats"
+    return _alt(
+        kind,
+        title,
+        s.n_dropped,
+        "functions",
+        s.smallest_kept,
+        plan.target,
+        how,
+        tolerance=s.tolerance,
+        shells_removed=int(_dropped_shells(s, table).size),
+    )
+
+
+def _symmetry_info(plan: RemedyPlan, fr: _Frames, sym: SymmetryFound) -> SymmetryInfo:
+    k = fr.order[0]
+    prep, own = fr.preps[k], sym.per_frame[k]
+    kept = plan.shells
+    full = full_point_group(prep, own)
+    pruned = None if kept is None else pruned_point_group(prep, kept.kept, own)
+    free = plan.free_shells
+    free_group = None if free is None else pruned_point_group(prep, free.kept, own)
+    extra = 0 if free is None or kept is None else int(free.kept.size - kept.kept.size)
+    if sym.trivial:
+        note = "no two atoms are equivalent: every shell is pruned on its own"
+    elif free is None:
+        note = "pruning equivalent atoms alike cost no functions against the pruning that ignores symmetry"
+    else:
+        note = (
+            f"keeping point group {full} costs {extra} function(s): the pruning that ignores symmetry keeps "
+            f"{free.kept.size} functions but lowers the point group to {free_group}"
+        )
+    return SymmetryInfo(
+        tolerance_angstrom=SYMMETRY_TOLERANCE,
+        point_group=full,
+        pruned_point_group=pruned,
+        keeps_point_group=pruned == full,
+        equivalent_atoms=[[a + 1 for a in s] for s in sym.atom_sets if len(s) > 1],
+        unconstrained_point_group=free_group,
+        extra_functions_dropped=extra,
+        note=note,
+    )
+
+
+def _frame_figures(plan: RemedyPlan, fr: _Frames, at: _AtTarget) -> list[FrameFigures]:
+    """Each frame (file order) under the remedies computed for all of them."""
+    sym = fr.sym if plan.shells is not None else None
+    out = []
+    for k, (prep, spec) in enumerate(zip(fr.preps, fr.spectra)):
+        f, s = plan.functions, plan.shells
+        own = None if sym is None else sym.per_frame[k]
+        out.append(
+            FrameFigures(
+                frame=prep.molecule.frame + 1,
+                smallest=spec.smallest,
+                below_target=at.counts[k],
+                functions_smallest=None if f is None else smallest_eigenvalue(prep.S, f.kept),
+                shells_smallest=None if s is None else smallest_eigenvalue(prep.S, s.kept),
+                point_group=None if own is None else full_point_group(prep, own),
+                pruned_point_group=None if own is None or s is None else pruned_point_group(prep, s.kept, own),
+            )
+        )
+    return out
+
+
 #: Ties: the larger smallest eigenvalue (to 3 digits), then whole-shell remedies first.
-_PREFER = {"cholesky_shells": 0, "drop_diffuse_element": 1, "cholesky_functions": 2, "canonical_orthogonalization": 3}
+_PREFER = {
+    "named_basis": -1,
+    "cholesky_shells": 0,
+    "drop_diffuse_element": 1,
+    "cholesky_shells_unconstrained": 2,
+    "cholesky_functions": 3,
+    "canonical_orthogonalization": 4,
+}
 
 
 def rank_alternatives(alternatives: list[Alternative], n: int) -> list[Alternative]:
-    """Those that reach the target first, then fewest removed, then the larger smallest eigenvalue."""
+    """Those that reach the target first, a published named basis first among them (chemists
+    prefer a citable basis to a custom one), then fewest removed, then the larger smallest
+    eigenvalue."""
     ordered = sorted(
         alternatives,
         key=lambda a: (
             not a.reaches_target,
+            not (a.reaches_target and a.kind == "named_basis"),
             a.removed if a.removed is not None else n,
             -float(f"{a.smallest_after or 0.0:.2e}"),
-            _PREFER[a.kind],
+            _PREFER.get(a.kind, len(_PREFER)),
         ),
     )
     return [replace(a, rank=k) for k, a in enumerate(ordered, 1)]
+
+
+def plan_frames(
+    preps: Sequence[PreparedGeometry],
+    spectra: Sequence[Spectrum],
+    recommendation: Recommendation,
+    target: float,
+    force: bool = False,
+) -> RemedyPlan:
+    """Work out every remedy, at ``target``, for the frames of one geometry (one frame, or
+    several with the same atoms and basis: one set of remedies for all), and rank them.
+
+    Nothing is computed when every frame already meets the target (and not ``force``).
+    """
+    target = check_target(target)
+    fr = _Frames(list(preps), list(spectra), frame_order([s.smallest for s in spectra]))
+    table = fr.worst.table
+    at = _at_target(fr.spectra, target)
+    plan = RemedyPlan(target=target, needed=bool(min(s.smallest for s in spectra) < target), lower_bound=at.removed)
+    if len(fr.preps) > 1:
+        plan.deciding_frame = fr.worst.molecule.frame + 1
+    if not plan.needed and not force:
+        return plan
+    problem = _memory_problem(table.n_functions, len(fr.preps))
+    if problem:
+        plan.problems.append(problem)
+        return plan
+    mode = verify_mode(table.n_functions)
+    atoms = table.func_atom - 1
+    if recommendation.threshold is not None:  # none is advised for a broken geometry
+        plan.alternatives.append(_canonical(at, target))
+    _add_function_subset(plan, fr.worst_first, atoms, mode)
+    _add_shell_prunings(plan, fr, atoms, mode)
+    _add_diffuse_options(plan, fr.worst_first, table)
+    _add_named_basis(plan, fr, table.n_functions)
+    if len(fr.preps) > 1:
+        plan.frames = _frame_figures(plan, fr, at)
+    plan.alternatives = rank_alternatives(plan.alternatives, table.n_functions)
+    return plan
 
 
 def plan_remedies(
@@ -347,65 +507,57 @@ def plan_remedies(
     smallest: float,
     target: float,
     force: bool = False,
-    shell_pivoting: bool = True,
+    spectrum: Spectrum | None = None,
 ) -> RemedyPlan:
-    """Work out every remedy for a prepared geometry and rank them.
-
-    ``smallest`` is the full basis's smallest eigenvalue; when it already meets the
-    target (and not ``force``) nothing is computed.
-    """
-    target = check_target(target)
-    S, table = prep.S, prep.table
-    plan = RemedyPlan(target=target, needed=bool(smallest < target))
-    if not plan.needed and not force:
-        return plan
-    problem = _memory_problem(table.n_functions)
-    if problem:
-        plan.problems.append(problem)
-        return plan
-    mode = verify_mode(table.n_functions)
-    atoms = table.func_atom - 1
-    if recommendation.threshold is not None:  # none is advised for a broken geometry
-        plan.alternatives.append(_canonical(recommendation, target))
-    _add_function_subset(plan, S, atoms, mode)
-    _add_shell_pruning(plan, prep, atoms, mode, shell_pivoting)
-    _add_diffuse_options(plan, S, table)
-    plan.alternatives = rank_alternatives(plan.alternatives, table.n_functions)
-    return plan
+    """`plan_frames` for one frame. ``smallest`` is the full basis's smallest eigenvalue;
+    without ``spectrum`` the spectrum of ``prep.S`` is computed here (dense)."""
+    if spectrum is None:
+        spectrum = compute_spectrum(prep.S, vector_level=min(target, 1.0), method="full")
+    return plan_frames([prep], [spectrum], recommendation, target, force)
 
 
 @dataclass(frozen=True)
 class RemedyOptions:
     """How remedies are worked out: ``target`` smallest eigenvalue (None: the policy's
     caution level), an opt-in trial SCF (``trial_scf`` "hf" or a functional name) with
-    its size and time limits, ``force`` to compute even when nothing needs removing, and
-    ``shell_pivoting`` for the thorough (slower) whole-shell search that `prune` uses."""
+    its size and time limits and an optional per-cycle ``progress`` callback, and ``force``
+    to compute even when nothing needs removing.
+    The whole-shell set follows one rule everywhere (`WHOLE_SHELL_RULE`)."""
 
     target: float | None = None
     trial_scf: str | None = None
     trial_max_functions: int = 400
-    trial_time_limit: float = 120.0
+    trial_time_limit: float = TIME_LIMIT
     force: bool = False
-    shell_pivoting: bool = False
+    #: called after every trial-SCF cycle with {basis, cycle, energy, seconds} (the command
+    #: line prints it on a terminal); not part of the options' identity
+    progress: Progress | None = field(default=None, compare=False, repr=False)
 
 
 def make_plan(
-    prep: PreparedGeometry, recommendation: Recommendation, smallest: float, options: RemedyOptions, caution: float
+    preps: PreparedGeometry | Sequence[PreparedGeometry],
+    recommendation: Recommendation,
+    spectra: Spectrum | Sequence[Spectrum],
+    options: RemedyOptions,
+    caution: float,
 ) -> RemedyPlan:
-    """`plan_remedies` plus the opt-in trial SCF."""
+    """`plan_frames` plus the opt-in trial SCF (on the worst frame; canonical orthogonalization
+    at the target against the shell-pruned basis)."""
+    preps = [preps] if not isinstance(preps, Sequence) else list(preps)
+    spectra = [spectra] if isinstance(spectra, Spectrum) else list(spectra)
     target = caution if options.target is None else options.target
-    plan = plan_remedies(
-        prep, recommendation, smallest, target, force=options.force, shell_pivoting=options.shell_pivoting
-    )
+    plan = plan_frames(preps, spectra, recommendation, target, force=options.force)
     if options.trial_scf:
+        worst = preps[frame_order([s.smallest for s in spectra])[0]]
         if plan.needed or options.force:
             plan.trial_scf = trial_scf(
-                prep,
+                worst,
                 options.trial_scf,
-                target if recommendation.threshold is None else recommendation.threshold,
+                plan.target,
                 plan.pruned,
                 options.trial_max_functions,
                 options.trial_time_limit,
+                options.progress,
             )
         else:
             plan.trial_scf = {
@@ -417,12 +569,13 @@ def make_plan(
 
 
 def remedies_for(
-    prep: PreparedGeometry,
+    preps: PreparedGeometry | Sequence[PreparedGeometry],
     recommendation: Recommendation,
-    smallest: float,
+    spectra: Spectrum | Sequence[Spectrum],
     options: RemedyOptions | None,
     caution: float,
 ) -> Remedies:
-    """The ``remedies`` part of an audit result."""
-    plan = make_plan(prep, recommendation, smallest, options or RemedyOptions(), caution)
-    return plan.report(prep.table)
+    """The ``remedies`` part of an audit result (the same object for every frame)."""
+    plan = make_plan(preps, recommendation, spectra, options or RemedyOptions(), caution)
+    table = preps.table if not isinstance(preps, Sequence) else preps[0].table
+    return plan.report(table)

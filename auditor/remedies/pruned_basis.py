@@ -63,14 +63,46 @@ def _shell_entries(pm) -> list[tuple[int, int, list[list[float]]]]:
     return out
 
 
+def atom_shell_keys(prep: PreparedGeometry, keep: np.ndarray | None = None) -> list[str]:
+    """Per atom, a text that is equal for two atoms exactly when they keep the same basis
+    data (l, exponents, coefficients of every kept shell; ``keep``: a flag per shell, all
+    by default)."""
+    entries = _shell_entries(prep.mole)
+    flags = np.ones(len(entries), dtype=bool) if keep is None else keep
+    return [
+        repr([(l, p) for s, (a, l, p) in enumerate(entries) if a == i and flags[s]])
+        for i in range(prep.molecule.n_atoms)
+    ]
+
+
+def pruned_labels(prep: PreparedGeometry, keep: np.ndarray) -> list[str]:
+    """pyscf atom labels of a pruning (``keep``: a flag per shell). Atoms with the same kept
+    basis data share a label: the element ("H", "ghost-H") for the atoms like the first one
+    that keeps every shell, else the element and the 1-based number of the first atom of the
+    group ("H5", "ghost-H5"). pyscf treats atoms with one label as one kind, so the labels
+    carry exactly the differences between the atoms' basis sets (pruned shells, and basis
+    data read per atom from a checkpoint or QCSchema file)."""
+    mol, table = prep.molecule, prep.table
+    own = atom_shell_keys(prep, keep)
+    plain: dict[str, str] = {}  # element label -> the kept data that goes by the bare label
+    for i, (sym, ghost) in enumerate(zip(mol.symbols, mol.ghost)):
+        if keep[table.shell_atom == i + 1].all():
+            plain.setdefault(("ghost-" if ghost else "") + sym, own[i])
+    labels: list[str] = []
+    first: dict[tuple[str, str], str] = {}
+    for i, (sym, ghost) in enumerate(zip(mol.symbols, mol.ghost)):
+        base = ("ghost-" if ghost else "") + sym
+        labels.append(base if plain.get(base) == own[i] else first.setdefault((base, own[i]), f"{base}{i + 1}"))
+    return labels
+
+
 def pruned_basis(
     prep: PreparedGeometry, kept_shells: Iterable[int], target: float | None = None, smallest: float | None = None
 ) -> dict:
     """The pyscf-ready document of a basis that keeps only ``kept_shells`` (0-based).
 
-    Atoms that lose a shell get a label of their own (element plus 1-based atom number,
-    e.g. "H5"); the others share the element's label. Raises UsageError if an atom
-    would keep no function.
+    Atoms are labelled by `pruned_labels`. Raises UsageError if an atom would keep no
+    function.
     """
     mol, table = prep.molecule, prep.table
     keep = np.zeros(table.n_shells, dtype=bool)
@@ -79,17 +111,12 @@ def pruned_basis(
     entries = _shell_entries(prep.mole)
     if len(entries) != table.n_shells:
         raise InputError("pyscf shells and the function table disagree; cannot write a pruned basis")
-    pruned_atoms = {int(table.shell_atom[s]) - 1 for s in np.flatnonzero(~keep)}
-    own = [[[l, *prims] for s, (a, l, prims) in enumerate(entries) if a == i and keep[s]] for i in range(mol.n_atoms)]
-    bases = [("ghost-" if ghost else "") + sym for sym, ghost in zip(mol.symbols, mol.ghost)]
-    # atoms of one element whose shells differ (basis data read per atom) get labels of their own too
-    mixed = {b for b in bases if len({repr(own[i]) for i in range(mol.n_atoms) if bases[i] == b}) > 1}
     atoms: list[list] = []
     basis: dict[str, list] = {}
-    for i, (base, xyz) in enumerate(zip(bases, mol.coords)):
-        label = f"{base}{i + 1}" if i in pruned_atoms or base in mixed else base
+    for i, (label, xyz) in enumerate(zip(pruned_labels(prep, keep), mol.coords)):
         atoms.append([label, [round(float(x), 10) for x in xyz]])
-        basis.setdefault(label, own[i])
+        if label not in basis:
+            basis[label] = [[l, *prims] for s, (a, l, prims) in enumerate(entries) if a == i and keep[s]]
     dropped = [shell_record(table, int(s)) for s in np.flatnonzero(~keep)]
     return {
         "format": PRUNED_FORMAT,

@@ -292,12 +292,12 @@ def _search_prefix(S: np.ndarray, goal: float, shells: np.ndarray | None) -> _Pr
 def _offer_back(
     S: np.ndarray, found: _Prefix, order: np.ndarray, shells: np.ndarray | None, goal: float
 ) -> tuple[np.ndarray, list[int], np.ndarray | None]:
-    """The add-back pass after the prefix ``order``: `_add_back` over the units left out."""
+    """The add-back pass after the prefix ``order``: `add_back` over the units left out."""
     # The add-back pass works on the factor of S[order, order] - goal*I, and a prefix of
     # its result serves every check after it: release the N x N pivoted factor first.
     found.res = dataclasses.replace(found.res, factor=None)
     groups = _leftover_groups(found.res, found.k, shells, S.shape[0])
-    added = _add_back(S, order, groups, goal, found.prefix_factor)
+    added = add_back(S, order, groups, goal, found.prefix_factor)
     found.factorizations += 1
     return added
 
@@ -397,7 +397,7 @@ def shells_from_functions(
         return None
     order = np.concatenate([groups[s] for s in seed])
     k = order.size
-    order, blocks, factor = _add_back(S, order, [groups[s] for s in sorted(bad)], goal)
+    order, blocks, factor = add_back(S, order, [groups[s] for s in sorted(bad)], goal)
     smallest, eigs = np.nan, 0
     notes: list[str] = []
     while mode != "none":
@@ -445,7 +445,7 @@ def _leftover_groups(res: CholeskyResult, k: int, shells: np.ndarray | None, n: 
     return [groups[s] for s in later + never]
 
 
-def _add_back(
+def add_back(
     S: np.ndarray, order: np.ndarray, groups: list[np.ndarray], goal: float, L: np.ndarray | None = None
 ) -> tuple[np.ndarray, list[int], np.ndarray | None]:
     """Greedily append each group (in turn) while ``S[kept, kept] - goal*I`` stays positive

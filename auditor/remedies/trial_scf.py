@@ -10,9 +10,8 @@ the other costs. Guarded by a size limit and a per-run time limit.
 from __future__ import annotations
 
 import time
+from collections.abc import Callable
 from typing import TYPE_CHECKING, Any
-
-from numpy.linalg import LinAlgError
 
 from ..base.errors import UsageError
 from ..inputs.pruned import load_pruned_doc
@@ -23,7 +22,11 @@ if TYPE_CHECKING:
     from pyscf import gto
 
 MAX_FUNCTIONS = 400
-TIME_LIMIT = 120.0  # seconds per SCF run
+#: seconds per SCF run. Measured (benchmarks/bench_trial_scf.py, docs/benchmarks.md): near the
+#: size limit a run took up to 357 s (9 waters in aug-cc-pVDZ, 369 functions, HF) and 309 s
+#: (pyridine in aug-cc-pVTZ, 391 functions, HF) on a shared two-core machine; pyscf computes the
+#: integrals anew every cycle above about 250 functions (direct SCF), so time grows fast with size.
+TIME_LIMIT = 900.0
 HF_NAMES = ("hf", "scf", "rhf", "uhf")
 
 
@@ -45,11 +48,23 @@ def check_method(method: str) -> str:
     return name
 
 
+#: what a progress callback receives after every SCF cycle
+Progress = Callable[[dict], None]
+
+
 def run_scf(
-    mol: gto.Mole, method: str, threshold: float, time_limit: float = TIME_LIMIT, conv_tol: float = 1e-9
+    mol: gto.Mole,
+    method: str,
+    threshold: float,
+    time_limit: float = TIME_LIMIT,
+    conv_tol: float = 1e-9,
+    progress: Progress | None = None,
+    label: str = "",
 ) -> dict:
     """One SCF on pyscf Mole ``mol`` with canonical orthogonalization at ``threshold``
-    (0 keeps every direction). Returns convergence, cycles, energy and timing."""
+    (0 keeps every direction). Returns status ("done", "stopped" at the time limit, or
+    "failed" with the error), convergence, cycles, energy and timing. ``progress`` gets
+    {basis, cycle, energy, seconds} after every cycle."""
     from pyscf import dft, scf  # pyscf is slow to import: only when a trial SCF runs
 
     method = check_method(method)
@@ -58,38 +73,56 @@ def run_scf(
         mf.xc = method
     mf.verbose = 0
     mf.conv_tol = conv_tol
-    S_raw = mol.intor_symmetric("int1e_ovlp")
-    X = orthogonalizer(S_raw, threshold)
-    mf.check_linear_dependency = lambda s, verbose=None: X
     start = time.perf_counter()
+    cycles = [0]
 
-    def watch(envs):
-        if time.perf_counter() - start > time_limit:
+    def watch(envs: dict) -> None:
+        cycles[0] += 1
+        elapsed = time.perf_counter() - start
+        if progress is not None:
+            progress({"basis": label, "cycle": cycles[0], "energy": envs.get("e_tot"), "seconds": elapsed})
+        if elapsed > time_limit:
             raise _OutOfTime
 
-    mf.callback = watch
-    out = {"n_functions": int(mol.nao), "directions_removed": int(mol.nao - X.shape[1]), "threshold": threshold}
+    out: dict[str, Any] = {"n_functions": int(mol.nao), "directions_removed": 0, "threshold": threshold}
     try:
+        X = orthogonalizer(mol.intor_symmetric("int1e_ovlp"), threshold)
+        out["directions_removed"] = int(mol.nao - X.shape[1])
+        mf.check_linear_dependency = lambda s, verbose=None: X
+        mf.callback = watch
         energy = mf.kernel()
     except _OutOfTime:
-        return {
-            **out,
-            "status": "stopped",
-            "converged": False,
-            "cycles": getattr(mf, "cycles", None),
-            "energy": None,
-            "seconds": round(time.perf_counter() - start, 2),
-            "note": f"stopped after the time limit of {time_limit:g} s",
-        }
+        return _run(out, "stopped", cycles[0], None, start, f"stopped at the time limit of {time_limit:g} s")
+    except Exception as exc:  # numpy's LinAlgError, pyscf's RuntimeError, MemoryError, ...
+        first = str(exc).strip().splitlines()[0][:120] if str(exc).strip() else ""
+        return _run(out, "failed", cycles[0], None, start, f"failed: {type(exc).__name__}: {first}".rstrip(": "))
+    if not mf.converged:
+        note = f"did not converge in {cycles[0]} cycles (pyscf's max_cycle {mf.max_cycle}): the energy is not final"
+        return {**_run(out, "done", cycles[0], float(energy), start, note), "converged": False}
+    return {**_run(out, "done", cycles[0], float(energy), start, ""), "converged": True}
+
+
+def _run(out: dict, status: str, cycles: int, energy: float | None, start: float, note: str) -> dict:
     return {
         **out,
-        "status": "done",
-        "converged": bool(mf.converged),
-        "cycles": getattr(mf, "cycles", None),
-        "energy": float(energy),
+        "status": status,
+        "converged": False,
+        "cycles": cycles,
+        "energy": energy,
         "seconds": round(time.perf_counter() - start, 2),
-        "note": "",
+        "note": note,
     }
+
+
+def alert(run: dict) -> str | None:
+    """The plain line a report and the terminal show for a run that did not finish well."""
+    if run["status"] == "stopped":
+        return f"The {run['basis']} run stopped at its time limit after {run['cycles']} cycle(s): no energy."
+    if run["status"] == "failed":
+        return f"The {run['basis']} run {run['note']}; the audit went on without it."
+    if not run["converged"]:
+        return f"The {run['basis']} run did not converge in {run['cycles']} cycles: its energy is not final."
+    return None
 
 
 def scf_mole(prep: PreparedGeometry) -> gto.Mole:
@@ -108,9 +141,12 @@ def trial_scf(
     pruned_doc: dict | None,
     max_functions: int = MAX_FUNCTIONS,
     time_limit: float = TIME_LIMIT,
+    progress: Progress | None = None,
 ) -> dict:
     """Full basis at ``threshold`` versus the pruned basis; energies in hartree and the
-    difference in microhartree. Skipped, with the reason, above ``max_functions``."""
+    difference in microhartree (only when both runs converged). Skipped, with the reason,
+    above ``max_functions``. A run that stops at ``time_limit``, does not converge or fails
+    is reported (``alerts``), never raised."""
     method = check_method(method)
     n = prep.table.n_functions
     out: dict[str, Any] = {
@@ -121,6 +157,7 @@ def trial_scf(
         "difference_microhartree": None,
         "reminder": "Removing directions changes total energies, and thresholds are judgement calls: "
         "compare energies only between runs that removed the same directions.",
+        "alerts": [],
     }
     if n > max_functions:
         out["skipped"] = (
@@ -134,20 +171,33 @@ def trial_scf(
     except RuntimeError as exc:  # pyscf: electron count and spin do not fit
         out["skipped"] = f"trial SCF skipped: pyscf rejected charge/spin ({str(exc).splitlines()[0]})"
         return out
-    runs = [("full basis, canonical orthogonalization", full, threshold)]
+    runs = [("full basis, canonical orthogonalization", lambda: full, n, threshold)]
     if pruned_doc is not None:
-        runs.append(("shell-pruned basis", load_pruned_doc(pruned_doc), 0.0))
-    for label, mol, tau in runs:
-        try:
-            res = run_scf(mol, method, tau, time_limit)
-        except (LinAlgError, ValueError, ArithmeticError, RuntimeError) as exc:
-            # pyscf could not run this SCF (e.g. its initial guess needs an S that
-            # coincident atoms make singular): said in the section, the audit goes on
-            why = str(exc).strip().splitlines()[0] if str(exc).strip() else ""
-            out["skipped"] = f"trial SCF failed on the {label} ({type(exc).__name__}: {why})"
-            break
-        out["runs"].append({"basis": label, **res})
-    done = [r for r in out["runs"] if r["energy"] is not None]
+        runs.append(("shell-pruned basis", lambda: load_pruned_doc(pruned_doc), pruned_doc["n_functions"], 0.0))
+    for label, build, size, tau in runs:
+        out["runs"].append({"basis": label, **_one_run(build, size, method, tau, time_limit, progress, label)})
+    out["alerts"] = [a for a in (alert(r) for r in out["runs"]) if a]
+    done = [r for r in out["runs"] if r["energy"] is not None and r["converged"]]
     if len(done) == 2:
         out["difference_microhartree"] = (done[1]["energy"] - done[0]["energy"]) * 1e6
     return out
+
+
+def _one_run(
+    build: Callable[[], gto.Mole],
+    n_functions: int,
+    method: str,
+    tau: float,
+    time_limit: float,
+    progress: Progress | None,
+    label: str,
+) -> dict:
+    """One run; building its Mole can fail too (reported like a failed run)."""
+    start = time.perf_counter()
+    try:
+        mol = build()
+    except Exception as exc:  # pyscf's RuntimeError for a basis it cannot build, ...
+        first = str(exc).strip().splitlines()[0][:120] if str(exc).strip() else ""
+        empty = {"n_functions": n_functions, "directions_removed": 0, "threshold": tau}
+        return _run(empty, "failed", 0, None, start, f"failed: {type(exc).__name__}: {first}")
+    return run_scf(mol, method, tau, time_limit, progress=progress, label=label)

@@ -27,6 +27,9 @@ from .text import (
     RemediesView,
     ShellPruningView,
     TrialView,
+    frames_view,
+    lower_bound_sentence,
+    named_basis_lines,
     remedies_view,
     vectors_note,
 )
@@ -344,6 +347,31 @@ def _fold(n_rows: int, what: str, table: str) -> str:
     return f"<details{state}><summary>{n_rows} {escape(what)}</summary>{table}</details>"
 
 
+def _frames(d: dict) -> str:
+    """The one threshold and one set of remedies of a multi-frame input, each frame's figures."""
+    view = frames_view(d)
+    if view is None:
+        return ""
+    rows = "".join(
+        f'<tr><td class="n">{r.frame}</td><td class="n">{num(f"{r.key}.smallest", r.smallest)}</td>'
+        f"<td>{escape(r.verdict)}</td>"
+        f'<td class="n">{num(f"{r.key}.advised_threshold", r.advised_threshold, ".1e", "none")}</td>'
+        f'<td class="n">{num(f"{r.key}.directions_removed", r.directions_removed, "d")}</td>'
+        f'<td class="n">{num(f"{r.key}.smallest_kept", r.smallest_kept)}</td>'
+        f'<td class="n">{"—" if r.below_target is None else r.below_target}</td>'
+        f'<td class="n">{"—" if r.shells_smallest is None else format(r.shells_smallest, ".3e")}</td>'
+        f"<td>{escape(r.point_group)} / {escape(r.pruned_point_group)}</td></tr>"
+        for r in view.rows
+    )
+    heads = (
+        '<tr><th class="n">frame</th><th class="n">smallest eigenvalue</th><th>verdict</th>'
+        '<th class="n">own advice</th><th class="n">removed at the one threshold</th><th class="n">smallest kept</th>'
+        '<th class="n">below the target</th><th class="n">pruned basis: smallest</th>'
+        "<th>point group (full / pruned)</th></tr>"
+    )
+    return f'<h2 id="frames">Frames</h2><p>{escape(view.sentence)}</p><table>{heads}{rows}</table>'
+
+
 def _remedies(d: dict) -> str:
     rem = d.get("remedies")
     if rem and not isinstance(rem, dict):
@@ -353,9 +381,16 @@ def _remedies(d: dict) -> str:
         return ""
     n = d["input"]["n_functions"]
     out = ['<h2 id="remedies">Remedies</h2>', _alternatives(view, n)]
+    if not view.nothing_needed:
+        out.append(f"<p>{escape(lower_bound_sentence(view.lower_bound, view.target))}</p>")
     out += [f"<p>{escape(problem)}</p>" for problem in view.problems]
+    if view.symmetry:
+        out.append(f"<p>{escape(view.symmetry.sentence)}</p>")
+    out += [f"<p>{escape(line)}</p>" for line in named_basis_lines(rem.get("named_basis") if rem else None)]
     if view.shells:
         out += _dropped_shells(view.shells, n)
+    if view.unconstrained:
+        out += _dropped_shells(view.unconstrained, n, "Shell-pruned basis ignoring symmetry")
     if view.functions:
         out += _dropped_functions(view.functions, n)
     if view.diffuse_by_element:
@@ -391,14 +426,14 @@ def _alternatives(view: RemediesView, n: int) -> str:
     )
 
 
-def _dropped_shells(sh: ShellPruningView, n: int) -> list[str]:
+def _dropped_shells(sh: ShellPruningView, n: int, heading: str = "Shell-pruned basis") -> list[str]:
     how = (
         "Pivoted Cholesky over whole shells"
         if sh.by_shell_pivoting
         else "Keeping the shells that the pivoted-Cholesky subset of functions leaves whole"
     )
     intro = (
-        f"<h3>Shell-pruned basis</h3><p>{how} (tolerance "
+        f"<h3>{escape(heading)}</h3><p>{how} (tolerance "
         f"{num(f'{sh.key}.tolerance', sh.tolerance, '.2e')}) keeps "
         f"{num(f'{sh.key}.kept', sh.kept, 'd')} of {n} functions; the smallest "
         f"eigenvalue of the kept set is "
@@ -465,6 +500,7 @@ def _trial_scf(tri: TrialView) -> list[str]:
         '<th>converged</th><th class="n">cycles</th><th class="n">energy (hartree)</th>'
         f'<th class="n">time (s)</th><th>note</th></tr>{rows}</table>'
     )
+    out += [f"<p><strong>{escape(line)}</strong></p>" for line in tri.alerts]
     if tri.difference_microhartree is not None:
         out.append(
             f"<p>Pruned basis minus canonical orthogonalization: "
@@ -493,6 +529,7 @@ def render_html(result: AuditResult | dict, images: dict[str, bytes] | None = No
         _findings(d),
         '<h2 id="advice">Canonical orthogonalization</h2>',
         _advice(d),
+        _frames(d),
         _remedies(d),
         '<h2 id="caveats">Read before acting</h2>',
         '<ul class="caveats">' + "".join(f"<li>{escape(x)}</li>" for x in d["caveats"]) + "</ul>",
@@ -526,6 +563,7 @@ def _page_top(d: dict) -> list[str]:
         (
             '<nav><a href="#spectrum">Spectrum</a><a href="#causes">Causes</a><a href="#geometry">Geometry</a>'
             '<a href="#findings">Findings</a><a href="#advice">Orthogonalization</a>'
+            + ('<a href="#frames">Frames</a>' if d.get("frames") else "")
             + ('<a href="#remedies">Remedies</a>' if d.get("remedies") else "")
             + ('<a href="#trial-scf">Trial SCF</a>' if (d.get("remedies") or {}).get("trial_scf") else "")
             + '<a href="#caveats">Read before acting</a></nav>'

@@ -15,6 +15,9 @@ from .text import (
     ShellPruningView,
     TrialView,
     advice_sentence,
+    frames_view,
+    lower_bound_sentence,
+    named_basis_lines,
     remedies_view,
     vectors_note,
 )
@@ -45,6 +48,7 @@ def render_markdown(r: AuditResult | dict, extra_sections: list[str] | None = No
     lines += _findings_lines(d["findings"])
     lines += _causes_lines(d)
     lines += _orthogonalization_lines(d["recommendation"], n_functions)
+    lines += frames_lines(d)
     lines += remedies_lines(d.get("remedies"), n_functions)
     lines += extra_sections or []
     lines += caveat_lines(d)
@@ -161,10 +165,17 @@ def remedies_lines(rem: dict | None, n_functions: int) -> list[str]:
             "",
         ]
     lines += _alternative_lines(view, n_functions)
+    lines += [lower_bound_sentence(view.lower_bound, view.target), ""]
     for problem in view.problems:
         lines += [problem, ""]
+    if view.symmetry:
+        lines += [view.symmetry.sentence, ""]
+    for line in named_basis_lines((rem or {}).get("named_basis")):
+        lines += [line, ""]
     if view.shells:
         lines += _dropped_shell_lines(view.shells)
+    if view.unconstrained:
+        lines += _dropped_shell_lines(view.unconstrained, "ignoring symmetry")
     if view.functions:
         lines += _dropped_function_lines(view.functions)
     if view.trial:
@@ -174,6 +185,29 @@ def remedies_lines(rem: dict | None, n_functions: int) -> list[str]:
         "judgement calls (see below).",
         "",
     ]
+
+
+def frames_lines(d: dict) -> list[str]:
+    """The "Frames" section of a multi-frame input: the one threshold, each frame's figures."""
+    view = frames_view(d)
+    if view is None:
+        return []
+    lines = [
+        "## Frames",
+        "",
+        view.sentence,
+        "",
+        "| frame | smallest eigenvalue | verdict | own advice | removed at the one threshold | "
+        "smallest kept | below the target | pruned basis: smallest | point group (full / pruned) |",
+        "|---|---|---|---|---|---|---|---|---|",
+    ]
+    for r in view.rows:
+        lines.append(
+            f"| {r.frame} | {_fmt(r.smallest)} | {r.verdict} | {_fmt(r.advised_threshold, '.1e', 'none')} | "
+            f"{_fmt(r.directions_removed, 'd')} | {_fmt(r.smallest_kept)} | {_fmt(r.below_target, 'd', '—')} | "
+            f"{_fmt(r.shells_smallest, '.3e', '—')} | {r.point_group} / {r.pruned_point_group} |"
+        )
+    return lines + [""]
 
 
 def _alternative_lines(view: RemediesView, n_functions: int) -> list[str]:
@@ -199,14 +233,15 @@ def _more_rows(n_rows: int, n_columns: int) -> list[str]:
     return [f"| ... {n_rows - MAX_REMEDY_ROWS} more (see the JSON report) |" + " |" * (n_columns - 1)]
 
 
-def _dropped_shell_lines(sh: ShellPruningView) -> list[str]:
+def _dropped_shell_lines(sh: ShellPruningView, which: str = "") -> list[str]:
     how = (
         "pivoted Cholesky over whole shells"
         if sh.by_shell_pivoting
         else "shells the pivoted-Cholesky subset of functions leaves whole"
     )
+    what = f"the pruned basis {which}" if which else "the pruned basis"
     lines = [
-        f"Shells the pruned basis drops ({how}, tolerance {sh.tolerance:.2e}, then "
+        f"Shells {what} drops ({how}, tolerance {sh.tolerance:.2e}, then "
         f"{sh.added_back} function(s) offered back; {sh.kept} functions kept):",
         "",
         "| atom shell | l | smallest exponent | diffuse | functions |",
@@ -246,6 +281,8 @@ def _trial_lines(tri: TrialView) -> list[str]:
             f"| {run.basis} | {run.n_functions} | {run.directions_removed} | "
             f"{run.converged_text} | {run.cycles} | {energy} |"
         )
+    for line in tri.alerts:
+        lines += ["", f"**{line}**"]
     if tri.difference_microhartree is not None:
         lines += ["", f"Pruned minus canonically orthogonalized: {tri.difference_microhartree:+.1f} microhartree."]
     return lines + [""]

@@ -18,6 +18,7 @@ SCHEMAS = {
     "pruned-basis": ("pruned-basis.schema.json", "auditor-pruned-basis/1"),
     "periodic-basis": ("periodic-basis.schema.json", "auditor-periodic-basis/1"),
     "scan": ("scan.schema.json", "auditor-scan/1"),
+    "ladder": ("ladder.schema.json", "auditor-ladder/1"),
 }
 
 _BY_TAG = {tag: name for name, (_, tag) in SCHEMAS.items()}
@@ -40,7 +41,7 @@ def _text(name: str) -> str:
 
 
 def load_schema(name: str) -> dict:
-    """The schema ``name`` ("report", "item-error", "pruned-basis", or a document tag such
+    """The schema ``name`` ("report", "item-error", "pruned-basis", "ladder", or a document tag such
     as "auditor-report/1") as a fresh dictionary."""
     return json.loads(_text(_resolve(name)))
 

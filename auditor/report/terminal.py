@@ -14,7 +14,7 @@ from rich.text import Text
 from .naming import distinct_labels
 from .rows import item_label, rank_key
 from .style import TERMINAL_STYLE as STYLE
-from .text import remedies_view
+from .text import FramesView, RemediesView, frames_view, lower_bound_sentence, remedies_view
 
 if TYPE_CHECKING:
     from ..pipeline.result import AuditResult
@@ -71,28 +71,52 @@ def print_summary(
 def print_remedies(
     results: Iterable[AuditResult | dict], console: Console | None = None, always: bool = False, top: int = 4
 ) -> None:
-    """The best few ranked remedies of each result that needs one (or of all, ``always``)."""
+    """The best few ranked remedies of each result that needs one (or of all, ``always``);
+    the frames of one input share their remedies and are shown once."""
     console = console or Console(highlight=False)
+    shown: set[str] = set()
     for r in results:
         d = r if isinstance(r, dict) else r.as_dict()
         view = remedies_view(d.get("remedies"))
         if view is None or not view.alternatives or not (view.needed or always):
             continue
-        lines = [f"  {Path(d['input']['path']).name}: remedies for a smallest eigenvalue of {view.target:.0e}"]
-        for a in view.alternatives[:top]:
-            after = "?" if a.smallest_after is None else f"{a.smallest_after:.2e}"
-            mark = "" if a.reaches_target else " (misses the target)"
-            lines.append(f"    {a.rank}. {a.title}: removes {a.removed_text}, smallest eigenvalue {after}{mark}")
-        tri = view.trial
-        if tri and tri.skipped:
-            lines.append(f"    {tri.skipped}")
-        elif tri and tri.difference_microhartree is not None:
-            lines.append(
-                f"    trial SCF ({tri.method}): pruned minus canonical orthogonalization "
-                f"{tri.difference_microhartree:+.1f} microhartree"
-            )
-        for line in lines:
-            console.print(line, highlight=False, markup=False)
+        frames = frames_view(d)
+        if frames is not None:
+            if d["input"]["path"] in shown:
+                continue
+            shown.add(d["input"]["path"])
+        for line in _remedy_lines(d, view, frames, top):
+            console.print(line, highlight=False, markup=False, soft_wrap=True)
+
+
+def _remedy_lines(d: dict, view: RemediesView, frames: FramesView | None, top: int) -> list[str]:
+    name = Path(d["input"]["path"]).name
+    every = f" (all {frames.n_frames} frames)" if frames is not None else ""
+    lines = [f"  {name}{every}: remedies for a smallest eigenvalue of {view.target:.0e}"]
+    for a in view.alternatives[:top]:
+        after = "?" if a.smallest_after is None else f"{a.smallest_after:.2e}"
+        mark = "" if a.reaches_target else " (misses the target)"
+        lines.append(f"    {a.rank}. {a.title}: removes {a.removed_text}, smallest eigenvalue {after}{mark}")
+    lines.append("    " + lower_bound_sentence(view.lower_bound, view.target))
+    if view.symmetry is not None and view.unconstrained is not None:
+        lines.append(f"    symmetry: {view.symmetry.note}")
+    if frames is not None:
+        lines.append("    frames: " + frames.sentence)
+    tri = view.trial
+    if tri and tri.skipped:
+        lines.append(f"    {tri.skipped}")
+    elif tri and tri.difference_microhartree is not None:
+        lines.append(
+            f"    trial SCF ({tri.method}): pruned minus canonical orthogonalization "
+            f"{tri.difference_microhartree:+.1f} microhartree"
+        )
+    lines += [f"    trial SCF: {line}" for line in (tri.alerts if tri else [])]
+    return lines
+
+
+def _threshold_cell(value: float | None) -> str:
+    """The advised threshold of a summary row; a dash where none is advised (a broken geometry)."""
+    return "—" if value is None or not math.isfinite(value) else f"{value:.1e}"
 
 
 def worst_rows(rows: list[dict], n: int) -> list[dict]:
@@ -129,7 +153,7 @@ def worst_table(rows: list[dict], n: int = 10) -> Group:
             f"{lam:.2e}" if ok else "",
             ("inf" if math.isinf(cond) else f"{math.log10(cond):.1f}") if ok else "",
             Text(str(r["top_atom"] or "")),
-            f"{r['threshold']:.1e}" if ok else "",
+            _threshold_cell(r["threshold"]) if ok else "",
             "" if r["n_removed"] is None else str(r["n_removed"]),
         )
         if r["verdict"] == "error" and not r.get("note") and not r.get("change"):

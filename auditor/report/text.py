@@ -180,6 +180,137 @@ class TrialView:
     runs: list[TrialRunRow]
     difference_microhartree: float | None
     reminder: str
+    alerts: list[str]  # a plain line per run that stopped at its time limit, did not converge or failed
+
+
+@dataclass(frozen=True)
+class SymmetryView:
+    """Point groups of the full and the pruned basis, and what keeping the group costs."""
+
+    key: str
+    tolerance: float | None
+    point_group: str
+    pruned_point_group: str
+    keeps: bool
+    equivalent_atoms: str  # e.g. "3=4, 5=6"
+    note: str
+
+    @property
+    def sentence(self) -> str:
+        """One plain sentence for every format."""
+        atoms = f"; equivalent atoms pruned alike: {self.equivalent_atoms}" if self.equivalent_atoms else ""
+        kept = "keeps" if self.keeps else "does not keep"
+        tol = "" if self.tolerance is None else f" (positions matched within {self.tolerance:g} Å)"
+        return (
+            f"Point group of the full basis {self.point_group}{tol}; the shell-pruned basis {kept} it "
+            f"(pyscf detects {self.pruned_point_group}){atoms}. {self.note[:1].upper()}{self.note[1:]}."
+        )
+
+
+def named_basis_lines(nb: dict | None) -> list[str]:
+    """The published relatives the remedies evaluated, as plain sentences (every format)."""
+    if not nb:
+        return []
+    rungs = "; ".join(
+        f"{r['use_name']} {r['n_functions']} functions, smallest eigenvalue "
+        + ("—" if r["smallest"] is None else f"{r['smallest']:.2e}")
+        + (" (reaches the target)" if r["reaches_target"] else "")
+        for r in nb.get("rungs") or []
+        if r.get("error") is None
+    )
+    head = f"Published relatives of {nb['requested']}, largest first until one reaches the target: {rungs}."
+    return [head, f"{nb['reason'][:1].upper()}{nb['reason'][1:]} (auditor ladder shows them all)."]
+
+
+def lower_bound_sentence(lower: int | None, target: float | None) -> str:
+    """What the interlacing bound says, in one sentence for every format."""
+    at = "" if target is None else f" {target:.1e}"
+    if lower is None:
+        return (
+            f"Lower bound: not counted (the large spectrum path did not count the eigenvalues below the target{at}). "
+            "No remedy can remove fewer functions or directions than S has eigenvalues below the target "
+            "(Cauchy interlacing)."
+        )
+    return (
+        f"Lower bound: {lower}. No remedy can remove fewer functions or directions than the {lower} eigenvalue(s) "
+        f"of S below the target{at} (Cauchy interlacing); canonical orthogonalization at the target removes "
+        "exactly that many directions."
+    )
+
+
+@dataclass(frozen=True)
+class FrameRowView:
+    """One frame of a multi-frame input: its own figures and those under the one threshold
+    and the one set of remedies."""
+
+    key: str
+    frame: int
+    smallest: float | None
+    verdict: str
+    advised_threshold: float | None
+    directions_removed: int | None
+    smallest_kept: float | None
+    below_target: int | None
+    shells_smallest: float | None
+    point_group: str
+    pruned_point_group: str
+
+
+@dataclass(frozen=True)
+class FramesView:
+    """One threshold and one set of remedies for every frame: who decides, each frame's figures."""
+
+    n_frames: int
+    threshold: float | None
+    deciding_frame: int | None
+    remedies_frame: int | None  # the worst frame, searched first by the remedies
+    note: str
+    rows: list[FrameRowView]
+
+    @property
+    def sentence(self) -> str:
+        if self.threshold is None:
+            return f"All {self.n_frames} frames of this input are audited as one job. {self.note}"
+        rem = (
+            ""
+            if self.remedies_frame is None
+            else f" The remedies hold for every frame; frame {self.remedies_frame}, the worst, was searched first."
+        )
+        return (
+            f"All {self.n_frames} frames of this input are audited as one job: one threshold "
+            f"{self.threshold:.1e} for every frame (frame {self.deciding_frame} decides: it needs the largest).{rem} "
+            f"{self.note}"
+        )
+
+
+def frames_view(d: dict) -> FramesView | None:
+    """The ``frames`` part of a JSON result joined with the remedies' per-frame figures."""
+    fr = d.get("frames")
+    if not fr:
+        return None
+    rem = d.get("remedies") or {}
+    by_frame = {r["frame"]: r for r in rem.get("frames") or []}
+    rows = []
+    for i, r in enumerate(fr["per_frame"]):
+        extra = by_frame.get(r["frame"], {})
+        rows.append(
+            FrameRowView(
+                key=f"frames.per_frame.{i}",
+                frame=r["frame"],
+                smallest=r["smallest"],
+                verdict=str(r["verdict"]),
+                advised_threshold=r["advised_threshold"],
+                directions_removed=r["directions_removed"],
+                smallest_kept=r["smallest_kept"],
+                below_target=extra.get("below_target"),
+                shells_smallest=extra.get("shells_smallest"),
+                point_group=str(extra.get("point_group") or "—"),
+                pruned_point_group=str(extra.get("pruned_point_group") or "—"),
+            )
+        )
+    return FramesView(
+        fr["n_frames"], fr["threshold"], fr["deciding_frame"], rem.get("deciding_frame"), fr["note"], rows
+    )
 
 
 #: the parts of the remedies that the records below cover (the HTML report shows any other as it is)
@@ -187,10 +318,16 @@ KNOWN_REMEDY_KEYS = (
     "target",
     "needed",
     "alternatives",
+    "lower_bound",
     "problems",
     "cholesky_shells",
+    "cholesky_shells_unconstrained",
+    "symmetry",
+    "named_basis",
     "cholesky_functions",
     "diffuse_by_element",
+    "frames",
+    "deciding_frame",
     "trial_scf",
 )
 
@@ -202,8 +339,11 @@ class RemediesView:
     target: float | None
     needed: bool
     alternatives: list[RemedyRow]
+    lower_bound: int | None
     problems: list[str]  # "Not available: <why>." sentences
     shells: ShellPruningView | None
+    unconstrained: ShellPruningView | None  # the pruning that ignores symmetry, when it keeps more
+    symmetry: SymmetryView | None
     functions: FunctionSubsetView | None
     diffuse_by_element: list[dict]  # as in the JSON report
     trial: TrialView | None
@@ -223,8 +363,13 @@ def remedies_view(rem: dict | None) -> RemediesView | None:
         target=rem.get("target"),
         needed=bool(rem.get("needed")),
         alternatives=[_remedy_row(i, a) for i, a in enumerate(rem.get("alternatives") or [])],
+        lower_bound=rem.get("lower_bound"),
         problems=[f"Not available: {p}." for p in rem.get("problems") or []],
         shells=_shell_pruning(rem.get("cholesky_shells")),
+        unconstrained=_shell_pruning(
+            rem.get("cholesky_shells_unconstrained"), "remedies.cholesky_shells_unconstrained"
+        ),
+        symmetry=_symmetry(rem.get("symmetry")),
         functions=_function_subset(rem.get("cholesky_functions")),
         diffuse_by_element=list(rem.get("diffuse_by_element") or []),
         trial=_trial(rem.get("trial_scf")),
@@ -245,10 +390,23 @@ def _remedy_row(i: int, a: dict) -> RemedyRow:
     )
 
 
-def _shell_pruning(sh: dict | None) -> ShellPruningView | None:
+def _symmetry(sy: dict | None) -> SymmetryView | None:
+    if not sy:
+        return None
+    return SymmetryView(
+        key="remedies.symmetry",
+        tolerance=sy.get("tolerance_angstrom"),
+        point_group=str(sy.get("point_group")),
+        pruned_point_group=str(sy.get("pruned_point_group")),
+        keeps=bool(sy.get("keeps_point_group")),
+        equivalent_atoms=", ".join("=".join(str(a) for a in group) for group in sy.get("equivalent_atoms") or []),
+        note=str(sy.get("note") or ""),
+    )
+
+
+def _shell_pruning(sh: dict | None, key: str = "remedies.cholesky_shells") -> ShellPruningView | None:
     if not sh:
         return None
-    key = "remedies.cholesky_shells"
     dropped = [
         DroppedShellRow(
             f"{key}.dropped_shells.{i}", _where(s), s["l"], s["exponent"], bool(s.get("diffuse")), s["functions"]
@@ -309,4 +467,5 @@ def _trial(tri: dict | None) -> TrialView | None:
         runs=runs,
         difference_microhartree=tri.get("difference_microhartree"),
         reminder=str(tri.get("reminder") or ""),
+        alerts=[str(a) for a in tri.get("alerts") or []],
     )

@@ -55,6 +55,7 @@ def test_check_all_formats_writes_a_valid_report(tmp_path, water_xyz):
         "target": 1e-5,
         "needed": False,
         "alternatives": [],
+        "lower_bound": 0,
         "diffuse_by_element": [],
         "problems": [],
         "trial_scf": None,
