@@ -372,6 +372,17 @@ def verify_mode(n: int) -> str:
     return "eigvalsh" if n <= EIGVALSH_LIMIT else "lanczos"
 
 
+def smallest_eigenvalue_cached(S: np.ndarray, idx: np.ndarray, cache: dict | None) -> float:
+    """`smallest_eigenvalue`, remembered in ``cache`` (keyed by S's identity and the index
+    set) so that remedies that keep the same functions share one computation."""
+    if cache is None:
+        return smallest_eigenvalue(S, idx)
+    key = (id(S), np.asarray(idx, dtype=np.int64).tobytes())
+    if key not in cache:
+        cache[key] = smallest_eigenvalue(S, idx)
+    return cache[key]
+
+
 def smallest_eigenvalue(S: np.ndarray, idx: np.ndarray) -> float:
     """Smallest eigenvalue of ``S[idx, idx]`` (dense for small sets, Lanczos otherwise)."""
     idx = np.asarray(idx)
@@ -386,3 +397,30 @@ def smallest_eigenvalue(S: np.ndarray, idx: np.ndarray) -> float:
         del sub  # overwritten by the failed factorization
         return float(np.linalg.eigvalsh(S[np.ix_(idx, idx)])[0])
     return smallest_from_factor(factor)
+
+
+def delete_from_factor(L: np.ndarray, drop: np.ndarray) -> np.ndarray:
+    """A lower triangular F with F F^T = A[keep, keep], from the lower Cholesky factor L of
+    A = L L^T, where ``keep`` is every position not in ``drop`` (F's diagonal signs are
+    arbitrary, which no use of a factor here minds).
+
+    With P the kept and D the dropped positions (ascending), A[P, P] = L[P, P] L[P, P]^T +
+    L[P, D] L[P, D]^T with L[P, P] lower triangular, so F^T is the R of the QR
+    factorization of the triangular-pentagonal matrix [L[P, P]^T; L[P, D]^T] (LAPACK
+    dtpqrt): about 2 m^2 |D| flops against m^3 / 3 for a new factorization.
+    """
+    drop = np.unique(np.asarray(drop, dtype=np.int64))
+    keep = np.setdiff1d(np.arange(L.shape[0]), drop)
+    upper = L[np.ix_(keep, keep)].T  # Fortran-ordered, as LAPACK works in place
+    if drop.size == 0 or keep.size == 0:
+        return upper.T
+    extra = np.asfortranarray(L[np.ix_(keep, drop)].T)
+    upper, _, _, info = lapack.dtpqrt(0, min(32, drop.size), upper, extra, overwrite_a=1, overwrite_b=1)
+    if info != 0:
+        raise ValueError(f"dtpqrt failed (info {info})")
+    return upper.T
+
+
+def deletion_is_cheaper(m: int, n_drop: int) -> bool:
+    """Whether `delete_from_factor` costs fewer flops than factorizing the kept block anew."""
+    return 2.0 * m * m * n_drop < (m - n_drop) ** 3 / 3.0

@@ -110,6 +110,7 @@ def _joint_finish(
         notes=first.notes + notes,
         prefix=int(kept.size),
         added_back=int(order.size - kept.size),
+        factor=None,
     )
 
 
@@ -159,7 +160,9 @@ def _extend_all(
             Cc = scipy.linalg.cholesky(C, lower=True, check_finite=False)
         except np.linalg.LinAlgError:
             return None
-        rhs = S[np.ix_(g, cand)] - Wg.T @ np.vstack(w)
+        rhs = S[np.ix_(g, cand)]
+        for b in w:  # Wg^T @ vstack(w), without copying w into one array per group
+            rhs -= b[:, cols].T @ b
         rows.append(scipy.linalg.solve_triangular(Cc, rhs, lower=True, check_finite=False))
     return rows
 

@@ -20,10 +20,12 @@ from ..base.errors import InputError
 from ..inputs.basis import BasisSpec, load_shells, thaw
 from ..inputs.geometry import Molecule
 from ..inputs.relatives import Rung, published_check, relatives, rung_shells
-from ..numerics.cholesky import smallest_eigenvalue
+from ..numerics.cholesky import smallest_eigenvalue, smallest_eigenvalue_cached
 from ..numerics.eigen import compute_spectrum
 from ..numerics.memory import check_memory
 from ..numerics.overlap import normalized_overlap, pyscf_labels
+from .prepared import PreparedGeometry
+from .pruned_basis import shell_entries
 
 if TYPE_CHECKING:
     from pyscf import gto
@@ -110,9 +112,13 @@ def evaluate_rung(
     target: float,
     levels: tuple[float, float],
     full: bool = True,
+    within: tuple[Sequence[PreparedGeometry], dict] | None = None,
 ) -> RungResult:
     """Evaluate ``rung`` at every frame: the spectrum (``full``) or the smallest eigenvalue
-    only; the worst frame's figures. An element the basis lacks is an error on the rung."""
+    only; the worst frame's figures. An element the basis lacks is an error on the rung.
+    ``within``: the prepared frames of the requested basis and a cache (as for
+    `smallest_eigenvalue_cached`); a rung whose shells are all shells of that basis is then
+    evaluated on their block of its S instead of a new overlap matrix."""
     elements = sorted(set(molecules[0].symbols) - set(spec.per_element))
     check = published_check(rung, elements, spec.source)
     use, same = _use_name(rung, check)
@@ -127,7 +133,9 @@ def evaluate_rung(
         reference=rung.reference,
     )
     try:
-        figures = _figures(rung, molecules, spec, levels[0], full)
+        figures = None if full or within is None else _figures_within(rung, molecules, spec, *within)
+        if figures is None:
+            figures = _figures(rung, molecules, spec, levels[0], full)
     except InputError as exc:
         return RungResult(
             **base,
@@ -179,6 +187,43 @@ def _figures(rung: Rung, molecules: Sequence[Molecule], spec: BasisSpec, caution
     }
 
 
+def _figures_within(
+    rung: Rung, molecules: Sequence[Molecule], spec: BasisSpec, preps: Sequence[PreparedGeometry], cache: dict
+) -> dict | None:
+    """The smallest eigenvalue of a rung whose basis is a subset of the prepared one (the
+    same shells on every atom, a few left out): from the block of the prepared S, which is
+    the rung's own unit-diagonal S up to the order of functions. None when it is not."""
+    idx = subset_functions(_mole(rung, molecules[0], spec), preps[0])
+    if idx is None:
+        return None
+    lows = [smallest_eigenvalue_cached(p.S, idx, cache) for p in preps]
+    return {
+        "n_functions": int(idx.size),
+        "smallest": min(lows),
+        "largest": None,
+        "condition_number": None,
+        "counts_below": None,
+        "smallest_by_frame": lows if len(lows) > 1 else None,
+    }
+
+
+def subset_functions(small: gto.Mole, prep: PreparedGeometry) -> np.ndarray | None:
+    """The functions of ``prep`` (ascending) whose shells make up the basis of ``small``, when
+    every shell of ``small`` is a shell of the same atom in ``prep`` (same l, exponents and
+    coefficients, bit for bit); else None."""
+    full = shell_entries(prep.mole)
+    free: dict[tuple, list[int]] = {}
+    for s, (atom, l, prims) in enumerate(full):
+        free.setdefault((atom, l, repr(prims)), []).append(s)
+    chosen = []
+    for atom, l, prims in shell_entries(small):
+        spare = free.get((atom, l, repr(prims)))
+        if not spare:
+            return None
+        chosen.append(spare.pop(0))
+    return np.flatnonzero(np.isin(prep.table.func_shell, chosen))
+
+
 def run_ladder(
     molecules: Sequence[Molecule],
     spec: BasisSpec,
@@ -211,16 +256,18 @@ def _choose(candidates: Sequence[RungResult], target: float) -> tuple[str | None
 
 
 def named_basis_remedy(
-    molecules: Sequence[Molecule], spec: BasisSpec, target: float, levels: tuple[float, float]
+    preps: Sequence[PreparedGeometry], spec: BasisSpec, target: float, levels: tuple[float, float], cache: dict
 ) -> LadderResult | None:
     """For the remedies: the relatives evaluated largest first (smallest eigenvalue only)
-    until one meets the target. None when the basis has no relatives the auditor knows."""
+    until one meets the target, on blocks of the frames' S where they can be (``cache``
+    shared with the other remedies). None when the basis has no relatives the auditor knows."""
+    molecules = [p.molecule for p in preps]
     rungs = relatives(spec.default)
     if not rungs or _is_file(spec.default):
         return None
     out: list[RungResult] = []
     for rung in rungs:
-        res = evaluate_rung(rung, molecules, spec, target, levels, full=False)
+        res = evaluate_rung(rung, molecules, spec, target, levels, full=False, within=(preps, cache))
         out.append(res)
         if res.reaches_target:
             break

@@ -13,7 +13,7 @@ from typing import Any
 import numpy as np
 
 from ..base.errors import UsageError
-from ..numerics.cholesky import smallest_eigenvalue, verify_mode
+from ..numerics.cholesky import smallest_eigenvalue, smallest_eigenvalue_cached, verify_mode
 from ..numerics.eigen import compute_spectrum
 from ..numerics.memory import available_bytes
 from ..numerics.overlap import FunctionTable
@@ -148,10 +148,11 @@ def _shell_pruning(s: Selection, table: FunctionTable) -> ShellPruning:
 
 
 def diffuse_element_options(
-    S: np.ndarray | Sequence[np.ndarray], table: FunctionTable, target: float
+    S: np.ndarray | Sequence[np.ndarray], table: FunctionTable, target: float, cache: dict | None = None
 ) -> list[DiffuseOption]:
     """For each element with diffuse shells: drop them on every atom of that element (in
-    every frame of ``S``, a matrix or a list of one per frame: the worst frame's value)."""
+    every frame of ``S``, a matrix or a list of one per frame: the worst frame's value;
+    ``cache`` as for `smallest_eigenvalue_cached`)."""
     Ss = [S] if isinstance(S, np.ndarray) else list(S)
     out = []
     func_el = np.array([str(table.elements[a - 1]) for a in table.func_atom])
@@ -163,7 +164,7 @@ def diffuse_element_options(
             check_atoms_not_emptied(kept, table.func_atom - 1)
         except UsageError:
             continue
-        low = min(smallest_eigenvalue(Sf, kept) for Sf in Ss)
+        low = min(smallest_eigenvalue_cached(Sf, kept, cache) for Sf in Ss)
         shells = np.unique(table.func_shell[drop])
         names = sorted({table.shell_name[s][-1] + f" {table.shell_exponent[s]:.4g}" for s in shells})
         out.append(DiffuseOption(str(el), int(drop.sum()), len(shells), names, low, bool(low >= target)))
@@ -261,8 +262,8 @@ def _add_function_subset(plan: RemedyPlan, Ss: list[np.ndarray], atoms: np.ndarr
     )
 
 
-def _add_diffuse_options(plan: RemedyPlan, Ss: list[np.ndarray], table: FunctionTable) -> None:
-    plan.diffuse = diffuse_element_options(Ss, table, plan.target)
+def _add_diffuse_options(plan: RemedyPlan, Ss: list[np.ndarray], table: FunctionTable, cache: dict) -> None:
+    plan.diffuse = diffuse_element_options(Ss, table, plan.target, cache)
     for opt in plan.diffuse:
         if opt.reaches_target:
             how = f"use the parent basis without augmentation for {opt.element} (e.g. --basis-for)"
@@ -280,10 +281,10 @@ def _add_diffuse_options(plan: RemedyPlan, Ss: list[np.ndarray], table: Function
             )
 
 
-def _add_named_basis(plan: RemedyPlan, fr: _Frames, n: int) -> None:
+def _add_named_basis(plan: RemedyPlan, fr: _Frames, n: int, cache: dict) -> None:
     """The largest smaller published relative of the requested basis that meets the target."""
     prep = fr.worst
-    ladder = named_basis_remedy([p.molecule for p in fr.preps], prep.spec, plan.target, (plan.target, 0.0))
+    ladder = named_basis_remedy(fr.preps, prep.spec, plan.target, (plan.target, 0.0), cache)
     if ladder is None:
         return
     rungs = [
@@ -493,8 +494,11 @@ def plan_frames(
         plan.alternatives.append(_canonical(at, target))
     _add_function_subset(plan, fr.worst_first, atoms, mode)
     _add_shell_prunings(plan, fr, atoms, mode)
-    _add_diffuse_options(plan, fr.worst_first, table)
-    _add_named_basis(plan, fr, table.n_functions)
+    if plan.functions is not None:  # its factor served the shell prunings: release it
+        plan.functions = replace(plan.functions, factor=None)
+    cache: dict = {}  # smallest eigenvalues of kept sets that several remedies share
+    _add_diffuse_options(plan, fr.worst_first, table, cache)
+    _add_named_basis(plan, fr, table.n_functions, cache)
     if len(fr.preps) > 1:
         plan.frames = _frame_figures(plan, fr, at)
     plan.alternatives = rank_alternatives(plan.alternatives, table.n_functions)

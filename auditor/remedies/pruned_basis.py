@@ -49,7 +49,7 @@ def shell_record(table: FunctionTable, s: int) -> dict:
     }
 
 
-def _shell_entries(pm) -> list[tuple[int, int, list[list[float]]]]:
+def shell_entries(pm) -> list[tuple[int, int, list[list[float]]]]:
     """(0-based atom, l, [[exponent, coefficient], ...]) per contracted shell, in the
     order of the function table (each contraction of a pyscf shell is its own shell).
     Coefficients refer to normalized primitives, the convention of pyscf basis input."""
@@ -64,15 +64,19 @@ def _shell_entries(pm) -> list[tuple[int, int, list[list[float]]]]:
 
 
 def atom_shell_keys(prep: PreparedGeometry, keep: np.ndarray | None = None) -> list[str]:
-    """Per atom, a text that is equal for two atoms exactly when they keep the same basis
-    data (l, exponents, coefficients of every kept shell; ``keep``: a flag per shell, all
-    by default)."""
-    entries = _shell_entries(prep.mole)
-    flags = np.ones(len(entries), dtype=bool) if keep is None else keep
-    return [
-        repr([(l, p) for s, (a, l, p) in enumerate(entries) if a == i and flags[s]])
-        for i in range(prep.molecule.n_atoms)
-    ]
+    """Per atom, a text that is equal for two atoms when they have the same basis data (as
+    pyscf holds it per atom label) and keep the same of its shells (``keep``: a flag per
+    shell, all by default)."""
+    pm, table = prep.mole, prep.table
+    data: dict[str, str] = {}
+    out = []
+    for i in range(prep.molecule.n_atoms):
+        label = pm.atom_symbol(i)
+        if label not in data:
+            data[label] = repr(pm._basis.get(label))
+        flags = "" if keep is None else np.packbits(keep[table.shell_atom == i + 1]).tobytes().hex()
+        out.append(f"{data[label]}|{flags}")
+    return out
 
 
 def pruned_labels(prep: PreparedGeometry, keep: np.ndarray) -> list[str]:
@@ -108,7 +112,7 @@ def pruned_basis(
     keep = np.zeros(table.n_shells, dtype=bool)
     keep[np.asarray(list(kept_shells), dtype=int)] = True
     check_atoms_not_emptied(np.flatnonzero(keep[table.func_shell]), table.func_atom - 1, what="this pruning")
-    entries = _shell_entries(prep.mole)
+    entries = shell_entries(prep.mole)
     if len(entries) != table.n_shells:
         raise InputError("pyscf shells and the function table disagree; cannot write a pruned basis")
     atoms: list[list] = []

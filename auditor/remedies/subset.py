@@ -31,6 +31,8 @@ from ..numerics.cholesky import (
     _shell_index_lists,
     _smallest,
     check_overlap,
+    delete_from_factor,
+    deletion_is_cheaper,
     pivoted_cholesky,
     shell_pivoted_cholesky,
     smallest_from_factor,
@@ -70,6 +72,9 @@ class Selection:
     notes: list[str] = field(default_factory=list)
     prefix: int = 0
     added_back: int = 0
+    #: the lower factor of S[order, order] - goal*I when the search made it (goal: the target
+    #: less `TARGET_SLACK`), for `shells_from_functions`; callers release it when done
+    factor: np.ndarray | None = field(default=None, compare=False, repr=False)
 
     @property
     def n_dropped(self) -> int:
@@ -205,7 +210,10 @@ def select_for_target(
     kept = np.sort(order)
     if atom_of_function is not None:
         check_atoms_not_emptied(kept, atom_of_function, exempt_atoms, f"target {target:g}")
-    return _selection(found, order, kept, n, target, search, shells, notes)
+    chosen = _selection(found, order, kept, n, target, search, shells, notes)
+    if factor is None or factor.shape[0] < order.size:
+        return chosen
+    return dataclasses.replace(chosen, factor=factor[: order.size, : order.size])
 
 
 @dataclass
@@ -262,8 +270,7 @@ def _search_shifted(S: np.ndarray, goal: float, shells: np.ndarray | None, refin
         # the leading k x k block of this factor is the factor of S[p[:k], p[:k]] - goal*I
         # that the add-back pass extends: keep it (one N x N array at a time)
         res = dataclasses.replace(res, factor=None)
-        prefix_factor = np.asfortranarray(shifted.T[:k, :k])
-        del shifted
+        prefix_factor = shifted.T[:k, :k]  # a view: copying it would hold two N x N arrays
         for j in range(1, k):  # LAPACK left the upper triangle as it was
             prefix_factor[:j, j] = 0.0
     else:
@@ -395,9 +402,9 @@ def shells_from_functions(
     seed = [s for s in dict.fromkeys(shells[functions.order].tolist()) if s not in bad]
     if not seed:
         return None
-    order = np.concatenate([groups[s] for s in seed])
+    order, L = _seed(functions, shells, bad, groups, seed)
     k = order.size
-    order, blocks, factor = add_back(S, order, [groups[s] for s in sorted(bad)], goal)
+    order, blocks, factor = add_back(S, order, [groups[s] for s in sorted(bad)], goal, L)
     smallest, eigs = np.nan, 0
     notes: list[str] = []
     while mode != "none":
@@ -430,6 +437,18 @@ def shells_from_functions(
         prefix=k,
         added_back=order.size - k,
     )
+
+
+def _seed(
+    functions: Selection, shells: np.ndarray, bad: set[int], groups: list[np.ndarray], seed: list[int]
+) -> tuple[np.ndarray, np.ndarray | None]:
+    """The functions of the clean shells ``seed``, and the factor of their shifted block
+    when the function-level factor gives it more cheaply than a new factorization."""
+    if functions.factor is not None:
+        at_bad = np.flatnonzero(np.isin(shells[functions.order], sorted(bad)))
+        if deletion_is_cheaper(functions.order.size, at_bad.size):
+            return np.delete(functions.order, at_bad), delete_from_factor(functions.factor, at_bad)
+    return np.concatenate([groups[s] for s in seed]), None
 
 
 def _leftover_groups(res: CholeskyResult, k: int, shells: np.ndarray | None, n: int) -> list[np.ndarray]:
@@ -479,7 +498,9 @@ def add_back(
             Cc = scipy.linalg.cholesky(C, lower=True, check_finite=False)
         except np.linalg.LinAlgError:
             continue
-        rhs = S[np.ix_(g, cand)] - Wg.T @ np.vstack(W)
+        rhs = S[np.ix_(g, cand)]
+        for w in W:  # Wg^T @ vstack(W), without copying W into one array per group
+            rhs -= w[:, cols].T @ w
         W.append(scipy.linalg.solve_triangular(Cc, rhs, lower=True, check_finite=False))
         kept.append(g)
         sizes.append(g.size)

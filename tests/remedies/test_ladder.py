@@ -97,3 +97,31 @@ def test_a_published_basis_that_meets_the_target_ranks_first():
     assert alts[0]["kind"] == "named_basis" and alts[0]["reaches_target"]
     assert alts[0]["basis"] == named["chosen"]
     assert "use the published basis" in auditor.render_markdown(r)
+
+
+@pytest.mark.parametrize("basis", ["aug-cc-pvdz", "6-311++g**"])
+def test_relatives_evaluated_on_blocks_of_the_full_s_equal_their_own_overlap(basis):
+    # Reference: numpy.linalg.eigvalsh of each relative's own unit-diagonal overlap built
+    # by pyscf; the remedies take the block of the requested basis's S instead.
+    from auditor.numerics.overlap import normalized_overlap
+    from auditor.remedies.ladder import _mole, subset_functions
+
+    mol = make_molecule(*WATER)
+    spec = make_spec(basis)
+    prep = prepare(mol, spec)
+    for rung in relatives(spec.default):
+        own = _mole(rung, mol, spec)
+        idx = subset_functions(own, prep)
+        assert idx is not None and idx.size == own.nao
+        block = np.linalg.eigvalsh(prep.S[np.ix_(idx, idx)])
+        assert np.allclose(block, np.linalg.eigvalsh(normalized_overlap(own)), rtol=1e-10, atol=1e-13)
+
+
+def test_a_relative_with_other_exponents_is_not_a_block():
+    # ma-def2-SVP has diffuse exponents of its own, not def2-SVPD's: no block of S gives it.
+    from auditor.remedies.ladder import _mole, subset_functions
+
+    mol = make_molecule(*WATER)
+    spec = make_spec("def2-svpd")
+    rung = next(r for r in relatives(spec.default) if r.name.startswith("ma-"))
+    assert subset_functions(_mole(rung, mol, spec), prepare(mol, spec)) is None

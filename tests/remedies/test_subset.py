@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import itertools
 
 import numpy as np
@@ -9,7 +10,12 @@ import pytest
 from pyscf import gto
 
 from auditor.base.errors import InputError, UsageError
-from auditor.numerics.cholesky import pivoted_cholesky, shell_pivoted_cholesky, smallest_from_factor
+from auditor.numerics.cholesky import (
+    delete_from_factor,
+    pivoted_cholesky,
+    shell_pivoted_cholesky,
+    smallest_from_factor,
+)
 from auditor.remedies.subset import check_atoms_not_emptied, select_for_target, shells_from_functions
 
 
@@ -337,3 +343,32 @@ def test_shells_seeded_by_function_selection(dimer):
     for s in sel.dropped_shells:
         trial = np.concatenate([sel.kept, np.flatnonzero(shell == s)])
         assert np.linalg.eigvalsh(S[np.ix_(trial, trial)])[0] < target
+
+
+@pytest.mark.parametrize("drop", [[], [0], [39], [3, 4, 17, 30], list(range(0, 40, 3))])
+def test_factor_after_deleting_rows_and_columns(drop):
+    # Reference: scipy.linalg.cholesky of the kept block itself (a factor with any diagonal
+    # signs: compared through F F^T and the triangle, and |F| against the positive factor).
+    import scipy.linalg
+
+    A = random_s_overlap(40, 5) + 0.05 * np.eye(40)
+    L = scipy.linalg.cholesky(A, lower=True)
+    keep = np.setdiff1d(np.arange(40), drop)
+    F = delete_from_factor(L, np.array(drop, dtype=int))
+    ref = scipy.linalg.cholesky(A[np.ix_(keep, keep)], lower=True)
+    assert np.allclose(F @ F.T, A[np.ix_(keep, keep)], atol=1e-13)
+    assert np.array_equal(F, np.tril(F))
+    assert np.allclose(np.abs(F), np.abs(ref), atol=1e-12)
+
+
+@pytest.mark.parametrize("target", [1e-3, 1e-4])
+def test_shells_from_the_carried_factor_equal_a_new_factorization(dimer, target):
+    # The function-level search hands its factor on; dropping it must change nothing but
+    # rounding: the same shells, the same smallest eigenvalue (numpy.linalg.eigvalsh).
+    _, S, shell, _ = dimer
+    fn = select_for_target(S, target)
+    assert fn.factor is not None
+    with_factor = shells_from_functions(S, fn, shell)
+    without = shells_from_functions(S, dataclasses.replace(fn, factor=None), shell)
+    assert np.array_equal(with_factor.kept, without.kept)
+    assert with_factor.smallest_kept == pytest.approx(without.smallest_kept, rel=1e-9)
