@@ -148,6 +148,7 @@ def test_usage_errors(tmp_path, water_xyz):
     assert run("check", water_xyz).exit_code == 2  # --basis missing
 
 
+@pytest.mark.slow
 def test_console_script_prints_no_traceback(tmp_path):
     # the installed entry point, as a user runs it
     p = tmp_path / "nan.xyz"

@@ -206,6 +206,7 @@ def _wait_for(predicate, seconds):
     return False
 
 
+@pytest.mark.slow
 def test_killed_run_leaves_no_corrupt_file_and_resumes(mixed):
     s = mixed / "resume"
     s.mkdir()
@@ -259,6 +260,7 @@ def test_killed_run_leaves_no_corrupt_file_and_resumes(mixed):
     assert "pyscf" not in warm.stderr and "auditor.gate.run" in warm.stderr
 
 
+@pytest.mark.slow
 def test_dask_local_cluster_gives_the_local_summary(mixed):
     distributed = pytest.importorskip("dask.distributed")
     gate("set", "-b", "sto-3g", "-o", "local", "--no-cache", "-j", "1")
@@ -276,6 +278,7 @@ def test_dask_local_cluster_gives_the_local_summary(mixed):
         assert report.read_text() == (mixed / "dask" / "items" / report.name).read_text()
 
 
+@pytest.mark.slow
 def test_unreachable_scheduler_is_a_usage_error(mixed):
     res = gate(
         "set/water.xyz",

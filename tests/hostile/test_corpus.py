@@ -12,6 +12,8 @@ from pathlib import Path
 import corpus
 import pytest
 
+pytestmark = pytest.mark.slow  # every test here runs whole auditor processes
+
 LAUNCH = Path(__file__).with_name("launch.py")
 #: seconds a case run in its own process may take (the import of pyscf is most of it)
 TIME_OUT = 90

@@ -10,6 +10,8 @@ import pytest
 
 from auditor.cli import HELP_WIDTH
 
+pytestmark = pytest.mark.slow  # every test here runs whole auditor processes
+
 
 @pytest.mark.parametrize("command", ["check", "gate"])
 def test_help_wraps_cleanly_at_a_fixed_width(command):

@@ -448,6 +448,7 @@ def chromium(tmp_path, *args):
     return subprocess.run(cmd, check=False, capture_output=True, text=True, timeout=120)
 
 
+@pytest.mark.slow
 @needs_chromium
 def test_report_renders_in_chromium(tmp_path, pages):
     page, shot = tmp_path / "r.html", tmp_path / "shot.png"
@@ -460,6 +461,7 @@ def test_report_renders_in_chromium(tmp_path, pages):
     assert len(np.unique((rgb * 255).astype(np.uint8), axis=0)) > 50
 
 
+@pytest.mark.slow
 @needs_chromium
 def test_set_index_table_sorts_in_chromium(tmp_path, broken, clean):
     items = set_items([clean, broken])
