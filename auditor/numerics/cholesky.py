@@ -109,6 +109,37 @@ def _pstrf(S: np.ndarray, tol: float) -> tuple[np.ndarray, np.ndarray]:
     return (np.asarray(piv[:rank], dtype=np.intp) - 1), factor
 
 
+def shifted_pivoted_cholesky(S: np.ndarray, shift: float) -> CholeskyResult:
+    """Pivoted Cholesky of ``S - shift*I`` (LAPACK dpstrf), stopped at the first pivot that
+    is not positive; ``factor`` is that of the shifted matrix.
+
+    Every pivot taken is positive, so the kept block's S - shift*I stays positive definite:
+    its smallest eigenvalue exceeds ``shift``. Every function left has a Schur-complement
+    diagonal of at most zero, so adding any one of them alone would break that. One
+    factorization thus gives a kept set that meets the level and to which no single function
+    can be added (a greedy set: not necessarily the largest one).
+    """
+    S = check_overlap(S)
+    if not np.isfinite(shift) or not 0.0 <= shift < 1.0:
+        raise UsageError(f"Cholesky shift must lie in [0, 1), got {shift!r}")
+    # dpstrf works in place in Fortran order: the transpose of a plain copy is that, and it is
+    # the same matrix, S being symmetric (a Fortran-ordered copy of a C-ordered S is far slower)
+    A = S.copy().T
+    A[np.diag_indices_from(A)] -= shift
+    # tol: dpstrf stops when the largest remaining diagonal is <= tol; the smallest positive
+    # number, as a non-positive tol would make LAPACK choose its own
+    c, piv, rank, info = lapack.dpstrf(A, tol=np.finfo(np.float64).tiny, lower=1, overwrite_a=1)
+    if info < 0:
+        raise RuntimeError(f"dpstrf rejected argument {-info}")
+    rank = int(rank) if info == 1 else S.shape[0]
+    factor = c[:rank, :rank]
+    for j in range(1, rank):  # zero the strict upper triangle in place (columns are contiguous)
+        factor[:j, j] = 0.0
+    pivots = np.asarray(piv[:rank], dtype=np.intp) - 1
+    dropped = np.setdiff1d(np.arange(S.shape[0]), pivots)
+    return CholeskyResult(pivots, factor, np.diagonal(factor) ** 2, dropped, float(shift))
+
+
 def _pivoted_loop(S: np.ndarray, tol: float) -> tuple[np.ndarray, np.ndarray]:
     n = S.shape[0]
     L = np.zeros((n, n))

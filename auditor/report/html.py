@@ -458,8 +458,8 @@ def _dropped_shells(sh: ShellPruningView, n: int, heading: str = "Shell-pruned b
 
 def _dropped_functions(fn: FunctionSubsetView, n: int) -> list[str]:
     intro = (
-        f"<h3>Pivoted-Cholesky subset of functions</h3><p>Tolerance "
-        f"{num(f'{fn.key}.tolerance', fn.tolerance, '.2e')}, found in "
+        f"<h3>Pivoted-Cholesky subset of functions</h3><p>Pivoting on S − τI, τ = "
+        f"{num(f'{fn.key}.tolerance', fn.tolerance, '.2e')} (no function left could be added alone), found in "
         f"{num(f'{fn.key}.factorizations', fn.factorizations, 'd')} "
         f"factorization(s); keeps {num(f'{fn.key}.kept', fn.kept, 'd')} of "
         f"{n} functions. Single functions are dropped, so the basis is no longer rotationally "

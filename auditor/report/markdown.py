@@ -254,8 +254,9 @@ def _dropped_shell_lines(sh: ShellPruningView, which: str = "") -> list[str]:
 
 def _dropped_function_lines(fn: FunctionSubsetView) -> list[str]:
     lines = [
-        f"Functions the pivoted-Cholesky subset drops (tolerance {fn.tolerance:.2e}, then "
-        f"{fn.added_back} offered back; {fn.factorizations} Cholesky factorizations):",
+        f"Functions the pivoted-Cholesky subset drops (pivoting on S − τI, τ = {fn.tolerance:.2e}, "
+        f"which keeps no function that would take the set below the target and leaves none that "
+        f"could be added alone; {fn.factorizations} Cholesky factorization(s)):",
         "",
         "| function | atom shell | component | l | smallest exponent |",
         "|---|---|---|---|---|",

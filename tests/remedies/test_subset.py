@@ -14,6 +14,7 @@ from auditor.numerics.cholesky import (
     delete_from_factor,
     pivoted_cholesky,
     shell_pivoted_cholesky,
+    shifted_pivoted_cholesky,
     smallest_from_factor,
 )
 from auditor.remedies.subset import check_atoms_not_emptied, select_for_target, shells_from_functions
@@ -173,9 +174,35 @@ def test_reported_tolerance_reproduces_kept_set(dimer):
     # Reference: definition of the stopping rule (largest remaining diagonal < tol).
     _, S, shell, _ = dimer
     for sof in (None, shell):
-        sel = select_for_target(S, 1e-3, sof)
+        sel = select_for_target(S, 1e-3, sof, search="shifted")
         again = pivoted_cholesky(S, sel.tolerance) if sof is None else shell_pivoted_cholesky(S, sof, sel.tolerance)
         assert np.array_equal(again.pivots, sel.order[: sel.prefix])
+
+
+@pytest.mark.parametrize("target", [1e-2, 1e-3, 1e-4])
+def test_shift_pivoted_set_meets_the_target_and_no_function_fits(dimer, target):
+    # Reference: numpy.linalg.eigvalsh. The default search for single functions pivots on
+    # S - target*I: the kept block meets the target, adding any dropped function alone takes
+    # it below, the reported shift reproduces the set, and it is one factorization.
+    _, S, _, _ = dimer
+    sel = select_for_target(S, target)
+    assert sel.search == "shift-pivoted" and sel.factorizations == 1 and sel.added_back == 0
+    assert np.linalg.eigvalsh(S[np.ix_(sel.kept, sel.kept)])[0] >= target
+    for j in sel.dropped:
+        trial = np.append(sel.kept, j)
+        assert np.linalg.eigvalsh(S[np.ix_(trial, trial)])[0] < target
+    assert np.array_equal(shifted_pivoted_cholesky(S, sel.tolerance).pivots, sel.order)
+    assert sel.tolerance < target
+
+
+def test_shifted_pivoting_of_a_matrix_with_known_spectrum():
+    # Reference: a 2 x 2 unit-diagonal block [[1, c], [c, 1]] has eigenvalues 1 - c and 1 + c.
+    c = 0.999
+    S = np.eye(3)
+    S[0, 1] = S[1, 0] = c
+    assert shifted_pivoted_cholesky(S, 0.5 * (1 - c)).rank == 3
+    res = shifted_pivoted_cholesky(S, 2 * (1 - c))  # the pair cannot stay together
+    assert res.rank == 2 and 2 in res.pivots and res.pivots[0] == 0
 
 
 def test_fewest_drops_among_tolerances_tried(dimer):
