@@ -10,10 +10,10 @@ them (remedies are worked out only when the smallest eigenvalue is below the tar
 from __future__ import annotations
 
 import argparse
-import time
 
 import clusters
 import numpy as np
+from timing import best_of
 
 
 def water_cluster(n_waters: int, spacing: float = 3.0, seed: int = 3):
@@ -38,15 +38,6 @@ def full_audit(atoms, basis, remedies=True):
     return auditor.audit(atoms, basis, remedies=remedies)
 
 
-def best_of(fn, repeats):
-    times = []
-    for _ in range(repeats):
-        t = time.perf_counter()
-        fn()
-        times.append(time.perf_counter() - t)
-    return min(times)
-
-
 def main():
     ap = argparse.ArgumentParser(description=__doc__)
     ap.add_argument("--basis", default="aug-cc-pvtz")
@@ -65,9 +56,9 @@ def main():
         atoms = water_cluster(n)
         first = full_audit(atoms, args.basis)  # warm caches (basis parsing) for a fair comparison
         smallest, nf = first.spectrum.smallest, first.input.n_functions
-        tb = best_of(lambda atoms=atoms: bare(atoms, args.basis), args.repeats)
-        ta = best_of(lambda atoms=atoms: full_audit(atoms, args.basis, remedies=False), args.repeats)
-        tr = best_of(lambda atoms=atoms: full_audit(atoms, args.basis), args.repeats)
+        tb = best_of(args.repeats, lambda atoms=atoms: bare(atoms, args.basis))[0]
+        ta = best_of(args.repeats, lambda atoms=atoms: full_audit(atoms, args.basis, remedies=False))[0]
+        tr = best_of(args.repeats, lambda atoms=atoms: full_audit(atoms, args.basis))[0]
         print(f"{n:>6} {nf:>9} {smallest:>9.2e} {tb:>8.3f} {ta:>8.3f} {ta / tb:>6.2f} {tr:>11.3f} {tr / tb:>6.2f}")
 
 

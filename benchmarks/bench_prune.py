@@ -16,9 +16,9 @@ from __future__ import annotations
 import argparse
 import os
 import sys
-import time
 
 import clusters  # loads numpy only when used: main sets the BLAS threads first
+from timing import best_of
 
 
 def parse() -> argparse.Namespace:
@@ -40,15 +40,6 @@ def parse() -> argparse.Namespace:
 def water_cluster(count: int, spacing: float = 2.9, seed: int = 0):
     """Waters on a cubic grid, each turned by a random rotation (fixed seed); pyscf's atom list."""
     return clusters.water_cluster(count, spacing, seed, clusters.qr_turn(clusters.WATER_ROUNDED)).atom_list()
-
-
-def best_of(repeat: int, fn):
-    times, out = [], None
-    for _ in range(repeat):
-        t = time.perf_counter()
-        out = fn()
-        times.append(time.perf_counter() - t)
-    return min(times), out
 
 
 def main() -> None:

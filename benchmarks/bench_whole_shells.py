@@ -15,10 +15,10 @@ Run:  python benchmarks/bench_whole_shells.py --waters 8 16 24 --targets 1e-5 1e
 from __future__ import annotations
 
 import argparse
-import time
 from functools import partial
 
 import clusters
+from timing import best_of
 
 
 def parse() -> argparse.Namespace:
@@ -28,15 +28,6 @@ def parse() -> argparse.Namespace:
     ap.add_argument("--basis", default="aug-cc-pvtz")
     ap.add_argument("--repeat", type=int, default=3)
     return ap.parse_args()
-
-
-def best_of(repeat, fn):
-    times, out = [], None
-    for _ in range(repeat):
-        t = time.perf_counter()
-        out = fn()
-        times.append(time.perf_counter() - t)
-    return min(times), out
 
 
 def inputs(waters):

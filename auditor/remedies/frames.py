@@ -24,7 +24,7 @@ import numpy as np
 import scipy.linalg
 
 from ..numerics.cholesky import smallest_eigenvalue
-from .subset import TARGET_SLACK, Selection, add_back, select_for_target, shells_from_functions
+from .subset import TARGET_SLACK, Selection, add_back, extend_rows, select_for_target, shells_from_functions
 
 
 def _renumbered(units: np.ndarray) -> np.ndarray:
@@ -153,17 +153,10 @@ def _extend_all(
     """The new factor rows of group ``g`` in every frame, or None when a frame rejects it."""
     rows = []
     for S, w in zip(Ss, W):
-        Wg = np.vstack([b[:, cols] for b in w])
-        C = S[np.ix_(g, g)] - Wg.T @ Wg
-        C[np.diag_indices_from(C)] -= goal
-        try:
-            Cc = scipy.linalg.cholesky(C, lower=True, check_finite=False)
-        except np.linalg.LinAlgError:
+        grown = extend_rows(S, w, g, cand, cols, goal)
+        if grown is None:
             return None
-        rhs = S[np.ix_(g, cand)]
-        for b in w:  # Wg^T @ vstack(w), without copying w into one array per group
-            rhs -= b[:, cols].T @ b
-        rows.append(scipy.linalg.solve_triangular(Cc, rhs, lower=True, check_finite=False))
+        rows.append(grown[0])
     return rows
 
 

@@ -510,18 +510,11 @@ def add_back(
     sizes: list[int] = []
     tails: list[tuple[np.ndarray, np.ndarray]] = []
     for gi, g in enumerate(groups):
-        cols = slice(starts[gi], starts[gi + 1])
-        Wg = np.vstack([w[:, cols] for w in W])
-        C = S[np.ix_(g, g)] - Wg.T @ Wg
-        C[np.diag_indices_from(C)] -= goal
-        try:
-            Cc = scipy.linalg.cholesky(C, lower=True, check_finite=False)
-        except np.linalg.LinAlgError:
+        grown = extend_rows(S, W, g, cand, slice(starts[gi], starts[gi + 1]), goal)
+        if grown is None:
             continue
-        rhs = S[np.ix_(g, cand)]
-        for w in W:  # Wg^T @ vstack(W), without copying W into one array per group
-            rhs -= w[:, cols].T @ w
-        W.append(scipy.linalg.solve_triangular(Cc, rhs, lower=True, check_finite=False))
+        rows, Wg, Cc = grown
+        W.append(rows)
         kept.append(g)
         sizes.append(g.size)
         tails.append((Wg, Cc))
@@ -538,6 +531,26 @@ def add_back(
         factor[k : k + d, k : k + d] = Cc
         k += d
     return order, sizes, factor
+
+
+def extend_rows(
+    S: np.ndarray, W: list[np.ndarray], g: np.ndarray, cand: np.ndarray, cols: slice, goal: float
+) -> tuple[np.ndarray, np.ndarray, np.ndarray] | None:
+    """Append group ``g`` (the candidates at ``cols``) to a growing factor of S[kept, kept] -
+    goal*I whose rows for every candidate column are the blocks ``W``: (the new rows for every
+    candidate, the group's columns of W stacked, the factor of its Schur block), or None when
+    the grown block is not positive definite."""
+    Wg = np.vstack([w[:, cols] for w in W])
+    C = S[np.ix_(g, g)] - Wg.T @ Wg
+    C[np.diag_indices_from(C)] -= goal
+    try:
+        Cc = scipy.linalg.cholesky(C, lower=True, check_finite=False)
+    except np.linalg.LinAlgError:
+        return None
+    rhs = S[np.ix_(g, cand)]
+    for w in W:  # Wg^T @ vstack(W), without copying W into one array per group
+        rhs -= w[:, cols].T @ w
+    return scipy.linalg.solve_triangular(Cc, rhs, lower=True, check_finite=False), Wg, Cc
 
 
 def _search_tolerance(
