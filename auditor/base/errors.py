@@ -2,12 +2,14 @@
 
 from __future__ import annotations
 
+import errno
+
 #: Exit codes of the command line (documented in docs/cli.md).
 EXIT_OK = 0  # every geometry passed or earned a caution
 EXIT_FAIL = 1  # at least one geometry failed the policy
 EXIT_USAGE = 2  # bad options or arguments
 EXIT_INPUT = 3  # a geometry or basis that cannot be read or understood
-EXIT_RESOURCE = 4  # the job does not fit on this machine (memory guard)
+EXIT_RESOURCE = 4  # the job does not fit on this machine (memory guard, a full disk)
 EXIT_INTERNAL = 5  # a bug in the auditor: please report it with the input
 
 
@@ -58,5 +60,11 @@ def failure(exc: BaseException) -> tuple[str, int]:
         return exc.message, exc.exit_code
     if isinstance(exc, MemoryError):
         return "ran out of memory", EXIT_RESOURCE
+    if isinstance(exc, OSError) and exc.errno in (errno.ENOSPC, errno.EDQUOT):
+        where = f" (writing {one_line(str(exc.filename))})" if exc.filename else ""
+        return f"no space left on the device{where}: free some space or choose another --out", EXIT_RESOURCE
+    if isinstance(exc, OSError) and exc.errno in (errno.EACCES, errno.EPERM, errno.EROFS):
+        where = f" {one_line(str(exc.filename))}" if exc.filename else ""
+        return f"cannot write{where} ({exc.strerror})", EXIT_USAGE
     text = str(exc).splitlines()[0] if str(exc).strip() else ""
     return f"internal error ({type(exc).__name__}: {one_line(text)})", EXIT_INTERNAL

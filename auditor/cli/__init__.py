@@ -18,7 +18,7 @@ import typer
 import typer.rich_utils
 from typer.exceptions import Abort, TyperException
 
-from ..base.errors import EXIT_INTERNAL, EXIT_USAGE
+from ..base.errors import EXIT_INTERNAL, EXIT_USAGE, failure
 from . import check, demo, gate, ladder, prune
 from .console import err, error_line
 
@@ -77,9 +77,9 @@ def main() -> None:
     except Exception as exc:
         if os.environ.get("AUDITOR_DEBUG"):
             raise
-        text = str(exc).splitlines()[0] if str(exc).strip() else ""
-        error_line(f"internal error ({type(exc).__name__}: {text}); set AUDITOR_DEBUG=1 to see the traceback")
-        sys.exit(EXIT_INTERNAL)
+        message, code = failure(exc)  # a full disk, a folder made read-only mid-run, ... or a bug
+        error_line(message + ("; set AUDITOR_DEBUG=1 to see the traceback" if code == EXIT_INTERNAL else ""))
+        sys.exit(code)
     sys.exit(code if isinstance(code, int) else 0)
 
 

@@ -201,3 +201,38 @@ def test_stages_are_reported_in_order(water_xyz):
     auditor.audit_prepared(prep, spectrum_method="large", stage=seen.append)
     assert seen[0] == "overlap matrix (pyscf)" and seen[-1] == "remedies"
     assert any("Cholesky" in s for s in seen) and any("Krylov" in s for s in seen)
+
+
+def test_a_full_disk_is_a_resource_error_and_earlier_reports_stay(tmp_path, water_xyz, monkeypatch):
+    # The second input's reports hit a full disk (ENOSPC): one line, exit code 4, and the
+    # first input's reports are complete. Exit codes: docs/cli.md.
+    import errno
+
+    from auditor.gate import serial
+
+    second = write_xyz(tmp_path / "second.xyz", *WATER)
+    real = serial.write_reports
+
+    def writes_once(result, out, formats, stem):
+        if stem == "second":
+            raise OSError(errno.ENOSPC, "No space left on device", str(out / "second.json"))
+        return real(result, out, formats, stem)
+
+    monkeypatch.setattr(serial, "write_reports", writes_once)
+    out = tmp_path / "out"
+    res = run("check", water_xyz, second, "--basis", "sto-3g", "--out", out, "--format", "json")
+    assert res.exit_code == 4, res.output
+    assert "no space left on the device (writing" in res.output and "internal error" not in res.output
+    assert json.loads((out / "water.json").read_text())["verdict"] == "pass"
+
+
+def test_failure_lines_for_file_system_errors():
+    # errno values from the C library (errno(3)); anything else stays an internal error (5).
+    import errno
+
+    from auditor.base.errors import failure
+
+    assert failure(OSError(errno.EDQUOT, "Disk quota exceeded", "r.json"))[1] == 4
+    message, code = failure(PermissionError(errno.EACCES, "Permission denied", "out/r.json"))
+    assert code == 2 and message == "cannot write out/r.json (Permission denied)"
+    assert failure(OSError(errno.EIO, "Input/output error"))[1] == 5
