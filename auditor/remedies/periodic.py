@@ -59,10 +59,15 @@ class PeriodicPlan:
     shells_doc: dict | None = None
     alternatives: list[Alternative] = field(default_factory=list)
     problems: list[str] = field(default_factory=list)
+    lower_bound: int | None = None  # the most eigenvalues below the target at any one k-point
 
     def report(self) -> Remedies:
         return Remedies(
-            target=self.target, needed=self.needed, alternatives=list(self.alternatives), problems=list(self.problems)
+            target=self.target,
+            needed=self.needed,
+            alternatives=list(self.alternatives),
+            lower_bound=self.lower_bound,
+            problems=list(self.problems),
         )
 
     def details(self, table: FunctionTable) -> dict:
@@ -122,26 +127,36 @@ def plan_periodic(
     target (unless ``force``)."""
     target = check_target(target)
     smallest = float(setup.spectra.smallest.min())
-    plan = PeriodicPlan(target=target, needed=bool(smallest < target))
+    values = setup.spectra.values
+    below = [int(np.searchsorted(v, target)) for v in values]
+    plan = PeriodicPlan(target=target, needed=bool(smallest < target), lower_bound=max(below))
     if not plan.needed and not force:
         return plan
     n = setup.table.n_functions
-    plan.alternatives.append(
-        _alt(
-            "canonical_orthogonalization",
-            f"canonical orthogonalization at {recommendation.threshold:.1e} at every k-point",
-            recommendation.n_removed,
-            "directions",
-            recommendation.smallest_kept,
-            target,
-            "keep the basis; drop the eigenvectors of each S(k) below the threshold (removed: summed over the mesh)",
-            threshold=recommendation.threshold,
-        )
-    )
+    if recommendation.threshold is not None:  # none for a broken geometry
+        plan.alternatives.append(_canonical_at_target(values, below, target))
     _add_cutoff(plan, setup)
     _add_shells(plan, setup)
     plan.alternatives = _rank(plan.alternatives, n)
     return plan
+
+
+def _canonical_at_target(values: np.ndarray, below: list[int], target: float) -> Alternative:
+    """Canonical orthogonalization at the target at every k-point: it removes, at each k, the
+    eigenvalues of S(k) below the target (the fewest any remedy can remove there); reported
+    as the most at any one k-point, comparable with functions removed, which go at every k."""
+    kept = [float(v[c]) for v, c in zip(values, below) if c < v.size]
+    return _alt(
+        "canonical_orthogonalization",
+        f"canonical orthogonalization at the target {target:.1e} at every k-point",
+        max(below),
+        "directions",
+        min(kept) if kept else None,
+        target,
+        "keep the basis; drop the eigenvectors of each S(k) below the target "
+        f"(removed: the most at one k-point; {sum(below)} summed over the mesh)",
+        threshold=target,
+    )
 
 
 def _add_cutoff(plan: PeriodicPlan, setup: PeriodicSetup) -> None:
