@@ -6,6 +6,7 @@ lattice-sum check. Small cells and small meshes only."""
 import numpy as np
 import pytest
 
+import auditor
 from auditor.base.errors import ResourceError, UsageError
 from auditor.inputs.basis import BasisSpec, load_shells, thaw
 from auditor.inputs.cell import Crystal, default_kmesh, mesh_rows, parse_kmesh
@@ -151,3 +152,20 @@ def test_memory_guard_counts_k_points():
     with pytest.raises(ResourceError):
         P.check_memory(20000, 64, available=2 * 1024**3)
     assert P.plan_batch(100, 64, 32, available=8 * 1024**3) == P.MAX_BATCH
+
+
+def test_canonical_orthogonalization_is_ranked_at_the_target_with_the_bound():
+    # Reference: numpy.linalg.eigvalsh of pyscf.pbc's S(k) at every k-point (as in the test
+    # above); at the target canonical orthogonalization removes, at each k, the eigenvalues
+    # below it, so the most at one k-point is both its count and the interlacing bound.
+    target = 1e-3
+    r = audit_cell(H2_CELL, "aug-cc-pvdz", kmesh=(2, 2, 2), remedies=auditor.RemedyOptions(target=target))
+    sp, cell = spectra(H2_CELL, "aug-cc-pvdz", (2, 2, 2))
+    scale, _ = P.home_scale(cell)
+    direct = np.linalg.eigvalsh(P.kpoint_overlaps(cell, sp.mesh.kpts, scale))
+    counts = (direct < target).sum(axis=1)
+    canon = next(a for a in r.remedies.alternatives if a.kind == "canonical_orthogonalization")
+    assert counts.max() > 0 and r.remedies.lower_bound == canon.removed == counts.max()
+    assert canon.threshold == target and canon.reaches_target
+    assert canon.smallest_after == pytest.approx(direct[direct >= target].min(), rel=1e-9)
+    assert all(a.removed >= counts.max() for a in r.remedies.alternatives if a.removed is not None)
