@@ -14,11 +14,11 @@ from .console import fail, out
 
 # size: the signature declares one parameter per command-line option
 def ladder(
-    geometry: Annotated[Path, typer.Argument(help="XYZ / extended XYZ file (every frame: the worst decides).")],
-    basis: o.Basis,
+    geometry: Annotated[Path, typer.Argument(help="Geometry file (every frame: the worst decides).")],
     out_dir: Annotated[
         Path, typer.Option("--out", "-o", help="Folder for <stem>.ladder.json, .ladder.md (.png) and .ladder.html.")
     ],
+    basis: o.Basis = None,
     bases: Annotated[
         str | None, typer.Option("--bases", help="More bases to compare, comma-separated (e.g. def2-svp,6-31g*).")
     ] = None,
@@ -47,7 +47,7 @@ def ladder(
     from ..diagnosis.verdict import Policy
     from ..inputs.readers import load_molecules
     from ..pipeline.ladder import ladder as run
-    from ..pipeline.run import make_spec
+    from ..pipeline.run import make_spec, resolve_spec
     from ..report.ladder import LADDER_FORMATS, rung_rows, summary_sentence, write_ladder_reports
     from ..report.naming import report_stem
 
@@ -60,6 +60,12 @@ def ladder(
         frames = load_molecules(geometry, unit=unit, ghost=ghost)
         if frame is not None and not 1 <= frame <= len(frames):
             raise UsageError(f"{geometry}: frame {frame} requested, file has {len(frames)} frame(s)")
+        spec = resolve_spec(spec, frames[0])  # the basis name a QCSchema input carries
+        if spec.data is not None:
+            raise UsageError(
+                f"{geometry}: the ladder needs a basis name; this input carries its basis data "
+                f"(the {spec.data.origin}'s), which has no published relatives: give --basis"
+            )
         chosen = frames if frame is None else [frames[frame - 1]]
         extra = [b.strip() for b in (bases or "").split(",") if b.strip()]
         report = run(chosen, spec, policy, target, extra)

@@ -125,3 +125,18 @@ def test_a_relative_with_other_exponents_is_not_a_block():
     spec = make_spec("def2-svpd")
     rung = next(r for r in relatives(spec.default) if r.name.startswith("ma-"))
     assert subset_functions(_mole(rung, mol, spec), prepare(mol, spec)) is None
+
+
+def test_ladder_takes_the_basis_name_a_qcschema_input_carries(tmp_path):
+    # The bundled QCSchema example names its basis in model.basis: the ladder uses it when
+    # --basis is not given; an XYZ file carries none (usage error, exit code 2).
+    from helpers import ROOT
+
+    doc = ROOT / "example_geometries" / "ammonia_water_cp.json"
+    named = json.loads(doc.read_text())["model"]["basis"]
+    res = CliRunner().invoke(app, ["ladder", str(doc), "-o", str(tmp_path / "l"), "-f", "json"])
+    assert res.exit_code == 0, res.output
+    assert json.loads((tmp_path / "l" / "ammonia_water_cp.ladder.json").read_text())["requested"] == named
+    xyz = write_xyz(tmp_path / "w.xyz", *WATER)
+    res = CliRunner().invoke(app, ["ladder", str(xyz), "-o", str(tmp_path / "m")])
+    assert res.exit_code == 2 and "no basis" in res.output
