@@ -34,7 +34,7 @@ from ..remedies.periodic import PeriodicPlan, PeriodicSetup, plan_periodic
 from ..remedies.plan import RemedyOptions
 from ..remedies.subset import check_target
 from .result import AuditResult, InputInfo, SpectrumInfo
-from .run import _default_threshold, make_spec
+from .run import _default_threshold, input_info, make_spec
 
 HOW_TO = (
     "from pyscf.scf import hf; hf.overlap_zero_eigenvalue_threshold = {tau:.1e}  # before building the "
@@ -189,26 +189,7 @@ def _basis_data(spec: BasisSpec, symbols: tuple[str, ...]) -> dict:
 
 
 def _input_info(prep: PreparedCell) -> InputInfo:
-    c, t = prep.crystal, prep.table
-    atoms = tuple(
-        {"atom": i + 1, "element": s, "ghost": bool(g), "xyz": [round(float(x), 8) for x in xyz]}
-        for i, (s, g, xyz) in enumerate(zip(c.symbols, c.ghost, c.coords))
-    )
-    return InputInfo(
-        path=c.source,
-        frame=c.frame + 1,
-        n_frames=c.n_frames,
-        basis=prep.spec.describe(),
-        basis_spec=prep.spec.as_dict(),
-        basis_data=_basis_data(prep.spec, c.symbols),
-        n_atoms=c.n_atoms,
-        n_functions=t.n_functions,
-        n_shells=t.n_shells,
-        ghost_atoms=tuple(i + 1 for i, g in enumerate(c.ghost) if g),
-        charge=0,
-        multiplicity=None,
-        atoms=atoms,
-    )
+    return input_info(prep.crystal, prep.spec, prep.table, _basis_data(prep.spec, prep.crystal.symbols), 0, None)
 
 
 def _spectrum_info(spec: Spectrum, worst_values: np.ndarray) -> SpectrumInfo:

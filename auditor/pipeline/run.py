@@ -257,24 +257,33 @@ def _default_threshold(policy: Policy) -> float:
 
 
 def _input_info(prep: Prepared) -> InputInfo:
-    mol, t = prep.molecule, prep.table
+    mol = prep.molecule
+    return input_info(mol, prep.spec, prep.table, basis_data(prep), mol.charge, mol.multiplicity)
+
+
+def input_info(
+    structure: Any, spec: BasisSpec, table: FunctionTable, data: dict, charge: int, multiplicity: int | None
+) -> InputInfo:
+    """The ``input`` part of a report for a molecule or a cell (``structure``: its source,
+    frame, symbols, ghost flags and coordinates in ångström)."""
+    s = structure
     atoms = tuple(
-        {"atom": i + 1, "element": s, "ghost": bool(g), "xyz": [round(float(x), 8) for x in xyz]}
-        for i, (s, g, xyz) in enumerate(zip(mol.symbols, mol.ghost, mol.coords))
+        {"atom": i + 1, "element": el, "ghost": bool(g), "xyz": [round(float(x), 8) for x in xyz]}
+        for i, (el, g, xyz) in enumerate(zip(s.symbols, s.ghost, s.coords))
     )
     return InputInfo(
-        path=mol.source,
-        frame=mol.frame + 1,
-        n_frames=mol.n_frames,
-        basis=prep.spec.describe(),
-        basis_spec=prep.spec.as_dict(),
-        basis_data=basis_data(prep),
-        n_atoms=mol.n_atoms,
-        n_functions=t.n_functions,
-        n_shells=t.n_shells,
-        ghost_atoms=tuple(i + 1 for i, g in enumerate(mol.ghost) if g),
-        charge=mol.charge,
-        multiplicity=mol.multiplicity,
+        path=s.source,
+        frame=s.frame + 1,
+        n_frames=s.n_frames,
+        basis=spec.describe(),
+        basis_spec=spec.as_dict(),
+        basis_data=data,
+        n_atoms=s.n_atoms,
+        n_functions=table.n_functions,
+        n_shells=table.n_shells,
+        ghost_atoms=tuple(i + 1 for i, g in enumerate(s.ghost) if g),
+        charge=charge,
+        multiplicity=multiplicity,
         atoms=atoms,
     )
 

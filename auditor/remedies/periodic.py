@@ -6,7 +6,7 @@ from __future__ import annotations
 
 import json
 from collections.abc import Callable
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
@@ -22,13 +22,11 @@ from ..numerics.periodic import KMesh, KSpectra, atom_labels
 from .canonical import Recommendation
 from .cutoff import CutoffResult, CutoffSearch, run_cutoff_search
 from .kshells import KShellSelection, select_shells
-from .plan import Alternative, Remedies
+from .plan import Alternative, Remedies, alternative, rank_alternatives
 from .pruned_basis import pruned_basis, shell_record
 from .subset import check_atoms_not_emptied, check_target
 
 PERIODIC_BASIS_FORMAT = "auditor-periodic-basis/1"
-
-_PREFER = {"exponent_cutoff": 0, "cholesky_shells": 1, "canonical_orthogonalization": 2}
 
 
 @dataclass
@@ -100,26 +98,6 @@ class PeriodicPlan:
         }
 
 
-def _alt(
-    kind: str, title: str, removed: int | None, unit: str, smallest: float | None, target: float, how: str, **extra: Any
-) -> Alternative:
-    reaches = bool(smallest is not None and smallest >= target * (1 - 1e-12))
-    return Alternative(kind, title, removed, unit, smallest, reaches, how, **extra)
-
-
-def _rank(alternatives: list[Alternative], n: int) -> list[Alternative]:
-    ordered = sorted(
-        alternatives,
-        key=lambda a: (
-            not a.reaches_target,
-            a.removed if a.removed is not None else n,
-            -float(f"{a.smallest_after or 0.0:.2e}"),
-            _PREFER.get(a.kind, 9),
-        ),
-    )
-    return [replace(a, rank=k) for k, a in enumerate(ordered, 1)]
-
-
 def plan_periodic(
     setup: PeriodicSetup, recommendation: Recommendation, target: float, force: bool = False
 ) -> PeriodicPlan:
@@ -137,7 +115,7 @@ def plan_periodic(
         plan.alternatives.append(_canonical_at_target(values, below, target))
     _add_cutoff(plan, setup)
     _add_shells(plan, setup)
-    plan.alternatives = _rank(plan.alternatives, n)
+    plan.alternatives = rank_alternatives(plan.alternatives, n)
     return plan
 
 
@@ -146,7 +124,7 @@ def _canonical_at_target(values: np.ndarray, below: list[int], target: float) ->
     eigenvalues of S(k) below the target (the fewest any remedy can remove there); reported
     as the most at any one k-point, comparable with functions removed, which go at every k."""
     kept = [float(v[c]) for v, c in zip(values, below) if c < v.size]
-    return _alt(
+    return alternative(
         "canonical_orthogonalization",
         f"canonical orthogonalization at the target {target:.1e} at every k-point",
         max(below),
@@ -173,7 +151,7 @@ def _add_cutoff(plan: PeriodicPlan, setup: PeriodicSetup) -> None:
     plan.cutoff_doc = cutoff_document(setup, result, plan.target)
     names = ", ".join(f"{c.element} {c.cutoff:.3g}" for c in result.elements if c.cutoff > 0) or "none"
     plan.alternatives.append(
-        _alt(
+        alternative(
             "exponent_cutoff",
             f"exponent cutoff (drop primitives below: {names})",
             result.removed,
@@ -211,7 +189,7 @@ def _add_shells(plan: PeriodicPlan, setup: PeriodicSetup) -> None:
     plan.shells = sel
     plan.shells_doc = shells_document(setup, sel, plan.target)
     plan.alternatives.append(
-        _alt(
+        alternative(
             "cholesky_shells",
             "whole-shell subset (pivoted Cholesky of S(k) - target at the worst k-points, checked at every k)",
             int(table.n_functions - kept.size),

@@ -42,7 +42,7 @@ from .shells import (
     pruned_point_group,
     whole_shell_selection,
 )
-from .subset import Selection, check_atoms_not_emptied, check_target
+from .subset import TARGET_SLACK, Selection, check_atoms_not_emptied, check_target
 from .symmetry import SYMMETRY_TOLERANCE
 from .trial_scf import TIME_LIMIT, Progress, check_method, trial_scf
 
@@ -171,7 +171,7 @@ def diffuse_element_options(
     return out
 
 
-def _alt(
+def alternative(
     kind: str,
     title: str,
     removed: int | None,
@@ -181,7 +181,8 @@ def _alt(
     how: str,
     **extra: Any,
 ) -> Alternative:
-    reaches = bool(smallest is not None and smallest >= target)
+    """One ranked option; it reaches the target with the searches' own rounding allowance."""
+    reaches = bool(smallest is not None and smallest >= target * (1.0 - TARGET_SLACK))
     return Alternative(kind, title, removed, unit, smallest, reaches, how, **extra)
 
 
@@ -230,7 +231,7 @@ def _canonical(at: _AtTarget, target: float) -> Alternative:
     known = [c for c in at.counts if c is not None]
     if len(at.counts) > 1 and known and min(known) != max(known):
         how += f"; {min(known)} to {max(known)} directions depending on the frame"
-    return _alt(
+    return alternative(
         "canonical_orthogonalization",
         f"canonical orthogonalization at the target {target:.1e}",
         at.removed,
@@ -249,7 +250,7 @@ def _add_function_subset(plan: RemedyPlan, Ss: list[np.ndarray], atoms: np.ndarr
         plan.problems.append(f"pivoted-Cholesky subset: {exc.message}")
         return
     plan.alternatives.append(
-        _alt(
+        alternative(
             "cholesky_functions",
             "pivoted-Cholesky subset of functions",
             f.n_dropped,
@@ -268,7 +269,7 @@ def _add_diffuse_options(plan: RemedyPlan, Ss: list[np.ndarray], table: Function
         if opt.reaches_target:
             how = f"use the parent basis without augmentation for {opt.element} (e.g. --basis-for)"
             plan.alternatives.append(
-                _alt(
+                alternative(
                     "drop_diffuse_element",
                     f"drop the diffuse shells of {opt.element} everywhere",
                     opt.removed,
@@ -298,7 +299,7 @@ def _add_named_basis(plan: RemedyPlan, fr: _Frames, n: int, cache: dict) -> None
     cite = f"; cite {best.reference}" if best.reference else ""
     rule = "" if best.published is None else f" ({best.how})"
     plan.alternatives.append(
-        _alt(
+        alternative(
             "named_basis",
             f"use the published basis {best.use_name}",
             n - best.n_functions,
@@ -371,7 +372,7 @@ def _shell_alternative(plan: RemedyPlan, s: Selection, kind: str, table: Functio
         group = f", point group {info.pruned_point_group}" if info is not None and info.point_group != "C1" else ""
         title = f"shell-pruned basis (whole shells, pivoted Cholesky{group})"
         how = "auditor prune writes it as a pyscf basis (JSON) and in other programs' formats"
-    return _alt(
+    return alternative(
         kind,
         title,
         s.n_dropped,
@@ -437,12 +438,13 @@ def _frame_figures(plan: RemedyPlan, fr: _Frames, at: _AtTarget) -> list[FrameFi
 
 #: Ties: the larger smallest eigenvalue (to 3 digits), then whole-shell remedies first.
 _PREFER = {
-    "named_basis": -1,
-    "cholesky_shells": 0,
-    "drop_diffuse_element": 1,
-    "cholesky_shells_unconstrained": 2,
-    "cholesky_functions": 3,
-    "canonical_orthogonalization": 4,
+    "named_basis": 0,
+    "exponent_cutoff": 1,
+    "cholesky_shells": 2,
+    "drop_diffuse_element": 3,
+    "cholesky_shells_unconstrained": 4,
+    "cholesky_functions": 5,
+    "canonical_orthogonalization": 6,
 }
 
 

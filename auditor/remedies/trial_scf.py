@@ -1,8 +1,8 @@
 """Opt-in trial SCF: what a remedy costs in total energy.
 
-Runs pyscf twice: the full basis with canonical orthogonalization at the advised
-threshold (our own X, not pyscf's built-in cut), and the shell-pruned basis with nothing
-removed. Both are variational in a subspace of the full basis, so both energies lie at or
+Runs pyscf twice: the full basis with canonical orthogonalization at the target (our own
+X, not pyscf's built-in cut), and the shell-pruned basis with nothing removed. Both are
+variational in a subspace of the full basis, so both energies lie at or
 above the full-basis energy; the difference between them is what choosing one remedy over
 the other costs. Guarded by a size limit and a per-run time limit.
 """
