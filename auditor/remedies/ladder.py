@@ -193,7 +193,7 @@ def _figures_within(
     """The smallest eigenvalue of a rung whose basis is a subset of the prepared one (the
     same shells on every atom, a few left out): from the block of the prepared S, which is
     the rung's own unit-diagonal S up to the order of functions. None when it is not."""
-    idx = subset_functions(_mole(rung, molecules[0], spec), preps[0])
+    idx = subset_functions(_mole(rung, molecules[0], spec), preps[0], cache)
     if idx is None:
         return None
     lows = [smallest_eigenvalue_cached(p.S, idx, cache) for p in preps]
@@ -207,14 +207,20 @@ def _figures_within(
     }
 
 
-def subset_functions(small: gto.Mole, prep: PreparedGeometry) -> np.ndarray | None:
+def subset_functions(small: gto.Mole, prep: PreparedGeometry, cache: dict | None = None) -> np.ndarray | None:
     """The functions of ``prep`` (ascending) whose shells make up the basis of ``small``, when
     every shell of ``small`` is a shell of the same atom in ``prep`` (same l, exponents and
-    coefficients, bit for bit); else None."""
-    full = shell_entries(prep.mole)
-    free: dict[tuple, list[int]] = {}
-    for s, (atom, l, prims) in enumerate(full):
-        free.setdefault((atom, l, repr(prims)), []).append(s)
+    coefficients, bit for bit); else None. ``cache`` keeps the prepared basis's shell index
+    between rungs (it is the same for every rung)."""
+    key = ("shell index", id(prep.mole))
+    index = None if cache is None else cache.get(key)
+    if index is None:
+        index = {}
+        for s, (atom, l, prims) in enumerate(shell_entries(prep.mole)):
+            index.setdefault((atom, l, repr(prims)), []).append(s)
+        if cache is not None:
+            cache[key] = index
+    free = {k: list(v) for k, v in index.items()}  # this rung takes shells out of its own copy
     chosen = []
     for atom, l, prims in shell_entries(small):
         spare = free.get((atom, l, repr(prims)))
