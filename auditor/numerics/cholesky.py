@@ -126,17 +126,37 @@ def shifted_pivoted_cholesky(S: np.ndarray, shift: float) -> CholeskyResult:
     # the same matrix, S being symmetric (a Fortran-ordered copy of a C-ordered S is far slower)
     A = S.copy().T
     A[np.diag_indices_from(A)] -= shift
+    pivots, rank = pstrf_until_nonpositive(A)
+    factor = A[:rank, :rank]
+    for j in range(1, rank):  # zero the strict upper triangle in place (columns are contiguous)
+        factor[:j, j] = 0.0
+    return shifted_result(pivots, factor, S.shape[0], shift)
+
+
+def pstrf_until_nonpositive(A: np.ndarray) -> tuple[np.ndarray, int]:
+    """LAPACK dpstrf on the lower triangle of the Fortran-ordered ``A``, in place, stopped at
+    the first pivot that is not positive: (0-based pivot order of all N rows, rank).
+
+    ``A[:rank, :rank]`` (lower) is then the factor of the pivoted leading block and
+    ``A[rank:, :rank]`` its rows for the functions left; the trailing block is not their
+    Schur complement (dpstrf updates it a panel at a time). The strict upper triangle is
+    not touched.
+    """
     # tol: dpstrf stops when the largest remaining diagonal is <= tol; the smallest positive
     # number, as a non-positive tol would make LAPACK choose its own
     c, piv, rank, info = lapack.dpstrf(A, tol=np.finfo(np.float64).tiny, lower=1, overwrite_a=1)
     if info < 0:
         raise RuntimeError(f"dpstrf rejected argument {-info}")
-    rank = int(rank) if info == 1 else S.shape[0]
-    factor = c[:rank, :rank]
-    for j in range(1, rank):  # zero the strict upper triangle in place (columns are contiguous)
-        factor[:j, j] = 0.0
-    pivots = np.asarray(piv[:rank], dtype=np.intp) - 1
-    dropped = np.setdiff1d(np.arange(S.shape[0]), pivots)
+    if not np.shares_memory(c, A):
+        raise ValueError("dpstrf needs a Fortran-ordered float64 array to work in place")
+    return np.asarray(piv, dtype=np.intp) - 1, int(rank) if info == 1 else A.shape[0]
+
+
+def shifted_result(order: np.ndarray, factor: np.ndarray, n: int, shift: float) -> CholeskyResult:
+    """The CholeskyResult of a shift-pivoted factorization: ``order`` the pivot order of all
+    n functions, ``factor`` the lower factor of its leading block (its size is the rank)."""
+    pivots = order[: factor.shape[0]]
+    dropped = np.setdiff1d(np.arange(n), pivots)
     return CholeskyResult(pivots, factor, np.diagonal(factor) ** 2, dropped, float(shift))
 
 
@@ -455,3 +475,20 @@ def delete_from_factor(L: np.ndarray, drop: np.ndarray) -> np.ndarray:
 def deletion_is_cheaper(m: int, n_drop: int) -> bool:
     """Whether `delete_from_factor` costs fewer flops than factorizing the kept block anew."""
     return 2.0 * m * m * n_drop < (m - n_drop) ** 3 / 3.0
+
+
+class FactorHandoff:
+    """A shift-pivoted factorization (`shifted_pivoted_cholesky`) made by one step (the
+    spectrum's count below a level) for a later one (the remedies' function subset at that
+    level), which takes it once: its factor is one N x N array, owned by whoever holds it."""
+
+    def __init__(self) -> None:
+        self._result: CholeskyResult | None = None
+
+    def give(self, result: CholeskyResult) -> None:
+        self._result = result
+
+    def take(self) -> CholeskyResult | None:
+        """The factorization (its shift is its ``tol``), if any; the handoff is empty afterwards."""
+        result, self._result = self._result, None
+        return result

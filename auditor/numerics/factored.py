@@ -5,8 +5,10 @@ while the mirror triangle keeps the overlap data, so S is restored afterwards wi
 second copy:
 
 * a Cholesky attempt of S - tau*I decides whether any eigenvalue lies below tau;
-* if one does, the inertia of an LDL^T (Bunch-Kaufman) factorization of S - tau*I counts
-  them exactly (Sylvester's law of inertia);
+* if one does, a pivoted Cholesky of S - tau*I stopped at its first pivot that is not
+  positive, and the LDL^T (Bunch-Kaufman) inertia of the small Schur complement of the
+  functions it leaves, count them exactly (Sylvester's law of inertia, Haynsworth's
+  additivity); that factorization is also the remedies' function subset at tau;
 * restarted block Krylov iteration with Rayleigh-Ritz on (S - sigma*I)^-1, applied
   through a Cholesky factor (BLAS-3 solves), gives the smallest eigenpairs;
 * Lanczos (ARPACK) on S gives the largest eigenvalue.
@@ -22,6 +24,7 @@ from typing import Any
 import numpy as np
 
 from ..base.errors import ResourceError
+from .cholesky import FactorHandoff, pstrf_until_nonpositive, shifted_result
 from .inplace import _cholesky, _fortran_view, _ldl_negative_count, _Triangles
 from .krylov import _largest_eigenvalue, _smallest_eigenpairs
 from .memory import DEFAULT_MAX_VECTORS
@@ -54,6 +57,7 @@ def large_spectrum(
     seed: int = 0,
     info: dict[str, Any] | None = None,
     stage: Callable[[str], None] | None = None,
+    handoff: FactorHandoff | None = None,
 ) -> Spectrum:
     """Spectrum of unit-diagonal S without a full eigendecomposition.
 
@@ -65,7 +69,8 @@ def large_spectrum(
     below that decade computed); otherwise None. ``exact_counts`` adds one LDL^T per
     missing decade. ``tol`` bounds the relative residual of the Ritz pairs of
     (S - sigma I)^-1 (eigenvalue errors are about its square); ``info`` receives
-    timings and iteration counts; ``stage`` is told the name of each step as it starts.
+    timings and iteration counts; ``stage`` is told the name of each step as it starts;
+    ``handoff`` receives the pivoted factorization of S - vector_level*I when one is made.
     """
 
     info = {} if info is None else info
@@ -81,7 +86,7 @@ def large_spectrum(
 
     tri = _Triangles(A)
     try:
-        below_tau, factored_at_tau = _count_below(tri, tau, info, stage)
+        below_tau, factored_at_tau = _count_below(tri, tau, info, stage, handoff)
         if not factored_at_tau:
             stage("Cholesky factor of S below its spectrum")
         factored_shift = _positive_definite_shift(tri, tau if factored_at_tau else None, largest, info)
@@ -138,11 +143,13 @@ def _quiet(_: str) -> None:
     pass
 
 
-def _count_below(tri: _Triangles, tau: float, info: dict[str, Any], stage: Callable[[str], None]) -> tuple[int, bool]:
+def _count_below(
+    tri: _Triangles, tau: float, info: dict[str, Any], stage: Callable[[str], None], handoff: FactorHandoff | None
+) -> tuple[int, bool]:
     """Number of eigenvalues of S below ``tau``, and whether S - tau*I was factored.
 
-    A Cholesky attempt of S - tau*I decides whether there is any; when it fails, the
-    inertia of an LDL^T factorization counts them. When it succeeds (the count is 0), the
+    A Cholesky attempt of S - tau*I decides whether there is any; when it fails, a pivoted
+    factorization counts them (`_pivoted_count`). When it succeeds (the count is 0), the
     lower triangle of ``tri`` holds the Cholesky factor of S - tau*I.
     """
     t1 = time.perf_counter()
@@ -153,11 +160,38 @@ def _count_below(tri: _Triangles, tau: float, info: dict[str, Any], stage: Calla
         below_tau = 0
     else:
         t1 = time.perf_counter()
-        stage(f"LDL^T inertia of S - {tau:.0e} I")
-        below_tau = _ldl_negative_count(tri.load(tau))
-        info["t_ldl_tau"] = time.perf_counter() - t1
+        stage(f"pivoted Cholesky inertia of S - {tau:.0e} I")
+        below_tau = _pivoted_count(tri, tau, handoff)
+        info["t_inertia_tau"] = time.perf_counter() - t1
     info["below_vector_level"] = below_tau
     return below_tau, factored
+
+
+def _pivoted_count(tri: _Triangles, tau: float, handoff: FactorHandoff | None) -> int:
+    """Number of eigenvalues of S below ``tau`` from one pivoted Cholesky of S - tau*I.
+
+    It stops at its first pivot that is not positive, so its leading block is positive
+    definite and, by Haynsworth's inertia additivity, S - tau*I has as many negative
+    eigenvalues as the Schur complement of the functions left (few), counted by LDL^T
+    inertia. ``handoff`` (when given) receives the factorization with a copy of its factor.
+    """
+    A = tri.load(tau)
+    n = A.shape[0]
+    order, rank = pstrf_until_nonpositive(A)
+    if handoff is not None:
+        factor = np.array(A[:rank, :rank], order="F")
+        for j in range(1, rank):  # columns are contiguous in Fortran order
+            factor[:j, j] = 0.0
+        handoff.give(shifted_result(order, factor, n, tau))
+    rest = order[rank:]
+    if rest.size == 0:
+        return 0
+    # S[rest, rest] from the strict upper triangle (intact) and the saved diagonal
+    C = A[np.minimum.outer(rest, rest), np.maximum.outer(rest, rest)]
+    C[np.diag_indices_from(C)] = tri.diag[rest] - tau
+    L21 = A[rank:, :rank]
+    C -= L21 @ L21.T
+    return _ldl_negative_count(np.asfortranarray(C))
 
 
 def _positive_definite_shift(tri: _Triangles, factored: float | None, largest: float, info: dict[str, Any]) -> float:

@@ -2,9 +2,11 @@
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
+
+from .cholesky import FactorHandoff
 
 #: size of the row blocks in which scans over S (bounds, findings) read it: a small,
 #: fixed extra beside S whatever its size
@@ -46,6 +48,9 @@ class Spectrum:
     degeneracy_tol: float = 0.0
     #: a lower bound on the first eigenvalue past ``values`` when they are not all known
     beyond: float | None = None
+    #: the pivoted factorization of S - level*I that counted the eigenvalues below the level,
+    #: kept for the remedies when asked for (`auditor.numerics.eigen.compute_spectrum`)
+    handoff: FactorHandoff | None = field(default=None, compare=False, repr=False)
 
     def growth(self, n_removed: int) -> float | None:
         """max |X| of canonical orthogonalization that removes ``n_removed`` directions,

@@ -123,7 +123,7 @@ def audit_frames(
     policy = policy or Policy()
     if len(molecules) == 1:
         prep = prepare(molecules[0], spec, spectrum_method, stage)
-        core = audit_core(prep, policy, spectrum_method, stage)
+        core = audit_core(prep, policy, spectrum_method, stage, for_remedies=remedies is not False)
         return [replace(core.result, remedies=remedies_of([prep], [core], policy, remedies, stage=stage))]
     if not same_atoms(molecules):
         return _frame_by_frame(molecules, spec, policy, spectrum_method, remedies)
@@ -164,7 +164,7 @@ def _frame_by_frame(
     out = []
     for mol in molecules:
         prep = prepare(mol, spec, spectrum_method)
-        core = audit_core(prep, policy, spectrum_method)
+        core = audit_core(prep, policy, spectrum_method, for_remedies=remedies is not False)
         rem = remedies_of([prep], [core], policy, remedies)
         if rem is not None:
             rem = replace(rem, problems=[*rem.problems, note])

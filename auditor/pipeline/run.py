@@ -32,7 +32,7 @@ from ..numerics.memory import check_memory
 from ..numerics.overlap import FunctionTable, build_mole, function_table, mole_function_table, normalized_overlap
 from ..numerics.spectrum import Spectrum
 from ..remedies.canonical import Recommendation, advise, broken_geometry_advice
-from ..remedies.plan import Remedies, RemedyOptions, RemedyPlan, make_plan, remedies_for
+from ..remedies.plan import Remedies, RemedyOptions, RemedyPlan, make_plan, remedies_fit, remedies_for
 from ..remedies.subset import check_target
 from .result import AuditResult, InputInfo, SpectrumInfo, caveats_for
 
@@ -149,12 +149,19 @@ class Audited:
 
 
 def audit_core(
-    prep: Prepared, policy: Policy, spectrum_method: str = "auto", stage: Callable[[str], None] | None = None
+    prep: Prepared,
+    policy: Policy,
+    spectrum_method: str = "auto",
+    stage: Callable[[str], None] | None = None,
+    for_remedies: bool = False,
 ) -> Audited:
     """Spectrum, causes, findings, verdict and advice of one frame, without remedies;
-    ``stage`` (optional) is told the name of each step as it starts."""
+    ``stage`` (optional) is told the name of each step as it starts. With ``for_remedies``
+    (this frame's remedies follow) the spectrum keeps the factorization they can reuse,
+    when memory allows it."""
     stage = stage or _quiet
-    spec = compute_spectrum(prep.S, vector_level=policy.caution, method=spectrum_method, stage=stage)
+    keep = for_remedies and remedies_fit(prep.table.n_functions)
+    spec = compute_spectrum(prep.S, policy.caution, spectrum_method, stage, keep_factor=keep)
     stage("findings and causes")
     causes = attribute_causes(spec.vectors, prep.table, below=policy.caution, n_below=spec.count_below(policy.caution))
     findings = _findings(prep, spec, policy, causes)
@@ -196,7 +203,7 @@ def audit_prepared(
     name of each step as it starts, for progress displays and timings.
     """
     policy = policy or Policy()
-    core = audit_core(prep, policy, spectrum_method, stage)
+    core = audit_core(prep, policy, spectrum_method, stage, for_remedies=remedies is not False)
     rem = remedies_of([prep], [core], policy, remedies, stage=stage)
     return replace(core.result, remedies=rem)
 
@@ -236,6 +243,9 @@ def remedies_of(
         k, decision = broken[0]
         where = f"frame {cores[k].result.input.frame} of the file is" if len(cores) > 1 else "the geometry is"
         why = f"{where} broken ({decision.finding}): fix the geometry first; no remedy is offered for it"
+        for c in cores:  # release a factor kept for them
+            if c.spectrum.handoff is not None:
+                c.spectrum.handoff.take()
         return no_remedies(cores, target, why)
     rec = recommendation or cores[0].result.recommendation
     if stage:
@@ -403,7 +413,7 @@ def prune_prepared(
     """
     policy = policy or Policy()
     options = prune_options(options, policy)
-    core = audit_core(prep, policy)
+    core = audit_core(prep, policy, for_remedies=True)
     refuse_broken(core)
     plan = make_plan(prep, core.result.recommendation, core.spectrum, options, policy.caution)
     check_pruned(plan)

@@ -23,7 +23,7 @@ from collections.abc import Sequence
 import numpy as np
 import scipy.linalg
 
-from ..numerics.cholesky import smallest_eigenvalue
+from ..numerics.cholesky import CholeskyResult, smallest_eigenvalue
 from .subset import TARGET_SLACK, Selection, add_back, extend_rows, select_for_target, shells_from_functions
 
 
@@ -37,10 +37,12 @@ def joint_select(
     units: np.ndarray | None,
     atoms: np.ndarray,
     verify: str = "eigvalsh",
+    pivoted: CholeskyResult | None = None,
 ) -> Selection:
     """The longest kept set (functions, or whole ``units``) meeting ``target`` in every frame
-    of ``Ss`` (worst frame first); raises UsageError as `select_for_target` does."""
-    first = select_for_target(Ss[0], target, units, atoms, verify=verify)
+    of ``Ss`` (worst frame first); raises UsageError as `select_for_target` does.
+    ``pivoted``: the first frame's shift-pivoted factorization at ``target``, if made already."""
+    first = select_for_target(Ss[0], target, units, atoms, verify=verify, pivoted=pivoted)
     if len(Ss) == 1:
         return first
     kept = first.kept

@@ -13,7 +13,7 @@ from typing import Any
 import numpy as np
 
 from ..base.errors import UsageError
-from ..numerics.cholesky import smallest_eigenvalue, smallest_eigenvalue_cached, verify_mode
+from ..numerics.cholesky import CholeskyResult, smallest_eigenvalue, smallest_eigenvalue_cached, verify_mode
 from ..numerics.eigen import compute_spectrum
 from ..numerics.memory import available_bytes
 from ..numerics.overlap import FunctionTable
@@ -186,6 +186,11 @@ def alternative(
     return Alternative(kind, title, removed, unit, smallest, reaches, how, **extra)
 
 
+def remedies_fit(n: int, n_frames: int = 1) -> bool:
+    """Whether the remedies of n functions (over ``n_frames`` frames) fit in free memory."""
+    return _memory_problem(n, n_frames) is None
+
+
 def _memory_problem(n: int, n_frames: int = 1) -> str | None:
     need = (REMEDY_COPIES + max(0, n_frames - 1)) * 8 * n * n
     free = available_bytes()
@@ -243,9 +248,11 @@ def _canonical(at: _AtTarget, target: float) -> Alternative:
     )
 
 
-def _add_function_subset(plan: RemedyPlan, Ss: list[np.ndarray], atoms: np.ndarray, mode: str) -> None:
+def _add_function_subset(
+    plan: RemedyPlan, Ss: list[np.ndarray], atoms: np.ndarray, mode: str, pivoted: CholeskyResult | None
+) -> None:
     try:
-        f = plan.functions = joint_select(Ss, plan.target, None, atoms, verify=mode)
+        f = plan.functions = joint_select(Ss, plan.target, None, atoms, verify=mode, pivoted=pivoted)
     except UsageError as exc:
         plan.problems.append(f"pivoted-Cholesky subset: {exc.message}")
         return
@@ -486,6 +493,9 @@ def plan_frames(
         plan.deciding_frame = fr.worst.molecule.frame + 1
     if not plan.needed and not force:
         return plan
+    # the spectrum's factorization of S - target*I, when it made one (the same for one frame)
+    handoff = fr.spectra[0].handoff if len(fr.spectra) == 1 else None
+    pivoted = handoff.take() if handoff is not None else None
     problem = _memory_problem(table.n_functions, len(fr.preps))
     if problem:
         plan.problems.append(problem)
@@ -494,7 +504,8 @@ def plan_frames(
     atoms = table.func_atom - 1
     if recommendation.threshold is not None:  # none is advised for a broken geometry
         plan.alternatives.append(_canonical(at, target))
-    _add_function_subset(plan, fr.worst_first, atoms, mode)
+    _add_function_subset(plan, fr.worst_first, atoms, mode, pivoted)
+    del pivoted  # its factor now lives in plan.functions
     _add_shell_prunings(plan, fr, atoms, mode)
     if plan.functions is not None:  # its factor served the shell prunings: release it
         plan.functions = replace(plan.functions, factor=None)

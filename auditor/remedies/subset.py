@@ -66,7 +66,8 @@ class Selection:
     kept set in pivot order, its first ``prefix`` entries the pivoted-Cholesky prefix and
     the last ``added_back`` those offered back afterwards. ``tolerance`` is a
     pivoted-Cholesky tolerance that yields exactly the prefix (for the "shift-pivoted"
-    search: the shift, just below the target, at which that search keeps this set). ``factorizations`` counts
+    search: the shift at which that search keeps this set, the target less `TARGET_SLACK`, or
+    the target itself when the spectrum's factorization was reused). ``factorizations`` counts
     Cholesky factorizations (pivoted, plain or incremental) and ``eigen_checks`` the
     eigenvalue computations the search used.
     """
@@ -85,9 +86,11 @@ class Selection:
     notes: list[str] = field(default_factory=list)
     prefix: int = 0
     added_back: int = 0
-    #: the lower factor of S[order, order] - goal*I when the search made it (goal: the target
-    #: less `TARGET_SLACK`), for `shells_from_functions`; callers release it when done
+    #: the lower factor of S[order, order] - factor_shift*I when the search made it, for
+    #: `shells_from_functions`; callers release it when done
     factor: np.ndarray | None = field(default=None, compare=False, repr=False)
+    #: the shift of ``factor``: the target (shift-pivoted search) or the target less `TARGET_SLACK`
+    factor_shift: float = 0.0
 
     @property
     def n_dropped(self) -> int:
@@ -176,6 +179,7 @@ def select_for_target(
     search: str = "auto",
     verify: bool | str = "eigvalsh",
     refine: bool = True,
+    pivoted: CholeskyResult | None = None,
 ) -> Selection:
     """Keep as many functions as possible while the kept overlap has lambda_min >= target.
 
@@ -186,17 +190,14 @@ def select_for_target(
 
     "shifted" (a pivoted factorization at tol=target, then one Cholesky of S[p, p] - target*I
     whose first failing leading minor ends the prefix), "prefix" (bisection over its length)
-    or "tolerance" (bisection on log10(tol)).
-
-    ``verify`` ("eigvalsh" or True, "lanczos", "none" or False) checks the kept set's
+    or "tolerance" (bisection on log10(tol)). ``verify`` ("eigvalsh" or True, "lanczos", "none" or False) checks the kept set's
     smallest eigenvalue, with ``numpy.linalg.eigvalsh`` on the kept block or with
     `smallest_from_factor` on its Cholesky factor, and shortens the set if rounding let
-    it slip below target. With ``refine`` the units (functions or shells) left out of the
-    prefix are then offered back one by one, in pivot order, and kept whenever the set
-    still meets the target (one incremental factorization; ``added_back`` counts them), so
-    that no dropped unit could be added. With ``atom_of_function`` a selection that would
-    leave a non-exempt atom without functions raises UsageError. Ties in shell pivoting go
-    to the lower shell index.
+    it slip below target. With ``refine`` the units left out of the prefix are offered back
+    one by one, in pivot order, and kept while the set meets the target (``added_back``
+    counts them). With ``atom_of_function`` a selection that would leave a non-exempt atom
+    without functions raises UsageError. Shell ties go to the lower shell index.
+    ``pivoted``: a `shifted_pivoted_cholesky` of S made already (by the spectrum step).
     """
     target = check_target(target)
     goal = target * (1.0 - TARGET_SLACK)
@@ -209,15 +210,16 @@ def select_for_target(
     if shells is not None:
         _shell_index_lists(shells, n)
     search = search if search != "auto" else "shifted" if shells is not None else SHIFT_PIVOTED
-    found = _find_prefix(S, goal, shells, search, refine)
-
+    pivoted = pivoted if search == SHIFT_PIVOTED and _within_slack(pivoted, target) else None
+    level = goal if pivoted is None else pivoted.tol  # the shift of the factors found
+    found = _find_prefix(S, level, shells, search, refine, pivoted)
     notes: list[str] = []
     order, blocks = found.res.pivots[: found.k].copy(), list[int]()
     factor = found.prefix_factor if found.maximal else None
     if refine and 0 < found.k < n and not found.maximal:
         order, blocks, factor = _offer_back(S, found, order, shells, goal)
     if mode != "none" and not (found.checked and not blocks):
-        order = _verified(S, found, order, blocks, factor, goal, mode, notes)
+        order = _verified(S, found, order, blocks, factor, level, goal, mode, notes)
     if order.size == 0:
         raise UsageError(f"no kept set reaches target {target:g}")
     kept = np.sort(order)
@@ -226,7 +228,12 @@ def select_for_target(
     chosen = _selection(found, order, kept, n, target, search, shells, notes)
     if factor is None or factor.shape[0] < order.size:
         return chosen
-    return dataclasses.replace(chosen, factor=factor[: order.size, : order.size])
+    return dataclasses.replace(chosen, factor=factor[: order.size, : order.size], factor_shift=level)
+
+
+def _within_slack(pivoted: CholeskyResult | None, target: float) -> bool:
+    """Whether ``pivoted`` was made at a shift in [target * (1 - TARGET_SLACK), target]."""
+    return pivoted is not None and target * (1.0 - TARGET_SLACK) <= pivoted.tol <= target
 
 
 @dataclass
@@ -250,8 +257,11 @@ class _Prefix:
     maximal: bool = False  # no unit left out could be added alone: no add-back pass
 
 
-def _find_prefix(S: np.ndarray, goal: float, shells: np.ndarray | None, search: str, refine: bool) -> _Prefix:
-    """The longest prefix of the pivot order at or above ``goal``, found as ``search`` says."""
+def _find_prefix(
+    S: np.ndarray, goal: float, shells: np.ndarray | None, search: str, refine: bool, pivoted: CholeskyResult | None
+) -> _Prefix:
+    """The longest prefix of the pivot order at or above ``goal``, found as ``search`` says
+    (``pivoted``: the "shift-pivoted" factorization at ``goal``, when made already)."""
     if search == "tolerance":
         res, k, facts, eigs, smallest = _search_tolerance(S, goal, shells)
         # every trial already ran eigvalsh on its kept set
@@ -259,8 +269,9 @@ def _find_prefix(S: np.ndarray, goal: float, shells: np.ndarray | None, search: 
     if search == SHIFT_PIVOTED:
         if shells is not None:
             raise ValueError(f"search {SHIFT_PIVOTED!r} selects single functions, not shells")
-        res = shifted_pivoted_cholesky(S, goal)
-        factor, res = res.factor, dataclasses.replace(res, factor=None)
+        if pivoted is None or pivoted.factor is None:
+            pivoted = shifted_pivoted_cholesky(S, goal)
+        factor, res = pivoted.factor, dataclasses.replace(pivoted, factor=None)
         return _Prefix(res, res.rank, np.arange(res.rank + 1), 1, 0, prefix_factor=factor, maximal=True)
     if search == "shifted":
         return _search_shifted(S, goal, shells, refine)
@@ -335,6 +346,7 @@ def _verified(
     order: np.ndarray,
     blocks: list[int],
     factor: np.ndarray | None,
+    level: float,
     goal: float,
     mode: bool | str,
     notes: list[str],
@@ -343,15 +355,15 @@ def _verified(
     above ``goal``: first by the groups added back (``blocks``, popped), then along the
     pivot order. Updates ``found`` (``smallest``, ``k``, ``eigen_checks``) and ``notes``.
 
-    ``factor`` is the factor of ``S[order, order] - goal*I`` from the add-back pass, if any.
+    ``factor`` is the factor of ``S[order, order] - level*I`` from the search, if any.
     """
     pivoted = found.res.factor
     while order.size:
         if mode == "lanczos" and factor is not None:
-            # order is a prefix of the factor's order. The factor of S[order, order] - goal*I
-            # exists, so this value is at least goal: here it is reported, not checked
-            # (only the dense eigvalsh check can shorten the set).
-            found.smallest = goal + smallest_from_factor(factor[: order.size, : order.size])
+            # order is a prefix of the factor's order. The factor of S[order, order] - level*I
+            # exists, so this value is at least level >= goal: here it is reported, not
+            # checked (only the dense eigvalsh check can shorten the set).
+            found.smallest = level + smallest_from_factor(factor[: order.size, : order.size])
         elif mode == "lanczos" and pivoted is not None:
             found.smallest = smallest_from_factor(pivoted[: found.k, : found.k])
         else:
@@ -424,12 +436,13 @@ def shells_from_functions(
         return None
     order, L = _seed(functions, shells, bad, groups, seed)
     k = order.size
-    order, blocks, factor = add_back(S, order, [groups[s] for s in sorted(bad)], goal, L)
+    level = functions.factor_shift if L is not None else goal  # the shift of L and of its extension
+    order, blocks, factor = add_back(S, order, [groups[s] for s in sorted(bad)], level, L)
     smallest, eigs = np.nan, 0
     notes: list[str] = []
     while mode != "none":
         if mode == "lanczos" and factor is not None:
-            smallest = goal + smallest_from_factor(factor[: order.size, : order.size])
+            smallest = level + smallest_from_factor(factor[: order.size, : order.size])
         else:
             smallest = _smallest(S, order)
         eigs += 1

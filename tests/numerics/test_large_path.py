@@ -134,7 +134,7 @@ def test_cholesky_decision_when_nothing_below_level():
     assert w[0] > 1e-5
     info: dict = {}
     spec = large_spectrum(S, 1e-5, info=info)
-    assert "t_ldl_tau" not in info  # the Cholesky attempt of S - tau I succeeded
+    assert "t_inertia_tau" not in info  # the Cholesky attempt of S - tau I succeeded
     assert all(spec.counts_below[level_key(t)] == 0 for t in COUNT_LEVELS if t <= 1e-5)
     check_counts(spec, w)
     assert spec.counts_below["1e-04"] == 2  # computed values reach past 1e-4
@@ -341,3 +341,39 @@ def test_unconverged_iteration_is_refused_not_reported():
     with pytest.raises(ResourceError, match="did not converge"):
         large_spectrum(S, vector_level=1e-5, maxiter=1, tol=1e-300)
     assert np.array_equal(S, S0)  # S restored all the same
+
+
+@pytest.mark.parametrize("distance", [0.001, 0.05, 0.2])
+def test_count_by_pivoted_inertia_and_the_factor_handed_on(distance):
+    # Reference: numpy.linalg.eigvalsh for the count below the level (Haynsworth inertia
+    # additivity: the positive pivots' block plus the Schur complement of the rest), and an
+    # independent shift-pivoted factorization of a copy of S for the factor handed on.
+    from auditor.numerics.cholesky import FactorHandoff, shifted_pivoted_cholesky
+
+    S = trimer_with_ghost(distance)
+    w = np.linalg.eigvalsh(S)
+    handoff = FactorHandoff()
+    info: dict = {}
+    spec = large_spectrum(S.copy(), 1e-5, handoff=handoff, info=info)
+    assert "t_inertia_tau" in info  # the Cholesky attempt failed: the pivoted count ran
+    assert spec.counts_below["1e-05"] == int(np.searchsorted(w, 1e-5)) > 0
+    got = handoff.take()
+    assert handoff.take() is None  # taken once
+    ref = shifted_pivoted_cholesky(S, 1e-5)
+    assert got is not None and got.tol == 1e-5
+    assert np.array_equal(got.pivots, ref.pivots) and np.array_equal(got.dropped, ref.dropped)
+    p = got.pivots
+    assert np.allclose(got.factor @ got.factor.T, S[np.ix_(p, p)] - 1e-5 * np.eye(p.size), atol=1e-12)
+
+
+def test_remedies_reuse_the_spectrum_factor_and_agree(tmp_path):
+    # The function subset from the large path's handed-on factorization equals the one the
+    # remedies find on their own (dense path), set for set (reference: the dense path).
+    import auditor
+
+    xyz = _write_trimer_with_ghost(tmp_path / "g.xyz", 0.05)
+    runs = [auditor.audit(xyz, "aug-cc-pvdz", ghost="10", spectrum_method=m) for m in ("full", "large")]
+    subsets = [next(a for a in r.remedies.alternatives if a.kind == "cholesky_functions") for r in runs]
+    assert subsets[0].removed == subsets[1].removed > 0
+    assert abs(subsets[0].smallest_after - subsets[1].smallest_after) <= 1e-9 * subsets[0].smallest_after
+    assert subsets[1].tolerance == 1e-5 and subsets[0].tolerance == 1e-5 * (1 - 1e-12)
