@@ -22,10 +22,11 @@ from dataclasses import replace
 from typing import Any
 
 import numpy as np
+import scipy.linalg
 
 from ..base.errors import ResourceError
 from .cholesky import FactorHandoff, pstrf_until_nonpositive, shifted_result
-from .inplace import _cholesky, _fortran_view, _ldl_negative_count, _Triangles
+from .inplace import _cholesky, _fortran_view, _ldl_negative_count, _solve_transposed_leading, _Triangles
 from .krylov import _largest_eigenvalue, _smallest_eigenpairs
 from .memory import DEFAULT_MAX_VECTORS
 from .spectrum import (
@@ -63,22 +64,18 @@ def large_spectrum(
 
     S is used as workspace and restored (symmetric, from its mirror triangle) before
     returning. Computes the max(m, min_vectors) smallest eigenpairs (and a few more, to see
-    where the degenerate group at the cut ends), where m is the
-    exact number below ``vector_level``, capped at ``max_vectors``. A count at a decade is
-    reported only when established (Cholesky success, LDL^T inertia, or all eigenvalues
-    below that decade computed); otherwise None. ``exact_counts`` adds one LDL^T per
-    missing decade. ``tol`` bounds the relative residual of the Ritz pairs of
+    where the degenerate group at the cut ends), m the exact number below ``vector_level``
+    capped at ``max_vectors``. A count at a decade is reported only when established
+    (Cholesky success, inertia, or all eigenvalues below it computed), else None;
+    ``exact_counts`` adds one LDL^T per missing decade. ``tol`` bounds the relative residual of the Ritz pairs of
     (S - sigma I)^-1 (eigenvalue errors are about its square); ``info`` receives
     timings and iteration counts; ``stage`` is told the name of each step as it starts;
     ``handoff`` receives the pivoted factorization of S - vector_level*I when one is made.
     """
-
     info = {} if info is None else info
     stage = stage or _quiet
     n = S.shape[0]
-    A = _fortran_view(S)
-    tau = float(vector_level)
-    t0 = time.perf_counter()
+    A, tau, t0 = _fortran_view(S), float(vector_level), time.perf_counter()
     bound = gershgorin_lower_bound(S)
     stage("largest eigenvalue (Lanczos)")
     largest = _largest_eigenvalue(A)
@@ -86,14 +83,18 @@ def large_spectrum(
 
     tri = _Triangles(A)
     try:
-        below_tau, factored_at_tau = _count_below(tri, tau, info, stage, handoff)
+        below_tau, factored_at_tau, start = _count_below(tri, tau, info, stage, handoff)
         if not factored_at_tau:
             stage("Cholesky factor of S below its spectrum")
         factored_shift = _positive_definite_shift(tri, tau if factored_at_tau else None, largest, info)
         k = min(n, max(min(below_tau, max_vectors), min_vectors))
         # a few pairs past k show where the degenerate group at the cut ends
         stage(f"{min(n, k + GROUP_MARGIN)} smallest eigenpairs (block Krylov)")
-        values, vectors = _sorted_eigenpairs(tri, factored_shift, min(n, k + GROUP_MARGIN), tol, maxiter, seed, info)
+        want = min(n, k + GROUP_MARGIN)
+        values, vectors = _sorted_eigenpairs(tri, factored_shift, want, tol, maxiter, seed, info, start)
+        if start is not None and np.searchsorted(values, tau) < min(below_tau, want):
+            # fewer Ritz values below tau than the inertia counts: start again at random
+            values, vectors = _sorted_eigenpairs(tri, factored_shift, want, tol, maxiter, seed, info, None)
         info["ritz_below_vector_level"] = int(np.searchsorted(values, tau))
         counts = _established_counts(values, tau, below_tau, factored_shift, all_below_tau=k >= below_tau)
         if exact_counts:
@@ -145,8 +146,9 @@ def _quiet(_: str) -> None:
 
 def _count_below(
     tri: _Triangles, tau: float, info: dict[str, Any], stage: Callable[[str], None], handoff: FactorHandoff | None
-) -> tuple[int, bool]:
-    """Number of eigenvalues of S below ``tau``, and whether S - tau*I was factored.
+) -> tuple[int, bool, np.ndarray | None]:
+    """Number of eigenvalues of S below ``tau``, whether S - tau*I was factored, and Ritz
+    vectors for the Krylov start block when the count made them.
 
     A Cholesky attempt of S - tau*I decides whether there is any; when it fails, a pivoted
     factorization counts them (`_pivoted_count`). When it succeeds (the count is 0), the
@@ -156,19 +158,19 @@ def _count_below(
     stage(f"Cholesky attempt of S - {tau:.0e} I")
     factored = _cholesky(tri.load(tau)) == 0
     info["t_cholesky_tau"] = time.perf_counter() - t1
-    if factored:
-        below_tau = 0
-    else:
+    below_tau, start = 0, None
+    if not factored:
         t1 = time.perf_counter()
         stage(f"pivoted Cholesky inertia of S - {tau:.0e} I")
-        below_tau = _pivoted_count(tri, tau, handoff)
+        below_tau, start = _pivoted_count(tri, tau, handoff)
         info["t_inertia_tau"] = time.perf_counter() - t1
     info["below_vector_level"] = below_tau
-    return below_tau, factored
+    return below_tau, factored, start
 
 
-def _pivoted_count(tri: _Triangles, tau: float, handoff: FactorHandoff | None) -> int:
-    """Number of eigenvalues of S below ``tau`` from one pivoted Cholesky of S - tau*I.
+def _pivoted_count(tri: _Triangles, tau: float, handoff: FactorHandoff | None) -> tuple[int, np.ndarray | None]:
+    """Number of eigenvalues of S below ``tau`` from one pivoted Cholesky of S - tau*I, and
+    Ritz vectors of S for a start block (`_ritz_start`; None when no function is left).
 
     It stops at its first pivot that is not positive, so its leading block is positive
     definite and, by Haynsworth's inertia additivity, S - tau*I has as many negative
@@ -185,13 +187,32 @@ def _pivoted_count(tri: _Triangles, tau: float, handoff: FactorHandoff | None) -
         handoff.give(shifted_result(order, factor, n, tau))
     rest = order[rank:]
     if rest.size == 0:
-        return 0
+        return 0, None
     # S[rest, rest] from the strict upper triangle (intact) and the saved diagonal
     C = A[np.minimum.outer(rest, rest), np.maximum.outer(rest, rest)]
     C[np.diag_indices_from(C)] = tri.diag[rest] - tau
     L21 = A[rank:, :rank]
     C -= L21 @ L21.T
-    return _ldl_negative_count(np.asfortranarray(C))
+    return _ldl_negative_count(np.asfortranarray(C)), _ritz_start(A, order, rank, C)
+
+
+def _ritz_start(A: np.ndarray, order: np.ndarray, rank: int, C: np.ndarray) -> np.ndarray:
+    """Ritz vectors of S on the span of Z = P [-L11^-T L21^T; I], lowest first.
+
+    Z is the part of each function left that the kept ones do not reach in the metric of
+    S - tau*I, so Z^T (S - tau*I) Z = C (the Schur complement) and the near-null space of S
+    lies close to span(Z): a start block that saves the Krylov iteration a restart.
+    """
+    n, m = A.shape[0], order.size - rank
+    X = np.asfortranarray(A[rank:, :rank].T)
+    _solve_transposed_leading(A, rank, X)  # X = L11^-T L21^T
+    gram = X.T @ X
+    gram[np.diag_indices_from(gram)] += 1.0  # Z^T Z
+    _, Y = scipy.linalg.eigh(C, gram)
+    Z = np.zeros((n, m))
+    Z[order[:rank]] = -X
+    Z[order[rank:], np.arange(m)] = 1.0
+    return Z @ Y
 
 
 def _positive_definite_shift(tri: _Triangles, factored: float | None, largest: float, info: dict[str, Any]) -> float:
@@ -208,14 +229,22 @@ def _positive_definite_shift(tri: _Triangles, factored: float | None, largest: f
 
 
 def _sorted_eigenpairs(
-    tri: _Triangles, shift: float, k: int, tol: float, maxiter: int, seed: int, info: dict[str, Any]
+    tri: _Triangles,
+    shift: float,
+    k: int,
+    tol: float,
+    maxiter: int,
+    seed: int,
+    info: dict[str, Any],
+    start: np.ndarray | None,
 ) -> tuple[np.ndarray, np.ndarray]:
-    """The k smallest eigenpairs, ascending, from the factor of S - shift*I in ``tri``.
+    """The k smallest eigenpairs, ascending, from the factor of S - shift*I in ``tri``
+    (``start``: approximate eigenvectors for the start block, or None).
 
     Raises ResourceError when the Ritz pairs did not converge to ``tol``.
     """
     t1 = time.perf_counter()
-    values, vectors = _smallest_eigenpairs(tri.A, shift, k, tol, maxiter, seed, info)
+    values, vectors = _smallest_eigenpairs(tri.A, shift, k, tol, maxiter, seed, info, start)
     info["t_eigenpairs"] = time.perf_counter() - t1
     if not info["residual"] <= tol:  # unconverged Ritz pairs would be reported as eigenpairs
         n = tri.A.shape[0]

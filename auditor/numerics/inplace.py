@@ -171,3 +171,17 @@ class _Triangles:
         if self.dirty:
             _restore_lower(self.A, self.diag, 0.0)
             self.dirty = False
+
+
+def _solve_transposed_leading(A: np.ndarray, r: int, B: np.ndarray) -> None:
+    """B = L^-T B in place, L the lower triangle of the leading r x r block of the
+    Fortran-ordered A (BLAS dtrsm on A's own memory: no copy of the block)."""
+    if not (A.flags.f_contiguous and B.flags.f_contiguous and B.shape[0] == r):
+        raise ValueError("needs Fortran-ordered arrays and r rows of B")
+    c = ctypes
+    ref = c.byref
+    L, T, N = c.c_char(b"L"), c.c_char(b"T"), c.c_char(b"N")
+    m, cols, lda, ldb = c.c_int(r), c.c_int(B.shape[1]), c.c_int(A.shape[0]), c.c_int(max(1, r))
+    one = c.c_double(1.0)
+    pa, pb = c.c_void_p(A.ctypes.data), c.c_void_p(B.ctypes.data)
+    _routine("dtrsm")(ref(L), ref(L), ref(T), ref(N), ref(m), ref(cols), ref(one), pa, ref(lda), pb, ref(ldb))

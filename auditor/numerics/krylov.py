@@ -57,9 +57,20 @@ def _times_in_place(X: np.ndarray, U: np.ndarray, rows: int = 4096) -> None:
 
 
 def _smallest_eigenpairs(
-    L: np.ndarray, shift: float, k: int, tol: float, maxiter: int, seed: int, info: dict
+    L: np.ndarray,
+    shift: float,
+    k: int,
+    tol: float,
+    maxiter: int,
+    seed: int,
+    info: dict,
+    start: np.ndarray | None = None,
 ) -> tuple[np.ndarray, np.ndarray]:
     """k smallest eigenpairs of S from the Cholesky factor L of S - shift*I (lower triangle).
+
+    ``start`` (optional) holds approximate eigenvectors, best first, for the start block
+    (the rest of it random; a little random in every column, so that no direction is
+    missing from it).
 
     Restarted block Krylov iteration on A = (S - shift*I)^-1: from a block X of p > k
     columns the basis Q = [X, AX, A^2 X, ...] (``KRYLOV_DEPTH`` blocks, orthonormalized
@@ -79,8 +90,7 @@ def _smallest_eigenpairs(
     Q = np.empty((n, m), order="F")  # orthonormal Krylov basis
     W = np.empty((n, p), order="F")  # A applied to the newest block
     H = np.zeros((m, m), order="F")  # Q^T A Q, upper block triangle as computed
-    Q[:, :p] = rng.standard_normal((n, p))
-    _orthonormalize(Q[:, :p])
+    _start_block(Q[:, :p], rng, start)
     worst = np.inf
     solves = 0
     for it in range(1, maxiter + 1):
@@ -104,6 +114,17 @@ def _smallest_eigenpairs(
     info["residual"] = worst
     values = 1.0 / theta[:k] + shift
     return values, vectors
+
+
+def _start_block(X: np.ndarray, rng: np.random.Generator, start: np.ndarray | None) -> None:
+    """Fill the block X with orthonormal start vectors: the columns of ``start`` (if any) with
+    a little random added, random columns after them."""
+    n, p = X.shape
+    X[...] = rng.standard_normal((n, p))
+    if start is not None:
+        c = min(p, start.shape[1])
+        X[:, :c] = start[:, :c] / np.linalg.norm(start[:, :c], axis=0) + (1e-3 / np.sqrt(n)) * X[:, :c]
+    _orthonormalize(X)
 
 
 def _build_krylov_basis(L: np.ndarray, Q: np.ndarray, W: np.ndarray, H: np.ndarray, p: int, depth: int) -> int:

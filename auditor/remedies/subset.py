@@ -190,8 +190,8 @@ def select_for_target(
 
     "shifted" (a pivoted factorization at tol=target, then one Cholesky of S[p, p] - target*I
     whose first failing leading minor ends the prefix), "prefix" (bisection over its length)
-    or "tolerance" (bisection on log10(tol)). ``verify`` ("eigvalsh" or True, "lanczos", "none" or False) checks the kept set's
-    smallest eigenvalue, with ``numpy.linalg.eigvalsh`` on the kept block or with
+    or "tolerance" (bisection on log10(tol)). ``verify`` ("eigvalsh" or True, "lanczos",
+    "none" or False) checks the kept set's smallest eigenvalue, with ``numpy.linalg.eigvalsh`` on the kept block or with
     `smallest_from_factor` on its Cholesky factor, and shortens the set if rounding let
     it slip below target. With ``refine`` the units left out of the prefix are offered back
     one by one, in pivot order, and kept while the set meets the target (``added_back``

@@ -377,3 +377,17 @@ def test_remedies_reuse_the_spectrum_factor_and_agree(tmp_path):
     assert subsets[0].removed == subsets[1].removed > 0
     assert abs(subsets[0].smallest_after - subsets[1].smallest_after) <= 1e-9 * subsets[0].smallest_after
     assert subsets[1].tolerance == 1e-5 and subsets[0].tolerance == 1e-5 * (1 - 1e-12)
+
+
+def test_a_start_block_that_misses_an_eigenvector_still_finds_it():
+    # The Ritz start block from the pivoted count is a guess; a start exactly orthogonal to
+    # the smallest eigenvector must not lose it (the little random added to every start
+    # column prevents that). A diagonal matrix keeps the orthogonality exact through every
+    # solve; its eigenvalues are its diagonal (reference: the matrix itself).
+    from auditor.numerics.krylov import _smallest_eigenpairs
+
+    lam = np.concatenate([[3e-9, 4e-8, 2e-7, 7e-7, 2e-6, 3e-6], np.logspace(-3.5, 0.7, 394)])
+    L = np.asfortranarray(np.diag(np.sqrt(lam)))
+    start = np.eye(lam.size)[:, 1:40]  # the eigenvectors after the smallest one
+    values, _ = _smallest_eigenpairs(L, 0.0, 6, 1e-5, 200, 0, {}, start=start)
+    assert np.allclose(values, lam[:6], rtol=1e-8, atol=0.0)
