@@ -13,6 +13,7 @@ import scipy.sparse.linalg
 from scipy.linalg import lapack
 
 from ..base.errors import InputError, UsageError
+from .inplace import column_major, solve_lower_view
 
 #: Largest deviation of a diagonal element from 1 that is accepted as "unit diagonal".
 UNIT_DIAGONAL_SLACK = 1e-8
@@ -396,18 +397,24 @@ def smallest_from_factor(factor: np.ndarray, rtol: float = 1e-10) -> float:
         return np.inf
     if k <= 200:
         return float(np.linalg.eigvalsh(factor @ factor.T)[0])
-    # LAPACK wants a Fortran-ordered triangle: the factor itself (lower) when it is one,
-    # its transpose (upper) when it is C-ordered, else one copy (never one per solve).
-    if factor.flags.f_contiguous:
-        T, lower = factor, True
-    elif factor.flags.c_contiguous:
-        T, lower = factor.T, False
-    else:
-        T, lower = np.asfortranarray(factor), True
+    # BLAS reads a column-major factor (or a leading block of one) in place; a C-ordered one
+    # is its transpose, an upper triangle; anything else is copied once (never per solve)
+    if not column_major(factor) and not factor.flags.c_contiguous:
+        factor = np.asfortranarray(factor)
+    if column_major(factor):
 
-    def apply(v):  # (L L^T)^-1 v
-        y = scipy.linalg.solve_triangular(T, v, lower=lower, trans="N" if lower else "T", check_finite=False)
-        return scipy.linalg.solve_triangular(T, y, lower=lower, trans="T" if lower else "N", check_finite=False)
+        def apply(v):  # (L L^T)^-1 v
+            y = np.array(v, dtype=np.float64, order="F").reshape(k, 1)
+            solve_lower_view(factor, y)
+            solve_lower_view(factor, y, transpose=True)
+            return y[:, 0]
+
+    else:
+        T = factor.T
+
+        def apply(v):
+            y = scipy.linalg.solve_triangular(T, v, lower=False, trans="T", check_finite=False)
+            return scipy.linalg.solve_triangular(T, y, lower=False, trans="N", check_finite=False)
 
     op = scipy.sparse.linalg.LinearOperator((k, k), matvec=apply, dtype=np.float64)
     top = scipy.sparse.linalg.eigsh(op, k=1, which="LA", tol=rtol, v0=np.ones(k), return_eigenvectors=False)[0]
@@ -450,31 +457,44 @@ def smallest_eigenvalue(S: np.ndarray, idx: np.ndarray) -> float:
     return smallest_from_factor(factor)
 
 
-def delete_from_factor(L: np.ndarray, drop: np.ndarray) -> np.ndarray:
+def delete_from_factor(L: np.ndarray, drop: np.ndarray, room: int = 0) -> np.ndarray:
     """A lower triangular F with F F^T = A[keep, keep], from the lower Cholesky factor L of
     A = L L^T, where ``keep`` is every position not in ``drop`` (F's diagonal signs are
     arbitrary, which no use of a factor here minds).
 
-    With P the kept and D the dropped positions (ascending), A[P, P] = L[P, P] L[P, P]^T +
-    L[P, D] L[P, D]^T with L[P, P] lower triangular, so F^T is the R of the QR
-    factorization of the triangular-pentagonal matrix [L[P, P]^T; L[P, D]^T] (LAPACK
-    dtpqrt): about 2 m^2 |D| flops against m^3 / 3 for a new factorization.
+    Only the rows from the first dropped position on change. With P the kept positions
+    after it and D the dropped ones, A[P, P] = L[P, :] L[P, :]^T less the dropped columns'
+    part, so F's trailing block is the R^T of the QR factorization of the
+    triangular-pentagonal [L[P, P]^T; L[P, D]^T] (LAPACK dtpqrt): about 2 |P|^2 |D| flops
+    against m^3 / 3 for a new factorization. F is the leading block of a new zeroed
+    column-major array with ``room`` more rows and columns, for `add_back` to grow in place.
     """
     drop = np.unique(np.asarray(drop, dtype=np.int64))
     keep = np.setdiff1d(np.arange(L.shape[0]), drop)
-    upper = L[np.ix_(keep, keep)].T  # Fortran-ordered, as LAPACK works in place
-    if drop.size == 0 or keep.size == 0:
-        return upper.T
-    extra = np.asfortranarray(L[np.ix_(keep, drop)].T)
+    m = keep.size
+    F = np.zeros((m + room, m + room), order="F")[:m, :m]
+    j0 = int(drop[0]) if drop.size else m  # keep[:j0] is 0..j0-1: those rows stay as they are
+    F[:j0, :j0] = L[:j0, :j0]
+    if j0 == m:
+        return F
+    tail = keep[j0:]
+    F[j0:, :j0] = L[tail, :j0]
+    upper = L[np.ix_(tail, tail)].T  # Fortran-ordered, as LAPACK works in place
+    extra = np.asfortranarray(L[np.ix_(tail, drop)].T)
     upper, _, _, info = lapack.dtpqrt(0, min(32, drop.size), upper, extra, overwrite_a=1, overwrite_b=1)
     if info != 0:
         raise ValueError(f"dtpqrt failed (info {info})")
-    return upper.T
+    F[j0:, j0:] = upper.T
+    return F
 
 
-def deletion_is_cheaper(m: int, n_drop: int) -> bool:
-    """Whether `delete_from_factor` costs fewer flops than factorizing the kept block anew."""
-    return 2.0 * m * m * n_drop < (m - n_drop) ** 3 / 3.0
+def deletion_is_cheaper(m: int, drop: np.ndarray) -> bool:
+    """Whether `delete_from_factor` of the positions ``drop`` from a factor of order m costs
+    fewer flops than factorizing the kept block anew."""
+    if drop.size == 0:
+        return True
+    tail = m - int(np.min(drop))
+    return 2.0 * tail * tail * drop.size < (m - drop.size) ** 3 / 3.0
 
 
 class FactorHandoff:

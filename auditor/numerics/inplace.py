@@ -59,6 +59,7 @@ def _routine(name: str):
             dsyrk=_fortran_routine(cython_blas, "dsyrk", 10),
             dtrsm=_fortran_routine(cython_blas, "dtrsm", 11),
             dpotrf=_fortran_routine(cython_lapack, "dpotrf", 5),
+            dtrsv=_fortran_routine(cython_blas, "dtrsv", 8),
         )
     return _ROUTINES[name]
 
@@ -175,13 +176,33 @@ class _Triangles:
 
 def _solve_transposed_leading(A: np.ndarray, r: int, B: np.ndarray) -> None:
     """B = L^-T B in place, L the lower triangle of the leading r x r block of the
-    Fortran-ordered A (BLAS dtrsm on A's own memory: no copy of the block)."""
-    if not (A.flags.f_contiguous and B.flags.f_contiguous and B.shape[0] == r):
-        raise ValueError("needs Fortran-ordered arrays and r rows of B")
+    Fortran-ordered A (no copy of the block)."""
+    solve_lower_view(A[:r, :r], B, transpose=True)
+
+
+def column_major(F: np.ndarray) -> bool:
+    """Whether F is a column-major float64 matrix or a leading block of one (unit row stride)."""
+    return F.dtype == np.float64 and F.ndim == 2 and F.strides[0] == 8 and F.strides[1] >= 8 * max(1, F.shape[0])
+
+
+def solve_lower_view(F: np.ndarray, B: np.ndarray, transpose: bool = False) -> None:
+    """B = F^-1 B (or F^-T B) in place for the lower triangle of F (BLAS dtrsm).
+
+    F may be a leading block of a larger column-major array (it is read in place, with
+    that array's leading dimension: no copy); B must be Fortran-ordered with F's rows.
+    """
+    r = F.shape[0]
+    if not (column_major(F) and F.shape[1] == r and B.flags.f_contiguous and B.shape[0] == r):
+        raise ValueError("needs a column-major square F and a Fortran-ordered B with its rows")
+    if r == 0 or B.size == 0:
+        return
     c = ctypes
     ref = c.byref
-    L, T, N = c.c_char(b"L"), c.c_char(b"T"), c.c_char(b"N")
-    m, cols, lda, ldb = c.c_int(r), c.c_int(B.shape[1]), c.c_int(A.shape[0]), c.c_int(max(1, r))
+    L, op, N = c.c_char(b"L"), c.c_char(b"T" if transpose else b"N"), c.c_char(b"N")
+    m, cols, lda, ldb = c.c_int(r), c.c_int(B.shape[1]), c.c_int(F.strides[1] // 8), c.c_int(r)
+    pa, pb = c.c_void_p(F.ctypes.data), c.c_void_p(B.ctypes.data)
+    if B.shape[1] == 1:  # one vector: the level-2 routine is the faster one
+        _routine("dtrsv")(ref(L), ref(op), ref(N), ref(m), pa, ref(lda), pb, ref(c.c_int(1)))
+        return
     one = c.c_double(1.0)
-    pa, pb = c.c_void_p(A.ctypes.data), c.c_void_p(B.ctypes.data)
-    _routine("dtrsm")(ref(L), ref(L), ref(T), ref(N), ref(m), ref(cols), ref(one), pa, ref(lda), pb, ref(ldb))
+    _routine("dtrsm")(ref(L), ref(L), ref(op), ref(N), ref(m), ref(cols), ref(one), pa, ref(lda), pb, ref(ldb))

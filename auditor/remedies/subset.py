@@ -44,6 +44,7 @@ from ..numerics.cholesky import (
     shifted_pivoted_cholesky,
     smallest_from_factor,
 )
+from ..numerics.inplace import column_major, solve_lower_view
 
 #: Relative rounding allowance at the target: lambda_min >= target * (1 - slack) passes.
 #: Without it a target of exactly 1 would fail on diagonals of 1 - 1e-16.
@@ -437,7 +438,7 @@ def shells_from_functions(
     order, L = _seed(functions, shells, bad, groups, seed)
     k = order.size
     level = functions.factor_shift if L is not None else goal  # the shift of L and of its extension
-    order, blocks, factor = add_back(S, order, [groups[s] for s in sorted(bad)], level, L)
+    order, blocks, factor = add_back(S, order, [groups[s] for s in sorted(bad)], level, L, grow=L is not None)
     smallest, eigs = np.nan, 0
     notes: list[str] = []
     while mode != "none":
@@ -476,11 +477,13 @@ def _seed(
     functions: Selection, shells: np.ndarray, bad: set[int], groups: list[np.ndarray], seed: list[int]
 ) -> tuple[np.ndarray, np.ndarray | None]:
     """The functions of the clean shells ``seed``, and the factor of their shifted block
-    when the function-level factor gives it more cheaply than a new factorization."""
+    when the function-level factor gives it more cheaply than a new factorization (with room
+    for every function of the ``bad`` shells, for `add_back` to grow it in place)."""
     if functions.factor is not None:
         at_bad = np.flatnonzero(np.isin(shells[functions.order], sorted(bad)))
-        if deletion_is_cheaper(functions.order.size, at_bad.size):
-            return np.delete(functions.order, at_bad), delete_from_factor(functions.factor, at_bad)
+        if deletion_is_cheaper(functions.order.size, at_bad):
+            room = sum(groups[s].size for s in bad)
+            return np.delete(functions.order, at_bad), delete_from_factor(functions.factor, at_bad, room)
     return np.concatenate([groups[s] for s in seed]), None
 
 
@@ -498,13 +501,20 @@ def _leftover_groups(res: CholeskyResult, k: int, shells: np.ndarray | None, n: 
 
 
 def add_back(
-    S: np.ndarray, order: np.ndarray, groups: list[np.ndarray], goal: float, L: np.ndarray | None = None
+    S: np.ndarray,
+    order: np.ndarray,
+    groups: list[np.ndarray],
+    goal: float,
+    L: np.ndarray | None = None,
+    grow: bool = False,
 ) -> tuple[np.ndarray, list[int], np.ndarray | None]:
     """Greedily append each group (in turn) while ``S[kept, kept] - goal*I`` stays positive
     definite, by extending its Cholesky factor (``L``, lower, when the caller has it). A
     group that fails once can never fit later (adding functions only lowers the smallest
     eigenvalue), so one pass leaves no dropped group that could be added. Returns (order,
-    sizes of the added groups, factor of ``S[order, order] - goal*I``)."""
+    sizes of the added groups, factor of ``S[order, order] - goal*I``). With ``grow``, L is
+    the leading block of a zeroed column-major array of the caller's with room for every
+    group (`delete_from_factor`), and the factor is written into it."""
     if not groups:
         return order, [], L
     A = None
@@ -518,7 +528,7 @@ def add_back(
     cand = np.concatenate(groups)
     starts = np.cumsum([0] + [g.size for g in groups])
     # Rows of the growing factor for every candidate column, block by block.
-    W = [scipy.linalg.solve_triangular(L, S[np.ix_(order, cand)], lower=True, check_finite=False)]
+    W = [_solve_lower(L, S[np.ix_(order, cand)])]
     kept = [order]
     sizes: list[int] = []
     tails: list[tuple[np.ndarray, np.ndarray]] = []
@@ -534,9 +544,12 @@ def add_back(
     order = np.concatenate(kept)
     if not tails:
         return order, sizes, L
-    factor = np.zeros((order.size, order.size))
     k = L.shape[0]
-    factor[:k, :k] = L
+    if grow and L.base is not None and L.base.shape[0] >= order.size:
+        factor = L.base[: order.size, : order.size]
+    else:
+        factor = np.zeros((order.size, order.size))
+        factor[:k, :k] = L
     del L, A  # the same memory (L is A's transpose, factored in place)
     for Wg, Cc in tails:
         d = Cc.shape[0]
@@ -544,6 +557,16 @@ def add_back(
         factor[k : k + d, k : k + d] = Cc
         k += d
     return order, sizes, factor
+
+
+def _solve_lower(L: np.ndarray, B: np.ndarray) -> np.ndarray:
+    """L^-1 B for a lower factor L, read in place when it is column-major (or a leading block
+    of such an array), so that no copy of it is made."""
+    if column_major(L):
+        X = np.asfortranarray(B)
+        solve_lower_view(L, X)
+        return X
+    return scipy.linalg.solve_triangular(L, B, lower=True, check_finite=False)
 
 
 def extend_rows(

@@ -388,6 +388,30 @@ def test_factor_after_deleting_rows_and_columns(drop):
     assert np.allclose(np.abs(F), np.abs(ref), atol=1e-12)
 
 
+def test_a_deleted_factor_grows_in_place_and_is_read_in_place():
+    # Reference: numpy.linalg.eigvalsh and scipy.linalg.cholesky of the kept blocks. The
+    # deleted factor is the leading block of a larger zeroed array; add_back writes its
+    # extension into that array (no new N x N array), and the Lanczos check reads the
+    # leading block in place.
+    import scipy.linalg
+
+    from auditor.remedies.subset import add_back
+
+    n = 260  # above the size at which the check turns from eigvalsh to Lanczos
+    A = random_s_overlap(n, 7) + 0.05 * np.eye(n)
+    L = scipy.linalg.cholesky(A, lower=True)
+    drop = np.array([201, 230, 240, 255])
+    F = delete_from_factor(L, drop, room=drop.size)
+    assert F.base is not None and F.base.shape == (n, n) and not F.base[n - 4 :].any()
+    order = np.setdiff1d(np.arange(n), drop)
+    grown, sizes, G = add_back(A, order, [drop[:2], drop[2:]], 0.0, F, grow=True)
+    assert sizes == [2, 2] and np.shares_memory(G, F)
+    assert np.allclose(G @ G.T, A[np.ix_(grown, grown)], atol=1e-12)
+    copied = add_back(A, order, [drop[:2], drop[2:]], 0.0, np.array(F), grow=False)[2]
+    assert np.allclose(copied, G, atol=1e-14)
+    assert abs(smallest_from_factor(G) - np.linalg.eigvalsh(A)[0]) <= 1e-10 * np.linalg.eigvalsh(A)[0]
+
+
 @pytest.mark.parametrize("target", [1e-3, 1e-4])
 def test_shells_from_the_carried_factor_equal_a_new_factorization(dimer, target):
     # The function-level search hands its factor on; dropping it must change nothing but
