@@ -13,8 +13,9 @@ import numpy as np
 
 from ..base.elements import BOHR_IN_ANGSTROM, ELEMENTS, NOBLE, covalent_radii
 from ..inputs.geometry import Molecule
+from ..numerics.memory import SCAN_BYTES
 from ..numerics.overlap import FunctionTable
-from ..numerics.spectrum import SCAN_BYTES, Spectrum
+from ..numerics.spectrum import Spectrum
 from .causes import Causes
 from .verdict import Policy
 

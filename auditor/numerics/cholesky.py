@@ -14,6 +14,7 @@ from scipy.linalg import lapack
 
 from ..base.errors import InputError, UsageError
 from .inplace import column_major, solve_lower_view
+from .krylov import _smallest_eigenpairs
 
 #: Largest deviation of a diagonal element from 1 that is accepted as "unit diagonal".
 UNIT_DIAGONAL_SLACK = 1e-8
@@ -388,33 +389,29 @@ def _smallest(S: np.ndarray, idx: np.ndarray) -> float:
 def smallest_from_factor(factor: np.ndarray, rtol: float = 1e-10) -> float:
     """Smallest eigenvalue of ``factor @ factor.T`` without forming or diagonalizing it.
 
-    Lanczos for the largest eigenvalue of the inverse, applied by two triangular solves
-    per step. Lanczos approaches that eigenvalue from below, so the result can exceed the
-    true smallest eigenvalue by about ``rtol`` relative.
+    Block Krylov iteration on the inverse (`auditor.numerics.krylov`), applied by triangular
+    solves with a block of vectors (BLAS-3) that read the factor in place, to a residual of
+    sqrt(rtol): its Ritz value approaches the eigenvalue from above, within about ``rtol``
+    relative. Lanczos (ARPACK) on the same operator if that does not converge.
     """
     k = factor.shape[0]
     if k == 0:
         return np.inf
     if k <= 200:
         return float(np.linalg.eigvalsh(factor @ factor.T)[0])
-    # BLAS reads a column-major factor (or a leading block of one) in place; a C-ordered one
-    # is its transpose, an upper triangle; anything else is copied once (never per solve)
-    if not column_major(factor) and not factor.flags.c_contiguous:
+    if not column_major(factor):  # BLAS reads a column-major factor, or a block of one, in place
         factor = np.asfortranarray(factor)
-    if column_major(factor):
+    info: dict = {}
+    tol = float(np.sqrt(rtol))
+    values, _ = _smallest_eigenpairs(factor, 0.0, 1, tol, 10, 0, info)
+    if info["residual"] <= tol:
+        return float(values[0])
 
-        def apply(v):  # (L L^T)^-1 v
-            y = np.array(v, dtype=np.float64, order="F").reshape(k, 1)
-            solve_lower_view(factor, y)
-            solve_lower_view(factor, y, transpose=True)
-            return y[:, 0]
-
-    else:
-        T = factor.T
-
-        def apply(v):
-            y = scipy.linalg.solve_triangular(T, v, lower=False, trans="T", check_finite=False)
-            return scipy.linalg.solve_triangular(T, y, lower=False, trans="N", check_finite=False)
+    def apply(v):  # (L L^T)^-1 v
+        y = np.array(v, dtype=np.float64, order="F").reshape(k, 1)
+        solve_lower_view(factor, y)
+        solve_lower_view(factor, y, transpose=True)
+        return y[:, 0]
 
     op = scipy.sparse.linalg.LinearOperator((k, k), matvec=apply, dtype=np.float64)
     top = scipy.sparse.linalg.eigsh(op, k=1, which="LA", tol=rtol, v0=np.ones(k), return_eigenvectors=False)[0]

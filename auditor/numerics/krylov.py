@@ -7,6 +7,7 @@ import scipy.linalg
 from scipy.linalg import blas, lapack
 from scipy.sparse.linalg import LinearOperator, eigsh
 
+from .inplace import solve_lower_view
 from .memory import KRYLOV_DEPTH, _block_size
 
 
@@ -138,9 +139,8 @@ def _build_krylov_basis(L: np.ndarray, Q: np.ndarray, W: np.ndarray, H: np.ndarr
     for j in range(depth):
         blk = slice(j * p, (j + 1) * p)
         W[...] = Q[:, blk]
-        _, status = lapack.dpotrs(L, W, lower=1, overwrite_b=1)
-        if status != 0:
-            raise RuntimeError(f"dpotrs failed ({status})")
+        solve_lower_view(L, W)  # W = (L L^T)^-1 W, reading L in place (it may be a block of a larger array)
+        solve_lower_view(L, W, transpose=True)
         solves += p
         done = Q[:, : (j + 1) * p]
         H[: (j + 1) * p, blk] = blas.dgemm(1.0, done, W, trans_a=1)

@@ -5,7 +5,10 @@ from __future__ import annotations
 import os
 
 from ..base.errors import ResourceError, UsageError
-from .spectrum import SCAN_BYTES
+
+#: size of the row blocks in which scans over S (bounds, findings) read it: a small,
+#: fixed extra beside S whatever its size
+SCAN_BYTES = 8 << 20
 
 #: method="auto" uses the large path from this many basis functions on. Measured on this
 #: 2-core machine (water clusters in aug-cc-pVTZ, spectrum step only, 2 December 2026):

@@ -7,11 +7,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .cholesky import FactorHandoff
-
-#: size of the row blocks in which scans over S (bounds, findings) read it: a small,
-#: fixed extra beside S whatever its size
-SCAN_BYTES = 8 << 20
-
+from .memory import SCAN_BYTES
 
 #: Decades at which eigenvalues are counted ("1e-03" ... "1e-10").
 COUNT_LEVELS: tuple[float, ...] = tuple(10.0**-k for k in range(3, 11))
