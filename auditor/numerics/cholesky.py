@@ -429,13 +429,64 @@ def verify_mode(n: int) -> str:
 
 def smallest_eigenvalue_cached(S: np.ndarray, idx: np.ndarray, cache: dict | None) -> float:
     """`smallest_eigenvalue`, remembered in ``cache`` (keyed by S's identity and the index
-    set) so that remedies that keep the same functions share one computation."""
+    set) so that remedies that keep the same functions share one computation; through the
+    `SharedCore` of S in the cache (``cache[("core", id(S))]``) when ``idx`` contains it."""
     if cache is None:
         return smallest_eigenvalue(S, idx)
     key = (id(S), np.asarray(idx, dtype=np.int64).tobytes())
     if key not in cache:
-        cache[key] = smallest_eigenvalue(S, idx)
+        shared = cache.get(("core", id(S)))
+        value = None if shared is None else smallest_with_core(np.asarray(idx), shared)
+        cache[key] = smallest_eigenvalue(S, idx) if value is None else value
     return cache[key]
+
+
+@dataclass(frozen=True)
+class SharedCore:
+    """The Cholesky factor of S[core, core] and the Schur complement of every other function,
+    shared by index sets that contain the core: the smallest eigenvalue of S[idx, idx] then
+    costs a factorization of the Schur block of idx's other functions, not of all of idx."""
+
+    core: np.ndarray  # ascending
+    rest: np.ndarray  # every other function, ascending
+    L: np.ndarray  # lower factor of S[core, core], column-major
+    W: np.ndarray  # L^-1 S[core, rest]
+    schur: np.ndarray  # S[rest, rest] - W^T W
+
+
+def shared_core(S: np.ndarray, core: np.ndarray) -> SharedCore | None:
+    """The `SharedCore` of ``S`` for ``core``; None when S[core, core] is not positive definite."""
+    core = np.unique(core)
+    rest = np.setdiff1d(np.arange(S.shape[0]), core)
+    try:  # the transpose of the C-ordered gathered block is the Fortran-ordered same matrix
+        L = scipy.linalg.cholesky(S[np.ix_(core, core)].T, lower=True, overwrite_a=True, check_finite=False)
+    except np.linalg.LinAlgError:
+        return None
+    W = np.asfortranarray(S[np.ix_(core, rest)])
+    solve_lower_view(L, W)
+    schur = S[np.ix_(rest, rest)]
+    schur -= W.T @ W
+    return SharedCore(core, rest, L, W, schur)
+
+
+def smallest_with_core(idx: np.ndarray, shared: SharedCore) -> float | None:
+    """Smallest eigenvalue of S[idx, idx] through ``shared`` (the factor of the core, then
+    the Schur block of idx's other functions, in that order: a symmetric permutation, so
+    the same eigenvalues); None when idx does not contain the core or that block is not
+    positive definite to rounding."""
+    if not np.isin(shared.core, idx).all():
+        return None
+    extra = np.flatnonzero(np.isin(shared.rest, idx))
+    try:
+        tail = scipy.linalg.cholesky(shared.schur[np.ix_(extra, extra)], lower=True, check_finite=False)
+    except np.linalg.LinAlgError:
+        return None
+    c, d = shared.core.size, extra.size
+    F = np.zeros((c + d, c + d), order="F")
+    F[:c, :c] = shared.L
+    F[c:, :c] = shared.W[:, extra].T
+    F[c:, c:] = tail
+    return smallest_from_factor(F)
 
 
 def smallest_eigenvalue(S: np.ndarray, idx: np.ndarray) -> float:

@@ -13,7 +13,13 @@ from typing import Any
 import numpy as np
 
 from ..base.errors import UsageError
-from ..numerics.cholesky import CholeskyResult, smallest_eigenvalue, smallest_eigenvalue_cached, verify_mode
+from ..numerics.cholesky import (
+    CholeskyResult,
+    shared_core,
+    smallest_eigenvalue,
+    smallest_eigenvalue_cached,
+    verify_mode,
+)
 from ..numerics.eigen import compute_spectrum
 from ..numerics.memory import available_bytes
 from ..numerics.overlap import FunctionTable
@@ -157,7 +163,12 @@ def diffuse_element_options(
     out = []
     func_el = np.array([str(table.elements[a - 1]) for a in table.func_atom])
     func_dif = table.shell_diffuse[table.func_shell]
-    for el in sorted(set(func_el[func_dif])):
+    elements = sorted(set(func_el[func_dif]))
+    if cache is not None and len(Ss) == 1 and len(elements) > 1 and verify_mode(table.n_functions) == "lanczos":
+        # every option (and a published relative without diffuse shells) keeps the
+        # non-diffuse functions: factor them once (`SharedCore`)
+        cache[("core", id(Ss[0]))] = shared_core(Ss[0], np.flatnonzero(~func_dif))
+    for el in elements:
         drop = func_dif & (func_el == el)
         kept = np.flatnonzero(~drop)
         try:

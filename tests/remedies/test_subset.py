@@ -426,3 +426,32 @@ def test_shells_from_the_carried_factor_equal_a_new_factorization(dimer, target)
     without = shells_from_functions(S, dataclasses.replace(fn, factor=None), shell)
     assert np.array_equal(with_factor.kept, without.kept)
     assert with_factor.smallest_kept == pytest.approx(without.smallest_kept, rel=1e-9)
+
+
+def test_smallest_eigenvalue_through_a_shared_core_equals_eigvalsh(monkeypatch):
+    # Reference: numpy.linalg.eigvalsh of each kept block. Index sets that contain a common
+    # core get their smallest eigenvalue from one factorization of the core plus the Schur
+    # block of their other functions (the diffuse options and published relatives).
+    from auditor.numerics import cholesky
+    from auditor.numerics.cholesky import shared_core, smallest_eigenvalue_cached
+
+    plain: list[int] = []  # the sets that took the plain path
+    direct = cholesky.smallest_eigenvalue
+    monkeypatch.setattr(cholesky, "smallest_eigenvalue", lambda S, idx: plain.append(len(idx)) or direct(S, idx))
+
+    n = 420  # above the size where the check turns from eigvalsh to block Krylov
+    rng = np.random.default_rng(11)
+    Q = np.linalg.qr(rng.standard_normal((n, n)))[0]
+    S = (Q * np.logspace(-4, 1, n)) @ Q.T
+    S = 0.5 * (S + S.T)
+    core = np.arange(0, n, 2)
+    cache: dict = {("core", id(S)): shared_core(S, core)}
+    for extra in (np.arange(1, n, 4), np.arange(3, n, 4), np.array([5, 7, 11])):
+        idx = np.union1d(core, extra)
+        got = smallest_eigenvalue_cached(S, idx, cache)
+        ref = np.linalg.eigvalsh(S[np.ix_(idx, idx)])[0]
+        assert abs(got - ref) <= 1e-9 * ref
+    partial = np.arange(1, n, 3)  # does not contain the core: the plain path
+    assert (
+        abs(smallest_eigenvalue_cached(S, partial, cache) - np.linalg.eigvalsh(S[np.ix_(partial, partial)])[0]) < 1e-12
+    )
