@@ -13,7 +13,7 @@ import scipy.sparse.linalg
 from scipy.linalg import lapack
 
 from ..base.errors import InputError, UsageError
-from .inplace import column_major, solve_lower_view
+from .inplace import column_major, mirror_triangle, solve_lower_view, tpqrt_in_place
 from .krylov import _smallest_eigenpairs
 
 #: Largest deviation of a diagonal element from 1 that is accepted as "unit diagonal".
@@ -451,7 +451,7 @@ class SharedCore:
     rest: np.ndarray  # every other function, ascending
     L: np.ndarray  # lower factor of S[core, core], column-major
     W: np.ndarray  # L^-1 S[core, rest]
-    schur: np.ndarray  # S[rest, rest] - W^T W
+    schur: np.ndarray  # S[rest, rest] - W^T W, its upper triangle (the lower one is stale)
 
 
 def shared_core(S: np.ndarray, core: np.ndarray) -> SharedCore | None:
@@ -464,8 +464,10 @@ def shared_core(S: np.ndarray, core: np.ndarray) -> SharedCore | None:
         return None
     W = np.asfortranarray(S[np.ix_(core, rest)])
     solve_lower_view(L, W)
-    schur = S[np.ix_(rest, rest)]
-    schur -= W.T @ W
+    # S[rest, rest] - W^T W: dsyrk forms the upper triangle only (half a product's flops);
+    # its transpose, lower, is all that the Cholesky of a Schur block reads
+    schur = S[np.ix_(rest, rest)].T
+    schur = scipy.linalg.blas.dsyrk(-1.0, W, beta=1.0, c=schur, trans=1, lower=0, overwrite_c=1)
     return SharedCore(core, rest, L, W, schur)
 
 
@@ -477,8 +479,8 @@ def smallest_with_core(idx: np.ndarray, shared: SharedCore) -> float | None:
     if not np.isin(shared.core, idx).all():
         return None
     extra = np.flatnonzero(np.isin(shared.rest, idx))
-    try:
-        tail = scipy.linalg.cholesky(shared.schur[np.ix_(extra, extra)], lower=True, check_finite=False)
+    try:  # schur holds its upper triangle: the Cholesky of a block reads that triangle
+        tail = scipy.linalg.cholesky(shared.schur[np.ix_(extra, extra)], lower=False, check_finite=False).T
     except np.linalg.LinAlgError:
         return None
     c, d = shared.core.size, extra.size
@@ -534,6 +536,33 @@ def delete_from_factor(L: np.ndarray, drop: np.ndarray, room: int = 0) -> np.nda
         raise ValueError(f"dtpqrt failed (info {info})")
     F[j0:, j0:] = upper.T
     return F
+
+
+def delete_in_place(L: np.ndarray, drop: np.ndarray, chunk: int = 256) -> np.ndarray:
+    """`delete_from_factor` in L's own memory: the kept rows and columns move up and left,
+    the trailing block is re-factored there (dtpqrt on its mirror image), and the leading
+    m x m block of L, m the number kept, is returned. L must be column-major (or a leading
+    block of a column-major array); its other contents are lost. No new N x N array."""
+    drop = np.unique(np.asarray(drop, dtype=np.int64))
+    if drop.size == 0:
+        return L
+    if not column_major(L):
+        raise ValueError("in-place deletion needs a column-major factor")
+    keep = np.setdiff1d(np.arange(L.shape[0]), drop)
+    m, j0 = keep.size, int(drop[0])
+    tail = keep[j0:]  # keep[:j0] is 0..j0-1: those rows and columns stay where they are
+    X = np.asfortranarray(L[np.ix_(tail, drop)].T)
+    for c0 in range(0, j0, chunk):  # each step reads all it moves before writing (rows only move up)
+        c1 = min(j0, c0 + chunk)
+        L[j0:m, c0:c1] = L[tail, c0:c1]
+    for a0 in range(0, tail.size, chunk):  # columns move left: a later source is never written first
+        a1 = min(tail.size, a0 + chunk)
+        L[j0:m, j0 + a0 : j0 + a1] = L[np.ix_(tail, tail[a0:a1])]
+    block = L[j0:m, j0:m]
+    mirror_triangle(block, upward=True)  # R form: the upper triangle LAPACK works on
+    tpqrt_in_place(block, X)
+    mirror_triangle(block, upward=False)
+    return L[:m, :m]
 
 
 def deletion_is_cheaper(m: int, drop: np.ndarray) -> bool:

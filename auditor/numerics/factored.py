@@ -181,9 +181,11 @@ def _pivoted_count(tri: _Triangles, tau: float, handoff: FactorHandoff | None) -
     n = A.shape[0]
     order, rank = pstrf_until_nonpositive(A)
     if handoff is not None:
-        factor = np.array(A[:rank, :rank], order="F")
-        for j in range(1, rank):  # columns are contiguous in Fortran order
-            factor[:j, j] = 0.0
+        # the leading block of an N x N array (its untouched pages cost nothing): room for the
+        # remedies to work in it (`auditor.numerics.cholesky.delete_in_place`, add-back)
+        factor = np.zeros((n, n), order="F")[:rank, :rank]
+        for j in range(rank):  # the lower triangle, column by column (contiguous in Fortran order)
+            factor[j:, j] = A[j:rank, j]
         handoff.give(shifted_result(order, factor, n, tau))
     rest = order[rank:]
     if rest.size == 0:

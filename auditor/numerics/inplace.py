@@ -60,6 +60,7 @@ def _routine(name: str):
             dtrsm=_fortran_routine(cython_blas, "dtrsm", 11),
             dpotrf=_fortran_routine(cython_lapack, "dpotrf", 5),
             dtrsv=_fortran_routine(cython_blas, "dtrsv", 8),
+            dtpqrt=_fortran_routine(cython_lapack, "dtpqrt", 12),
         )
     return _ROUTINES[name]
 
@@ -206,3 +207,50 @@ def solve_lower_view(F: np.ndarray, B: np.ndarray, transpose: bool = False) -> N
         return
     one = c.c_double(1.0)
     _routine("dtrsm")(ref(L), ref(L), ref(op), ref(N), ref(m), ref(cols), ref(one), pa, ref(lda), pb, ref(ldb))
+
+
+def mirror_triangle(A: np.ndarray, upward: bool, block: int = 256) -> None:
+    """Move the lower triangle of the square block A onto its upper one, transposed
+    (``upward``), or the upper onto the lower; the triangle moved from is zeroed. The
+    diagonal stays. A may be a block of a larger array (done in place, block by block)."""
+    n = A.shape[0]
+    for j0 in range(0, n, block):
+        j1 = min(n, j0 + block)
+        if upward:
+            A[j0:j1, j1:] = A[j1:, j0:j1].T
+            A[j1:, j0:j1] = 0.0
+        else:
+            A[j1:, j0:j1] = A[j0:j1, j1:].T
+            A[j0:j1, j1:] = 0.0
+        d = A[j0:j1, j0:j1]
+        lower = np.tril_indices(j1 - j0, -1)
+        if upward:
+            d.T[lower] = d[lower]
+            d[lower] = 0.0
+        else:
+            d[lower] = d.T[lower]
+            d.T[lower] = 0.0
+
+
+def tpqrt_in_place(A: np.ndarray, B: np.ndarray) -> None:
+    """LAPACK dtpqrt with a rectangular B: the R of the QR factorization of [A; B] into the
+    upper triangle of A, in place (A square and column-major, possibly a block of a larger
+    array; B Fortran-ordered, with A's columns; B is overwritten)."""
+    t, d = A.shape[0], B.shape[0]
+    if not (column_major(A) and A.shape[1] == t and B.flags.f_contiguous and B.shape[1] == t):
+        raise ValueError("needs a column-major square A and a Fortran-ordered B with its columns")
+    if t == 0 or d == 0:
+        return
+    nb = min(32, t)
+    T = np.empty((nb, t), order="F")
+    work = np.empty(nb * t)
+    c = ctypes
+    ref = c.byref
+    info = c.c_int(0)
+    ints = [c.c_int(x) for x in (d, t, 0, nb)]
+    lda, ldb, ldt = c.c_int(A.strides[1] // 8), c.c_int(d), c.c_int(nb)
+    ptr = [c.c_void_p(x.ctypes.data) for x in (A, B, T, work)]
+    routine = _routine("dtpqrt")
+    routine(*(ref(x) for x in ints), ptr[0], ref(lda), ptr[1], ref(ldb), ptr[2], ref(ldt), ptr[3], ref(info))
+    if info.value != 0:
+        raise RuntimeError(f"dtpqrt failed (info {info.value})")

@@ -58,12 +58,13 @@ def joint_select(
 
 
 def joint_shells_from_functions(
-    Ss: Sequence[np.ndarray], functions: Selection, units: np.ndarray, verify: str = "eigvalsh"
+    Ss: Sequence[np.ndarray], functions: Selection, units: np.ndarray, verify: str = "eigvalsh", consume: bool = False
 ) -> Selection | None:
     """`shells_from_functions` for every frame: the units none of whose functions the joint
-    function-level set drops, then the others offered back (None when no unit is clean)."""
+    function-level set drops, then the others offered back (None when no unit is clean;
+    ``consume``: ``functions.factor`` may be used up)."""
     if len(Ss) == 1:
-        return shells_from_functions(Ss[0], functions, units, verify=verify)
+        return shells_from_functions(Ss[0], functions, units, verify=verify, consume=consume)
     bad = set(units[functions.dropped].tolist())
     keep = np.array([u not in bad for u in units])
     if not keep.any():

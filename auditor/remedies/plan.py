@@ -352,13 +352,16 @@ def _add_shell_prunings(plan: RemedyPlan, fr: _Frames, atoms: np.ndarray, mode: 
     """The shell-pruned basis (equivalent atoms pruned alike), and the one that ignores
     symmetry when it keeps more functions; point groups of the full and pruned bases."""
     table, Ss = fr.worst.table, fr.worst_first
-    free = whole_shell_selection(Ss, plan.target, plan.functions, table.func_shell, atoms, mode, plan.problems)
     sym = fr.sym = find_frames_symmetry(fr.preps)
+    # the last search seeded by the function-level factor may work in its memory
+    free = whole_shell_selection(
+        Ss, plan.target, plan.functions, table.func_shell, atoms, mode, plan.problems, consume=sym.trivial
+    )
     kept = free
     if not sym.trivial:
         problems: list[str] = []
         what = "shell-pruned basis keeping the point group"
-        kept = whole_shell_selection(Ss, plan.target, plan.functions, sym.units, atoms, mode, problems, what)
+        kept = whole_shell_selection(Ss, plan.target, plan.functions, sym.units, atoms, mode, problems, what, True)
         if kept is None:
             plan.problems += problems
             kept = free

@@ -34,11 +34,13 @@ def whole_shell_selection(
     mode: str,
     problems: list[str],
     what: str = "shell-pruned basis",
+    consume: bool = False,
 ) -> Selection | None:
     """The whole-unit kept set by `WHOLE_SHELL_RULE` for every frame of ``Ss`` (worst first);
-    ``units`` numbers the shell, or the set of symmetry-equivalent shells, of each function."""
+    ``units`` numbers the shell, or the set of symmetry-equivalent shells, of each function.
+    ``consume``: this is the last use of ``functions.factor``, whose memory may be reused."""
     if functions is not None:
-        seeded = joint_shells_from_functions(Ss, functions, units, verify=mode)
+        seeded = joint_shells_from_functions(Ss, functions, units, verify=mode, consume=consume)
         if seeded is not None:
             try:
                 check_atoms_not_emptied(seeded.kept, atoms, what=f"target {target:g}")

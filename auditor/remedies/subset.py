@@ -38,6 +38,7 @@ from ..numerics.cholesky import (
     _smallest,
     check_overlap,
     delete_from_factor,
+    delete_in_place,
     deletion_is_cheaper,
     pivoted_cholesky,
     shell_pivoted_cholesky,
@@ -416,14 +417,18 @@ def _selection(
 
 
 def shells_from_functions(
-    S: np.ndarray, functions: Selection, shell_of_function: np.ndarray | Sequence[int], verify: bool | str = "eigvalsh"
+    S: np.ndarray,
+    functions: Selection,
+    shell_of_function: np.ndarray | Sequence[int],
+    verify: bool | str = "eigvalsh",
+    consume: bool = False,
 ) -> Selection | None:
     """A whole-shell kept set seeded by a function-level selection.
 
-    Keeps the shells none of whose functions ``functions`` drops (a subset of its kept
-    set, so still at or above its target by Cauchy interlacing), then offers the other
-    shells back as `select_for_target` does. None when no shell is clean.
-    """
+    Keeps the shells none of whose functions ``functions`` drops (a subset of its kept set,
+    so at or above its target by Cauchy interlacing), then offers the other shells back as
+    `select_for_target` does; None when no shell is clean. ``consume``: work in the memory
+    of ``functions.factor``, which is lost."""
     S = check_overlap(S)
     n = S.shape[0]
     shells = np.asarray(shell_of_function)
@@ -435,7 +440,7 @@ def shells_from_functions(
     seed = [s for s in dict.fromkeys(shells[functions.order].tolist()) if s not in bad]
     if not seed:
         return None
-    order, L = _seed(functions, shells, bad, groups, seed)
+    order, L = _seed(functions, shells, bad, groups, seed, consume)
     k = order.size
     level = functions.factor_shift if L is not None else goal  # the shift of L and of its extension
     order, blocks, factor = add_back(S, order, [groups[s] for s in sorted(bad)], level, L, grow=L is not None)
@@ -474,16 +479,24 @@ def shells_from_functions(
 
 
 def _seed(
-    functions: Selection, shells: np.ndarray, bad: set[int], groups: list[np.ndarray], seed: list[int]
+    functions: Selection,
+    shells: np.ndarray,
+    bad: set[int],
+    groups: list[np.ndarray],
+    seed: list[int],
+    consume: bool,
 ) -> tuple[np.ndarray, np.ndarray | None]:
     """The functions of the clean shells ``seed``, and the factor of their shifted block
-    when the function-level factor gives it more cheaply than a new factorization (with room
-    for every function of the ``bad`` shells, for `add_back` to grow it in place)."""
+    when the function-level factor gives it more cheaply than a new factorization: made in
+    that factor's own array when the caller gives it up (``consume``), else in a new one
+    with room for every function of the ``bad`` shells (`add_back` grows it in place)."""
     if functions.factor is not None:
         at_bad = np.flatnonzero(np.isin(shells[functions.order], sorted(bad)))
         if deletion_is_cheaper(functions.order.size, at_bad):
-            room = sum(groups[s].size for s in bad)
-            return np.delete(functions.order, at_bad), delete_from_factor(functions.factor, at_bad, room)
+            kept = np.delete(functions.order, at_bad)
+            if consume and column_major(functions.factor):
+                return kept, delete_in_place(functions.factor, at_bad)
+            return kept, delete_from_factor(functions.factor, at_bad, sum(groups[s].size for s in bad))
     return np.concatenate([groups[s] for s in seed]), None
 
 
@@ -513,8 +526,8 @@ def add_back(
     group that fails once can never fit later (adding functions only lowers the smallest
     eigenvalue), so one pass leaves no dropped group that could be added. Returns (order,
     sizes of the added groups, factor of ``S[order, order] - goal*I``). With ``grow``, L is
-    the leading block of a zeroed column-major array of the caller's with room for every
-    group (`delete_from_factor`), and the factor is written into it."""
+    the leading block of a column-major array of the caller's (`delete_from_factor`,
+    `delete_in_place`), and the factor is written into it when it has room."""
     if not groups:
         return order, [], L
     A = None
@@ -545,18 +558,29 @@ def add_back(
     if not tails:
         return order, sizes, L
     k = L.shape[0]
-    if grow and L.base is not None and L.base.shape[0] >= order.size:
-        factor = L.base[: order.size, : order.size]
-    else:
-        factor = np.zeros((order.size, order.size))
+    factor = _grown(L, order.size) if grow else None
+    if factor is None:
+        factor = np.zeros((order.size, order.size), order="F")
         factor[:k, :k] = L
     del L, A  # the same memory (L is A's transpose, factored in place)
     for Wg, Cc in tails:
         d = Cc.shape[0]
+        factor[:k, k : k + d] = 0.0  # above the new rows: the array's old contents
         factor[k : k + d, : Wg.shape[0]] = Wg.T
         factor[k : k + d, k : k + d] = Cc
         k += d
     return order, sizes, factor
+
+
+def _grown(L: np.ndarray, size: int) -> np.ndarray | None:
+    """The leading size x size block of the column-major array whose leading block L is,
+    when it has that room; else None."""
+    full = L.base
+    if full is None or full.ndim != 2:
+        return None
+    full = full if full.flags.f_contiguous else full.T
+    same = full.flags.f_contiguous and full.ctypes.data == L.ctypes.data and full.strides == L.strides
+    return full[:size, :size] if same and min(full.shape) >= size else None
 
 
 def _solve_lower(L: np.ndarray, B: np.ndarray) -> np.ndarray:

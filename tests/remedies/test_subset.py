@@ -455,3 +455,38 @@ def test_smallest_eigenvalue_through_a_shared_core_equals_eigvalsh(monkeypatch):
     assert (
         abs(smallest_eigenvalue_cached(S, partial, cache) - np.linalg.eigvalsh(S[np.ix_(partial, partial)])[0]) < 1e-12
     )
+
+
+@pytest.mark.parametrize("drop", [[0], [39], [3, 4, 17, 30], list(range(0, 40, 3))])
+def test_factor_after_deleting_in_place(drop):
+    # Reference: scipy.linalg.cholesky of the kept block itself (through F F^T and |F|). The
+    # in-place deletion works in the factor's own array, whatever lies beside it.
+    import scipy.linalg
+
+    from auditor.numerics.cholesky import delete_in_place
+
+    A = random_s_overlap(40, 5) + 0.05 * np.eye(40)
+    keep = np.setdiff1d(np.arange(40), drop)
+    big = np.asfortranarray(np.random.default_rng(2).standard_normal((50, 50)))  # garbage around it
+    big[:40, :40] = np.tril(scipy.linalg.cholesky(A, lower=True))
+    F = delete_in_place(big[:40, :40], np.array(drop), chunk=7)
+    ref = scipy.linalg.cholesky(A[np.ix_(keep, keep)], lower=True)
+    assert np.shares_memory(F, big) and F.shape == (keep.size, keep.size)
+    assert np.allclose(F @ F.T, A[np.ix_(keep, keep)], atol=1e-13)
+    assert np.array_equal(F, np.tril(F))
+    assert np.allclose(np.abs(F), np.abs(ref), atol=1e-12)
+
+
+@pytest.mark.parametrize("target", [3e-2, 3e-3])  # deletion from the factor happens at these
+def test_shells_from_a_consumed_factor_equal_those_from_a_kept_one(dimer, target):
+    # The last whole-shell search may work in the function-level factor's memory: the same
+    # kept set and smallest eigenvalue as with a copy (reference: the copying path).
+    _, S, shell, _ = dimer
+    fn = select_for_target(S, target, verify="lanczos")
+    before = fn.factor.copy()
+    kept = shells_from_functions(S, fn, shell, verify="lanczos")
+    assert np.array_equal(fn.factor, before)
+    used = shells_from_functions(S, fn, shell, verify="lanczos", consume=True)
+    assert not np.array_equal(fn.factor, before)  # it did work in place
+    assert np.array_equal(kept.kept, used.kept)
+    assert abs(kept.smallest_kept - used.smallest_kept) <= 1e-10 * kept.smallest_kept
