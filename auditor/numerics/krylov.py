@@ -8,7 +8,7 @@ from scipy.linalg import blas, lapack
 from scipy.sparse.linalg import LinearOperator, eigsh
 
 from .inplace import solve_lower_view
-from .memory import KRYLOV_DEPTH, _block_size
+from .memory import KRYLOV_DEPTH, KRYLOV_MAX_DEPTH, _block_size
 
 
 def _largest_eigenvalue(A: np.ndarray, tol: float = 1e-8) -> float:
@@ -69,14 +69,13 @@ def _smallest_eigenpairs(
 ) -> tuple[np.ndarray, np.ndarray]:
     """k smallest eigenpairs of S from the Cholesky factor L of S - shift*I (lower triangle).
 
-    ``start`` (optional) holds approximate eigenvectors, best first, for the start block
-    (the rest of it random; a little random in every column, so that no direction is
-    missing from it).
+    ``start``: approximate eigenvectors, best first, for the start block (`_start_block`).
 
     Restarted block Krylov iteration on A = (S - shift*I)^-1: from a block X of p > k
     columns the basis Q = [X, AX, A^2 X, ...] (``KRYLOV_DEPTH`` blocks, orthonormalized
     against each other) gives Rayleigh-Ritz pairs of A; the p leading Ritz vectors
-    restart it. Each application of A is one BLAS-3 solve with p right-hand sides.
+    restart it (from a start block, the first pass first grows up to ``KRYLOV_MAX_DEPTH``
+    blocks). Each application of A is one BLAS-3 solve with p right-hand sides.
 
     Only Q and the image W = A Q_last of its last block are stored: A Q_j for an earlier
     block lies in span(Q) (the next block was made from it), so H = Q^T A Q is filled
@@ -86,31 +85,34 @@ def _smallest_eigenpairs(
     n = L.shape[0]
     p = _block_size(k, n)
     depth = KRYLOV_DEPTH if KRYLOV_DEPTH * p <= n // 2 else 1
-    m = depth * p
+    # from a start block, the first pass may go deeper instead of restarting
+    deepest = KRYLOV_MAX_DEPTH if start is not None and KRYLOV_MAX_DEPTH * p <= n // 2 else depth
     rng = np.random.default_rng(seed)
-    Q = np.empty((n, m), order="F")  # orthonormal Krylov basis
+    Q = np.empty((n, deepest * p), order="F")  # orthonormal Krylov basis
     W = np.empty((n, p), order="F")  # A applied to the newest block
-    H = np.zeros((m, m), order="F")  # Q^T A Q, upper block triangle as computed
+    H = np.zeros((deepest * p, deepest * p), order="F")  # Q^T A Q, upper block triangle as computed
     _start_block(Q[:, :p], rng, start)
-    worst = np.inf
     solves = 0
     for it in range(1, maxiter + 1):
         solves += _build_krylov_basis(L, Q, W, H, p, depth)
-        last = slice(m - p, m)
-        HW = H[:, last].copy()  # Q^T W, for the residuals
-        theta, U = _leading_ritz_pairs(H, p)
-        worst = _worst_residual(Q, W, HW, U[last, :k], theta[:k])
+        j = depth
+        theta, U, worst = _ritz(Q, W, H, p, j, k)
+        while worst > tol and it == 1 and j < deepest:
+            solves += _build_krylov_basis(L, Q, W, H, p, j + 1, first=j)
+            j += 1
+            theta, U, worst = _ritz(Q, W, H, p, j, k)
+        m = j * p
         if worst <= tol or it == maxiter or m >= n:
-            vectors = blas.dgemm(1.0, Q, U[:, :k])
+            vectors = blas.dgemm(1.0, Q[:, :m], U[:, :k])
             break
         if depth > 1:  # restart from the leading Ritz vectors Q U
-            _times_in_place(Q, U[:, :p])
+            _times_in_place(Q[:, :m], U[:, :p])
         else:  # small N: plain subspace iteration, restart from A X = W
             Q[:, :p] = blas.dgemm(1.0, W, U[:, :p])
             _orthonormalize(Q[:, :p])
     info["iterations"] = it
     info["block"] = p
-    info["krylov_depth"] = depth
+    info["krylov_depth"] = j
     info["column_solves"] = solves
     info["residual"] = worst
     values = 1.0 / theta[:k] + shift
@@ -128,28 +130,42 @@ def _start_block(X: np.ndarray, rng: np.random.Generator, start: np.ndarray | No
     _orthonormalize(X)
 
 
-def _build_krylov_basis(L: np.ndarray, Q: np.ndarray, W: np.ndarray, H: np.ndarray, p: int, depth: int) -> int:
-    """Extend the start block Q[:, :p] to the Krylov basis Q (``depth`` blocks of p), in place.
+def _build_krylov_basis(
+    L: np.ndarray, Q: np.ndarray, W: np.ndarray, H: np.ndarray, p: int, depth: int, first: int = 0
+) -> int:
+    """Extend the start block Q[:, :p] to the Krylov basis Q[:, :depth*p], in place.
 
     A = (S - shift*I)^-1 is applied by solves with the Cholesky factor L; the block
     columns of H = Q^T A Q are filled as the images appear, and W ends as A times the
-    last block. Returns the number of column solves.
+    last block. From ``first`` > 0 on it extends a basis of ``first`` blocks (W then holds
+    A times its last block). Returns the number of column solves.
     """
     solves = 0
-    for j in range(depth):
+    for j in range(first, depth):
+        if j > 0:  # the next block: A times the last one, orthonormalized against the basis
+            nxt = Q[:, j * p : (j + 1) * p]
+            nxt[...] = W
+            _project_out(Q[:, : j * p], nxt)
+            _orthonormalize(nxt)
         blk = slice(j * p, (j + 1) * p)
         W[...] = Q[:, blk]
         solve_lower_view(L, W)  # W = (L L^T)^-1 W, reading L in place (it may be a block of a larger array)
         solve_lower_view(L, W, transpose=True)
         solves += p
-        done = Q[:, : (j + 1) * p]
-        H[: (j + 1) * p, blk] = blas.dgemm(1.0, done, W, trans_a=1)
-        if j + 1 < depth:
-            nxt = Q[:, (j + 1) * p : (j + 2) * p]
-            nxt[...] = W
-            _project_out(done, nxt)
-            _orthonormalize(nxt)
+        H[: (j + 1) * p, blk] = blas.dgemm(1.0, Q[:, : (j + 1) * p], W, trans_a=1)
     return solves
+
+
+def _ritz(
+    Q: np.ndarray, W: np.ndarray, H: np.ndarray, p: int, blocks: int, k: int
+) -> tuple[np.ndarray, np.ndarray, float]:
+    """Rayleigh-Ritz on the first ``blocks`` blocks of the basis: the p leading Ritz values of
+    A and their coefficient vectors, and the worst relative residual of the first k."""
+    m = blocks * p
+    last = slice(m - p, m)
+    theta, U = _leading_ritz_pairs(H[:m, :m].copy(order="F"), p)  # H itself may grow further
+    worst = _worst_residual(Q[:, :m], W, H[:m, last].copy(order="F"), U[last, :k], theta[:k])
+    return theta, U, worst
 
 
 def _project_out(done: np.ndarray, nxt: np.ndarray) -> None:
