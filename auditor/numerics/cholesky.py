@@ -14,7 +14,7 @@ from scipy.linalg import lapack
 
 from ..base.errors import InputError, UsageError
 from .inplace import column_major, mirror_triangle, solve_lower_view, tpqrt_in_place
-from .krylov import _smallest_eigenpairs
+from .krylov import InverseSolver, _smallest_eigenpairs, factor_solver
 
 #: Largest deviation of a diagonal element from 1 that is accepted as "unit diagonal".
 UNIT_DIAGONAL_SLACK = 1e-8
@@ -387,13 +387,8 @@ def _smallest(S: np.ndarray, idx: np.ndarray) -> float:
 
 
 def smallest_from_factor(factor: np.ndarray, rtol: float = 1e-10) -> float:
-    """Smallest eigenvalue of ``factor @ factor.T`` without forming or diagonalizing it.
-
-    Block Krylov iteration on the inverse (`auditor.numerics.krylov`), applied by triangular
-    solves with a block of vectors (BLAS-3) that read the factor in place, to a residual of
-    sqrt(rtol): its Ritz value approaches the eigenvalue from above, within about ``rtol``
-    relative. Lanczos (ARPACK) on the same operator if that does not converge.
-    """
+    """Smallest eigenvalue of ``factor @ factor.T`` without forming or diagonalizing it
+    (`smallest_from_solver` with two triangular solves that read the factor in place)."""
     k = factor.shape[0]
     if k == 0:
         return np.inf
@@ -401,16 +396,26 @@ def smallest_from_factor(factor: np.ndarray, rtol: float = 1e-10) -> float:
         return float(np.linalg.eigvalsh(factor @ factor.T)[0])
     if not column_major(factor):  # BLAS reads a column-major factor, or a block of one, in place
         factor = np.asfortranarray(factor)
+    return smallest_from_solver(factor_solver(factor), rtol)
+
+
+def smallest_from_solver(solve: InverseSolver, rtol: float = 1e-10) -> float:
+    """Smallest eigenvalue of a positive definite matrix M from ``solve`` (W -> M^-1 W).
+
+    Block Krylov iteration on M^-1 (`auditor.numerics.krylov`, BLAS-3 solves) to a residual
+    of sqrt(rtol): its Ritz value approaches the eigenvalue from above, within about
+    ``rtol`` relative. Lanczos (ARPACK) on the same operator if that does not converge.
+    """
     info: dict = {}
     tol = float(np.sqrt(rtol))
-    values, _ = _smallest_eigenpairs(factor, 0.0, 1, tol, 10, 0, info)
+    values, _ = _smallest_eigenpairs(solve, 0.0, 1, tol, 10, 0, info)
     if info["residual"] <= tol:
         return float(values[0])
+    k = solve.size
 
-    def apply(v):  # (L L^T)^-1 v
+    def apply(v):
         y = np.array(v, dtype=np.float64, order="F").reshape(k, 1)
-        solve_lower_view(factor, y)
-        solve_lower_view(factor, y, transpose=True)
+        solve.apply(y)
         return y[:, 0]
 
     op = scipy.sparse.linalg.LinearOperator((k, k), matvec=apply, dtype=np.float64)
@@ -472,27 +477,40 @@ def shared_core(S: np.ndarray, core: np.ndarray) -> SharedCore | None:
 
 
 def smallest_with_core(idx: np.ndarray, shared: SharedCore) -> float | None:
-    """Smallest eigenvalue of S[idx, idx] through ``shared`` (the factor of the core, then
-    the Schur block of idx's other functions, in that order: a symmetric permutation, so
-    the same eigenvalues); None when idx does not contain the core or that block is not
-    positive definite to rounding."""
+    """Smallest eigenvalue of S[idx, idx] through ``shared``: its factor is [[L, 0], [W_E^T,
+    T]] in the order (core, idx's other functions E), a symmetric permutation (the same
+    eigenvalues), with T the factor of the Schur block of E; applied by block solves, never
+    formed. None when idx does not contain the core or that block is not positive definite
+    to rounding."""
     if not np.isin(shared.core, idx).all():
         return None
     extra = np.flatnonzero(np.isin(shared.rest, idx))
     try:  # schur holds its upper triangle: the Cholesky of a block reads that triangle
-        tail = scipy.linalg.cholesky(shared.schur[np.ix_(extra, extra)], lower=False, check_finite=False).T
+        upper = scipy.linalg.cholesky(shared.schur[np.ix_(extra, extra)], lower=False, check_finite=False)
     except np.linalg.LinAlgError:
         return None
-    c, d = shared.core.size, extra.size
-    F = np.zeros((c + d, c + d), order="F")
-    F[:c, :c] = shared.L
-    F[c:, :c] = shared.W[:, extra].T
-    F[c:, c:] = tail
-    return smallest_from_factor(F)
+    return smallest_from_solver(_core_solver(shared.L, np.asfortranarray(shared.W[:, extra]), upper.T))
+
+
+def _core_solver(L: np.ndarray, WE: np.ndarray, T: np.ndarray) -> InverseSolver:
+    """W -> (F F^T)^-1 W for F = [[L, 0], [WE^T, T]] (L, T lower), by block substitution."""
+    c, T = L.shape[0], np.asfortranarray(T)
+
+    def apply(B: np.ndarray) -> None:
+        top, bottom = np.asfortranarray(B[:c]), np.asfortranarray(B[c:])
+        solve_lower_view(L, top)  # F y = b
+        bottom -= WE.T @ top
+        solve_lower_view(T, bottom)
+        solve_lower_view(T, bottom, transpose=True)  # F^T x = y
+        top -= WE @ bottom
+        solve_lower_view(L, top, transpose=True)
+        B[:c], B[c:] = top, bottom
+
+    return InverseSolver(apply, c + T.shape[0])
 
 
 def smallest_eigenvalue(S: np.ndarray, idx: np.ndarray) -> float:
-    """Smallest eigenvalue of ``S[idx, idx]`` (dense for small sets, Lanczos otherwise)."""
+    """Smallest eigenvalue of ``S[idx, idx]`` (dense for small sets, block Krylov otherwise)."""
     idx = np.asarray(idx)
     if idx.size == 0:
         return float("inf")

@@ -2,6 +2,9 @@
 
 from __future__ import annotations
 
+from collections.abc import Callable
+from dataclasses import dataclass
+
 import numpy as np
 import scipy.linalg
 from scipy.linalg import blas, lapack
@@ -58,7 +61,7 @@ def _times_in_place(X: np.ndarray, U: np.ndarray, rows: int = 4096) -> None:
 
 
 def _smallest_eigenpairs(
-    L: np.ndarray,
+    L: np.ndarray | InverseSolver,
     shift: float,
     k: int,
     tol: float,
@@ -67,7 +70,8 @@ def _smallest_eigenpairs(
     info: dict,
     start: np.ndarray | None = None,
 ) -> tuple[np.ndarray, np.ndarray]:
-    """k smallest eigenpairs of S from the Cholesky factor L of S - shift*I (lower triangle).
+    """k smallest eigenpairs of S from the Cholesky factor L of S - shift*I (lower triangle),
+    or from an `InverseSolver` that applies (S - shift*I)^-1.
 
     ``start``: approximate eigenvectors, best first, for the start block (`_start_block`).
 
@@ -82,7 +86,8 @@ def _smallest_eigenpairs(
     block column by block column as the images appear, and the residual of a Ritz pair
     (theta, u) is (W - Q Q^T W) u_last, with u_last its last-block components.
     """
-    n = L.shape[0]
+    solve = L if isinstance(L, InverseSolver) else factor_solver(L)
+    n = solve.size
     p = _block_size(k, n)
     depth = KRYLOV_DEPTH if KRYLOV_DEPTH * p <= n // 2 else 1
     # from a start block, the first pass may go deeper instead of restarting
@@ -94,11 +99,11 @@ def _smallest_eigenpairs(
     _start_block(Q[:, :p], rng, start)
     solves = 0
     for it in range(1, maxiter + 1):
-        solves += _build_krylov_basis(L, Q, W, H, p, depth)
+        solves += _build_krylov_basis(solve, Q, W, H, p, depth)
         j = depth
         theta, U, worst = _ritz(Q, W, H, p, j, k)
         while worst > tol and it == 1 and j < deepest:
-            solves += _build_krylov_basis(L, Q, W, H, p, j + 1, first=j)
+            solves += _build_krylov_basis(solve, Q, W, H, p, j + 1, first=j)
             j += 1
             theta, U, worst = _ritz(Q, W, H, p, j, k)
         m = j * p
@@ -119,6 +124,25 @@ def _smallest_eigenpairs(
     return values, vectors
 
 
+@dataclass(frozen=True)
+class InverseSolver:
+    """``apply(W)`` overwrites a Fortran-ordered block W (``size`` rows) with (S - shift*I)^-1 W."""
+
+    apply: Callable[[np.ndarray], None]
+    size: int
+
+
+def factor_solver(L: np.ndarray) -> InverseSolver:
+    """The `InverseSolver` of a lower Cholesky factor L (read in place: it may be a block of a
+    larger column-major array), two triangular solves."""
+
+    def apply(W: np.ndarray) -> None:
+        solve_lower_view(L, W)
+        solve_lower_view(L, W, transpose=True)
+
+    return InverseSolver(apply, int(L.shape[0]))
+
+
 def _start_block(X: np.ndarray, rng: np.random.Generator, start: np.ndarray | None) -> None:
     """Fill the block X with orthonormal start vectors: the columns of ``start`` (if any) with
     a little random added, random columns after them."""
@@ -131,11 +155,11 @@ def _start_block(X: np.ndarray, rng: np.random.Generator, start: np.ndarray | No
 
 
 def _build_krylov_basis(
-    L: np.ndarray, Q: np.ndarray, W: np.ndarray, H: np.ndarray, p: int, depth: int, first: int = 0
+    solve: InverseSolver, Q: np.ndarray, W: np.ndarray, H: np.ndarray, p: int, depth: int, first: int = 0
 ) -> int:
     """Extend the start block Q[:, :p] to the Krylov basis Q[:, :depth*p], in place.
 
-    A = (S - shift*I)^-1 is applied by solves with the Cholesky factor L; the block
+    A = (S - shift*I)^-1 is applied by ``solve`` (in place); the block
     columns of H = Q^T A Q are filled as the images appear, and W ends as A times the
     last block. From ``first`` > 0 on it extends a basis of ``first`` blocks (W then holds
     A times its last block). Returns the number of column solves.
@@ -149,8 +173,7 @@ def _build_krylov_basis(
             _orthonormalize(nxt)
         blk = slice(j * p, (j + 1) * p)
         W[...] = Q[:, blk]
-        solve_lower_view(L, W)  # W = (L L^T)^-1 W, reading L in place (it may be a block of a larger array)
-        solve_lower_view(L, W, transpose=True)
+        solve.apply(W)
         solves += p
         H[: (j + 1) * p, blk] = blas.dgemm(1.0, Q[:, : (j + 1) * p], W, trans_a=1)
     return solves
