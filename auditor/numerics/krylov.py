@@ -71,9 +71,8 @@ def _smallest_eigenpairs(
     start: np.ndarray | None = None,
 ) -> tuple[np.ndarray, np.ndarray]:
     """k smallest eigenpairs of S from the Cholesky factor L of S - shift*I (lower triangle),
-    or from an `InverseSolver` that applies (S - shift*I)^-1.
-
-    ``start``: approximate eigenvectors, best first, for the start block (`_start_block`).
+    or from an `InverseSolver` that applies (S - shift*I)^-1; ``start``: approximate
+    eigenvectors, best first, for the start block (`_start_block`).
 
     Restarted block Krylov iteration on A = (S - shift*I)^-1: from a block X of p > k
     columns the basis Q = [X, AX, A^2 X, ...] (``KRYLOV_DEPTH`` blocks, orthonormalized
@@ -87,8 +86,7 @@ def _smallest_eigenpairs(
     (theta, u) is (W - Q Q^T W) u_last, with u_last its last-block components.
     """
     solve = L if isinstance(L, InverseSolver) else factor_solver(L)
-    n = solve.size
-    p = _block_size(k, n)
+    n, p = solve.size, _block_size(k, solve.size)
     depth = KRYLOV_DEPTH if KRYLOV_DEPTH * p <= n // 2 else 1
     # from a start block, the first pass may go deeper instead of restarting
     deepest = KRYLOV_MAX_DEPTH if start is not None and KRYLOV_MAX_DEPTH * p <= n // 2 else depth
