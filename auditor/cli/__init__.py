@@ -14,7 +14,13 @@ import sys
 import warnings
 from typing import Annotated
 
-import typer
+# numpy and scipy each bring their own OpenBLAS, whose threads spin for a while after every
+# call; on a two-core machine a call into the other copy then stalls for up to ~0.1 s.
+# Threads that go to sleep sooner remove the stall (measured: `check` on 5980 functions
+# 8.8 s -> 7.9 s); results do not change. Set before numpy loads; a user's own value wins.
+os.environ.setdefault("OPENBLAS_THREAD_TIMEOUT", "4")
+
+import typer  # noqa: E402
 import typer.rich_utils
 from typer.exceptions import Abort, TyperException
 
