@@ -379,6 +379,20 @@ def test_remedies_reuse_the_spectrum_factor_and_agree(tmp_path):
     assert subsets[1].tolerance == 1e-5 and subsets[0].tolerance == 1e-5 * (1 - 1e-12)
 
 
+def test_a_target_other_than_the_caution_level_makes_its_own_factorization(tmp_path):
+    # The handed-on factorization is at the caution level (1e-5); at another target the
+    # remedies factor S themselves and agree with the dense path (reference: the dense path).
+    import auditor
+    from auditor.remedies.plan import RemedyOptions
+
+    xyz = _write_trimer_with_ghost(tmp_path / "g.xyz", 0.05)
+    opts = RemedyOptions(target=1e-4)
+    runs = [auditor.audit(xyz, "aug-cc-pvdz", ghost="10", spectrum_method=m, remedies=opts) for m in ("full", "large")]
+    subsets = [next(a for a in r.remedies.alternatives if a.kind == "cholesky_functions") for r in runs]
+    assert subsets[0].removed == subsets[1].removed > 0
+    assert subsets[0].tolerance == subsets[1].tolerance == 1e-4 * (1 - 1e-12)
+
+
 def test_a_start_block_that_misses_an_eigenvector_still_finds_it():
     # The Ritz start block from the pivoted count is a guess; a start exactly orthogonal to
     # the smallest eigenvector must not lose it (the little random added to every start
