@@ -10,7 +10,9 @@ bench_large.py: 92 functions per water), at about 3000, 6000 and 12000 functions
 Printed per size: the bare script's time, `auditor check` with default options (remedies,
 reports in all formats), `auditor check --no-remedies`, the ratios bare / check, and the peak
 memory of each in units of one copy of S (8 N^2 bytes). With --stages the command's stage
-timings (from the API's stage callback, in-process) are printed as well.
+timings (from the API's stage callback, in-process) are printed as well; this process sets
+OPENBLAS_THREAD_TIMEOUT=4 for them, as the command line does; the bare script and the
+commands run with the environment the benchmark was started with.
 """
 
 from __future__ import annotations
@@ -27,6 +29,11 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 import clusters  # noqa: E402
+
+# the in-process stage timings run as the command line does (auditor/cli/__init__.py);
+# every child process gets the environment this one was started with
+CHILD_ENV = dict(os.environ)
+os.environ.setdefault("OPENBLAS_THREAD_TIMEOUT", "4")
 
 BASIS = "aug-cc-pvtz"
 BARE = """
@@ -59,7 +66,8 @@ def timed(cmd: list[str]) -> tuple[float, int, str]:
         "print(dt, resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss * 1024, p.returncode); "
         "print(p.stdout[-2000:])"
     )
-    out = subprocess.run([sys.executable, "-c", wrapper, *cmd], capture_output=True, text=True, check=True).stdout
+    run = [sys.executable, "-c", wrapper, *cmd]
+    out = subprocess.run(run, capture_output=True, text=True, check=True, env=CHILD_ENV).stdout
     head, _, rest = out.partition("\n")
     seconds, rss, _code = head.split()
     return float(seconds), int(rss), rest
