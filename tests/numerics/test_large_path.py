@@ -405,3 +405,20 @@ def test_a_start_block_that_misses_an_eigenvector_still_finds_it():
     start = np.eye(lam.size)[:, 1:40]  # the eigenvectors after the smallest one
     values, _ = _smallest_eigenpairs(L, 0.0, 6, 1e-5, 200, 0, {}, start=start)
     assert np.allclose(values, lam[:6], rtol=1e-8, atol=0.0)
+
+
+def test_the_attempt_is_skipped_when_a_block_already_has_an_eigenvalue_below():
+    # Cauchy interlacing: an eigenvalue of a principal block below tau means one of S below
+    # tau (reference: numpy.linalg.eigvalsh); the count then comes from the pivoted
+    # factorization alone and equals the dense count.
+    from auditor.numerics.factored import _block_has_one_below
+    from auditor.numerics.spectrum import gershgorin_radii
+
+    S = overlap(TRIMER + [("ghost-O", (0.001, 0.0, 0.0))], "aug-cc-pvtz")
+    w = np.linalg.eigvalsh(S)
+    assert S.shape[0] >= 256 and _block_has_one_below(S.copy(), gershgorin_radii(S), 1e-5)
+    assert w[0] < 1e-5
+    info: dict = {}
+    spec = large_spectrum(S.copy(), 1e-5, info=info)
+    assert spec.counts_below["1e-05"] == int(np.searchsorted(w, 1e-5))
+    assert not _block_has_one_below(np.eye(300), np.zeros(300), 1e-5)  # nothing below: no claim
