@@ -28,7 +28,7 @@ from ..base.errors import ResourceError
 from .cholesky import FactorHandoff, pstrf_until_nonpositive, shifted_result
 from .inplace import _cholesky, _fortran_view, _ldl_negative_count, _solve_transposed_leading, _Triangles
 from .krylov import _largest_eigenvalue, _smallest_eigenpairs
-from .memory import DEFAULT_MAX_VECTORS
+from .memory import DEFAULT_MAX_VECTORS, _block_size
 from .spectrum import (
     COUNT_LEVELS,
     Spectrum,
@@ -76,15 +76,15 @@ def large_spectrum(
     stage = stage or _quiet
     n = S.shape[0]
     A, tau, t0 = _fortran_view(S), float(vector_level), time.perf_counter()
-    radii = gershgorin_radii(S)
-    bound = 1.0 - float(radii.max(initial=0.0))
+    radii = gershgorin_radii(S)  # their largest gives the Gershgorin bound; see _block_has_one_below
     stage("largest eigenvalue (Lanczos)")
     largest = _largest_eigenvalue(A)
     info["t_largest"] = time.perf_counter() - t0
 
     tri = _Triangles(A)
     try:
-        below_tau, factored_at_tau, start = _count_below(tri, tau, info, stage, handoff, radii)
+        widest = _block_size(min(n, max_vectors + GROUP_MARGIN), n)  # start block columns at most
+        below_tau, factored_at_tau, start = _count_below(tri, tau, info, stage, handoff, radii, widest)
         if not factored_at_tau:
             stage("Cholesky factor of S below its spectrum")
         factored_shift = _positive_definite_shift(tri, tau if factored_at_tau else None, largest, info)
@@ -104,7 +104,7 @@ def large_spectrum(
         tri.restore()
     info["t_total"] = time.perf_counter() - t0
     wanted = max(min(below_tau, max_vectors), 1)  # the cause vectors: those below tau, else the smallest group
-    spectrum = _assemble(values, vectors, largest, counts, bound, wanted)
+    spectrum = _assemble(values, vectors, largest, counts, 1.0 - float(radii.max(initial=0.0)), wanted)
     # exactly below_tau eigenvalues lie below tau, so the first one not computed is >= tau
     return replace(spectrum, beyond=tau if values.size >= below_tau else None)
 
@@ -152,9 +152,10 @@ def _count_below(
     stage: Callable[[str], None],
     handoff: FactorHandoff | None,
     radii: np.ndarray,
+    columns: int,
 ) -> tuple[int, bool, np.ndarray | None]:
     """Number of eigenvalues of S below ``tau``, whether S - tau*I was factored, and Ritz
-    vectors for the Krylov start block when the count made them.
+    vectors (at most ``columns``) for the Krylov start block when the count made them.
 
     A Cholesky attempt of S - tau*I decides whether there is any (skipped when a block of the
     most overlapping functions already has one, `_block_has_one_below`); when there are, a
@@ -169,7 +170,7 @@ def _count_below(
     if not factored:
         t1 = time.perf_counter()
         stage(f"pivoted Cholesky inertia of S - {tau:.0e} I")
-        below_tau, start = _pivoted_count(tri, tau, handoff)
+        below_tau, start = _pivoted_count(tri, tau, handoff, columns)
         info["t_inertia_tau"] = time.perf_counter() - t1
     info["below_vector_level"] = below_tau
     return below_tau, factored, start
@@ -188,9 +189,12 @@ def _block_has_one_below(A: np.ndarray, radii: np.ndarray, tau: float) -> bool:
     return scipy.linalg.lapack.dpotrf(block, lower=1, overwrite_a=1, clean=0)[1] != 0
 
 
-def _pivoted_count(tri: _Triangles, tau: float, handoff: FactorHandoff | None) -> tuple[int, np.ndarray | None]:
+def _pivoted_count(
+    tri: _Triangles, tau: float, handoff: FactorHandoff | None, columns: int
+) -> tuple[int, np.ndarray | None]:
     """Number of eigenvalues of S below ``tau`` from one pivoted Cholesky of S - tau*I, and
-    Ritz vectors of S for a start block (`_ritz_start`; None when no function is left).
+    up to ``columns`` Ritz vectors of S for a start block (`_ritz_start`; None when no
+    function is left, or too many for the start block to be worth its memory).
 
     It stops at its first pivot that is not positive, so its leading block is positive
     definite and, by Haynsworth's inertia additivity, S - tau*I has as many negative
@@ -210,31 +214,35 @@ def _pivoted_count(tri: _Triangles, tau: float, handoff: FactorHandoff | None) -
     rest = order[rank:]
     if rest.size == 0:
         return 0, None
-    # S[rest, rest] from the strict upper triangle (intact) and the saved diagonal
-    C = A[np.minimum.outer(rest, rest), np.maximum.outer(rest, rest)]
+    C = np.empty((rest.size, rest.size))
+    for r0 in range(0, rest.size, 512):  # S[rest, rest] from the strict upper triangle (intact)
+        rows = rest[r0 : r0 + 512]
+        C[r0 : r0 + 512] = A[np.minimum.outer(rows, rest), np.maximum.outer(rows, rest)]
     C[np.diag_indices_from(C)] = tri.diag[rest] - tau
     L21 = A[rank:, :rank]
     C -= L21 @ L21.T
-    return _ldl_negative_count(np.asfortranarray(C)), _ritz_start(A, order, rank, C)
+    count = _ldl_negative_count(np.asfortranarray(C))
+    # a start block of at most ``columns`` vectors, when the span is not much wider than that
+    return count, _ritz_start(A, order, rank, C, columns) if rest.size <= 4 * columns else None
 
 
-def _ritz_start(A: np.ndarray, order: np.ndarray, rank: int, C: np.ndarray) -> np.ndarray:
-    """Ritz vectors of S on the span of Z = P [-L11^-T L21^T; I], lowest first.
+def _ritz_start(A: np.ndarray, order: np.ndarray, rank: int, C: np.ndarray, columns: int) -> np.ndarray:
+    """The ``columns`` lowest Ritz vectors of S on the span of Z = P [-L11^-T L21^T; I].
 
     Z is the part of each function left that the kept ones do not reach in the metric of
     S - tau*I, so Z^T (S - tau*I) Z = C (the Schur complement) and the near-null space of S
     lies close to span(Z): a start block that saves the Krylov iteration a restart.
     """
-    n, m = A.shape[0], order.size - rank
+    n = A.shape[0]
     X = np.asfortranarray(A[rank:, :rank].T)
     _solve_transposed_leading(A, rank, X)  # X = L11^-T L21^T
     gram = X.T @ X
     gram[np.diag_indices_from(gram)] += 1.0  # Z^T Z
-    _, Y = scipy.linalg.eigh(C, gram)
-    Z = np.zeros((n, m))
-    Z[order[:rank]] = -X
-    Z[order[rank:], np.arange(m)] = 1.0
-    return Z @ Y
+    Y = scipy.linalg.eigh(C, gram)[1][:, :columns]
+    R = np.empty((n, Y.shape[1]))  # Z Y, without forming Z
+    R[order[:rank]] = -(X @ Y)
+    R[order[rank:]] = Y
+    return R
 
 
 def _positive_definite_shift(tri: _Triangles, factored: float | None, largest: float, info: dict[str, Any]) -> float:
