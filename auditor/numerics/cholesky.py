@@ -526,17 +526,9 @@ def smallest_eigenvalue(S: np.ndarray, idx: np.ndarray) -> float:
 
 
 def delete_from_factor(L: np.ndarray, drop: np.ndarray, room: int = 0) -> np.ndarray:
-    """A lower triangular F with F F^T = A[keep, keep], from the lower Cholesky factor L of
-    A = L L^T, where ``keep`` is every position not in ``drop`` (F's diagonal signs are
-    arbitrary, which no use of a factor here minds).
-
-    Only the rows from the first dropped position on change. With P the kept positions
-    after it and D the dropped ones, A[P, P] = L[P, :] L[P, :]^T less the dropped columns'
-    part, so F's trailing block is the R^T of the QR factorization of the
-    triangular-pentagonal [L[P, P]^T; L[P, D]^T] (LAPACK dtpqrt): about 2 |P|^2 |D| flops
-    against m^3 / 3 for a new factorization. F is the leading block of a new zeroed
-    column-major array with ``room`` more rows and columns, for `add_back` to grow in place.
-    """
+    """The factor `delete_in_place` makes (see there), built in a new zeroed column-major
+    array with ``room`` more rows and columns, for `add_back` to grow it in place; L is left
+    as it was (F is written where it goes: no moves)."""
     drop = np.unique(np.asarray(drop, dtype=np.int64))
     keep = np.setdiff1d(np.arange(L.shape[0]), drop)
     m = keep.size
@@ -547,20 +539,23 @@ def delete_from_factor(L: np.ndarray, drop: np.ndarray, room: int = 0) -> np.nda
         return F
     tail = keep[j0:]
     F[j0:, :j0] = L[tail, :j0]
-    upper = L[np.ix_(tail, tail)].T  # Fortran-ordered, as LAPACK works in place
-    extra = np.asfortranarray(L[np.ix_(tail, drop)].T)
-    upper, _, _, info = lapack.dtpqrt(0, min(32, drop.size), upper, extra, overwrite_a=1, overwrite_b=1)
-    if info != 0:
-        raise ValueError(f"dtpqrt failed (info {info})")
-    F[j0:, j0:] = upper.T
+    upper = L[np.ix_(tail, tail)].T  # Fortran-ordered: the R form LAPACK works on, in place
+    tpqrt_in_place(upper, np.asfortranarray(L[np.ix_(tail, drop)].T))
+    F[j0:, j0:] = np.triu(upper).T
     return F
 
 
 def delete_in_place(L: np.ndarray, drop: np.ndarray, chunk: int = 256) -> np.ndarray:
-    """`delete_from_factor` in L's own memory: the kept rows and columns move up and left,
-    the trailing block is re-factored there (dtpqrt on its mirror image), and the leading
-    m x m block of L, m the number kept, is returned. L must be column-major (or a leading
-    block of a column-major array); its other contents are lost. No new N x N array."""
+    """A lower triangular F with F F^T = A[keep, keep] from the lower Cholesky factor L of
+    A = L L^T (``keep``: every position not in ``drop``; F's diagonal signs are arbitrary),
+    made in L's own memory, which is lost: no new N x N array. L must be column-major (or a
+    leading block of a column-major array); F is its leading m x m block, m the number kept.
+
+    Only the rows from the first dropped position j0 on change. The kept rows and columns
+    move up and left; with P the kept positions after j0 and D the dropped ones, A[P, P] =
+    L[P, :] L[P, :]^T less the dropped columns' part, so F's trailing block is the R^T of the
+    QR factorization of the triangular-pentagonal [L[P, P]^T; L[P, D]^T] (LAPACK dtpqrt, on
+    the block's mirror image): about 2 |P|^2 |D| flops against m^3 / 3 anew."""
     drop = np.unique(np.asarray(drop, dtype=np.int64))
     if drop.size == 0:
         return L

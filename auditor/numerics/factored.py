@@ -26,7 +26,7 @@ import scipy.linalg
 
 from ..base.errors import ResourceError
 from .cholesky import FactorHandoff, pstrf_until_nonpositive, shifted_result
-from .inplace import _cholesky, _fortran_view, _ldl_negative_count, _solve_transposed_leading, _Triangles
+from .inplace import _cholesky, _fortran_view, _ldl_negative_count, _Triangles, solve_lower_view
 from .krylov import _largest_eigenvalue, _smallest_eigenpairs
 from .memory import DEFAULT_MAX_VECTORS, _block_size
 from .spectrum import (
@@ -235,7 +235,7 @@ def _ritz_start(A: np.ndarray, order: np.ndarray, rank: int, C: np.ndarray, colu
     """
     n = A.shape[0]
     X = np.asfortranarray(A[rank:, :rank].T)
-    _solve_transposed_leading(A, rank, X)  # X = L11^-T L21^T
+    solve_lower_view(A[:rank, :rank], X, transpose=True)  # X = L11^-T L21^T
     gram = X.T @ X
     gram[np.diag_indices_from(gram)] += 1.0  # Z^T Z
     Y = scipy.linalg.eigh(C, gram)[1][:, :columns]

@@ -175,12 +175,6 @@ class _Triangles:
             self.dirty = False
 
 
-def _solve_transposed_leading(A: np.ndarray, r: int, B: np.ndarray) -> None:
-    """B = L^-T B in place, L the lower triangle of the leading r x r block of the
-    Fortran-ordered A (no copy of the block)."""
-    solve_lower_view(A[:r, :r], B, transpose=True)
-
-
 def column_major(F: np.ndarray) -> bool:
     """Whether F is a column-major float64 matrix or a leading block of one (unit row stride)."""
     return F.dtype == np.float64 and F.ndim == 2 and F.strides[0] == 8 and F.strides[1] >= 8 * max(1, F.shape[0])

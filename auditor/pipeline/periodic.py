@@ -3,8 +3,6 @@ AuditResult the molecular path returns, with a ``periodic`` part (``AuditResult.
 
 from __future__ import annotations
 
-import hashlib
-import math
 from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Any
@@ -33,8 +31,8 @@ from ..remedies.canonical import Recommendation, advise, broken_geometry_advice
 from ..remedies.periodic import PeriodicPlan, PeriodicSetup, plan_periodic
 from ..remedies.plan import RemedyOptions
 from ..remedies.subset import check_target
-from .result import AuditResult, InputInfo, SpectrumInfo
-from .run import _default_threshold, input_info, make_spec
+from .result import AuditResult, InputInfo
+from .run import _default_threshold, input_info, make_spec, spectrum_info, with_digest
 
 HOW_TO = (
     "from pyscf.scf import hf; hf.overlap_zero_eigenvalue_threshold = {tau:.1e}  # before building the "
@@ -139,7 +137,7 @@ def audit_cell_prepared(
         verdict_reason=decision.reason,
         verdict_finding=decision.finding,
         policy=policy.as_dict(),
-        spectrum=_spectrum_info(spec, worst_values),
+        spectrum=spectrum_info(spec, "periodic", worst_values),
         findings=tuple(findings),
         causes=causes,
         recommendation=rec,
@@ -184,26 +182,11 @@ def setup(prep: PreparedCell) -> PeriodicSetup:
 
 def _basis_data(spec: BasisSpec, symbols: tuple[str, ...]) -> dict:
     records = [dict(basis_origin(spec.for_element(el), el, spec.source)) for el in sorted(set(symbols))]
-    joined = "".join(f"{r['element']}:{r['digest']};" for r in records)
-    return {"digest": hashlib.sha256(joined.encode("ascii")).hexdigest(), "elements": records}
+    return with_digest(records, None)
 
 
 def _input_info(prep: PreparedCell) -> InputInfo:
     return input_info(prep.crystal, prep.spec, prep.table, _basis_data(prep.spec, prep.crystal.symbols), 0, None)
-
-
-def _spectrum_info(spec: Spectrum, worst_values: np.ndarray) -> SpectrumInfo:
-    cond = spec.condition_number
-    return SpectrumInfo(
-        smallest=spec.smallest,
-        largest=spec.largest,
-        condition_number=cond,
-        log10_condition=math.log10(cond) if cond else None,
-        counts_below=dict(spec.counts_below),
-        gershgorin_bound=spec.gershgorin_bound,
-        method="periodic",
-        eigenvalues=tuple(float(v) for v in worst_values),
-    )
 
 
 def _kpoint_rows(prep: PreparedCell) -> list[dict]:

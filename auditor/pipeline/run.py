@@ -178,7 +178,7 @@ def audit_core(
         verdict_reason=decision.reason,
         verdict_finding=decision.finding,
         policy=policy.as_dict(),
-        spectrum=_spectrum_info(spec),
+        spectrum=spectrum_info(spec),
         findings=tuple(findings),
         causes=causes,
         recommendation=recommendation,
@@ -315,16 +315,27 @@ def basis_data(prep: Prepared) -> dict:
             }
             for el in elements
         ]
-        return _with_digest(records, "pyscf Mole")
+        return with_digest(records, "pyscf Mole")
     records = [dict(basis_origin(prep.spec.for_element(el), el, prep.spec.source)) for el in elements]
     carried = prep.molecule.basis
     named_by = carried.origin if carried is not None and prep.spec.default == carried.name else "given"
-    return _with_digest(records, named_by)
+    return with_digest(records, named_by)
 
 
-def _with_digest(records: list[dict], named_by: str) -> dict:
+def with_digest(records: list[dict], named_by: str | None) -> dict:
+    """basis_data from per-element records: one digest over them all, and where the basis
+    was named (``named_by``; no "from" key when None)."""
     joined = "".join(f"{r['element']}:{r['digest']};" for r in records)
-    return {"digest": hashlib.sha256(joined.encode("ascii")).hexdigest(), "from": named_by, "elements": records}
+    digest = hashlib.sha256(joined.encode("ascii")).hexdigest()
+    return (
+        {"digest": digest, "elements": records}
+        if named_by is None
+        else {
+            "digest": digest,
+            "from": named_by,
+            "elements": records,
+        }
+    )
 
 
 def _carried_basis_data(mol: Molecule, data: FileBasis, elements: list[str]) -> dict:
@@ -338,10 +349,12 @@ def _carried_basis_data(mol: Molecule, data: FileBasis, elements: list[str]) -> 
             record["sha256"] = data.sha256
         record["digest"] = shells_digest(sets[0] if len(sets) == 1 else tuple(sets))
         records.append(record)
-    return _with_digest(records, data.origin)
+    return with_digest(records, data.origin)
 
 
-def _spectrum_info(spec: Spectrum) -> SpectrumInfo:
+def spectrum_info(spec: Spectrum, method: str | None = None, values: np.ndarray | None = None) -> SpectrumInfo:
+    """The report's spectrum part; ``method`` and ``values`` replace the spectrum's own
+    (periodic audits report "periodic" and the worst k-point's eigenvalues)."""
     cond = spec.condition_number
     return SpectrumInfo(
         smallest=spec.smallest,
@@ -350,8 +363,8 @@ def _spectrum_info(spec: Spectrum) -> SpectrumInfo:
         log10_condition=math.log10(cond) if cond else None,
         counts_below=dict(spec.counts_below),
         gershgorin_bound=spec.gershgorin_bound,
-        method=spec.method,
-        eigenvalues=tuple(float(v) for v in spec.values),
+        method=method or spec.method,
+        eigenvalues=tuple(float(v) for v in (spec.values if values is None else values)),
     )
 
 

@@ -15,6 +15,8 @@ import json
 import os
 import socket
 import sqlite3
+import subprocess
+import sys
 import threading
 from collections.abc import Callable
 from dataclasses import dataclass, field
@@ -1342,6 +1344,32 @@ API_CASES: list[ApiCase] = [
 ]
 
 API_CASES_BY_ID = {c.id: c for c in API_CASES}
+
+
+LAUNCH = Path(__file__).with_name("launch.py")
+
+
+def launch(
+    args: list[str], timeout: float, cwd: Path | None = None, env: dict | None = None
+) -> subprocess.CompletedProcess | None:
+    """Run launch.py with ``args`` in a fresh process; None when it still runs after ``timeout`` s."""
+    try:
+        return subprocess.run(
+            [sys.executable, str(LAUNCH), *args],
+            cwd=cwd,
+            capture_output=True,
+            text=True,
+            timeout=timeout,
+            stdin=subprocess.DEVNULL,
+            env=env,
+        )
+    except subprocess.TimeoutExpired:
+        return None
+
+
+def cli_args(case: Case) -> list[str]:
+    """launch.py's arguments for a command-line case (its patch first)."""
+    return ["cli", *(["--patch", case.patch] if case.patch else []), *case.args]
 
 
 def run_api_case(case: ApiCase, folder: Path) -> str:

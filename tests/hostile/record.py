@@ -7,7 +7,6 @@ line per case: id, exit code (or exception) and the first line of its message.
 from __future__ import annotations
 
 import os
-import subprocess
 import sys
 import tempfile
 from pathlib import Path
@@ -16,8 +15,6 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 sys.path.insert(1, str(Path(__file__).resolve().parents[1]))
 
 import corpus  # noqa: E402
-
-LAUNCH = Path(__file__).with_name("launch.py")
 
 
 def _first_line(text: str) -> str:
@@ -33,32 +30,15 @@ def _cli(case: corpus.Case, folder: Path) -> str:
     corpus.write_files(case, folder)
     if case.id in corpus.LIVE:
         case = corpus.LIVE[case.id](case)
-    patch = ["--patch", case.patch] if case.patch else []
-    try:
-        res = subprocess.run(
-            [sys.executable, str(LAUNCH), "cli", *patch, *case.args],
-            cwd=folder,
-            capture_output=True,
-            text=True,
-            timeout=60,
-            stdin=subprocess.DEVNULL,
-            env={**os.environ, "XDG_CACHE_HOME": str(folder / "xdg")},
-        )
-    except subprocess.TimeoutExpired:
+    res = corpus.launch(corpus.cli_args(case), 60, folder, {**os.environ, "XDG_CACHE_HOME": str(folder / "xdg")})
+    if res is None:
         return "hang (killed after 60 s)\t"
     return f"exit {res.returncode}\t{_first_line(res.stderr + res.stdout)}"
 
 
 def _api(case: corpus.ApiCase, folder: Path) -> str:
-    try:
-        res = subprocess.run(
-            [sys.executable, str(LAUNCH), "api", case.id, str(folder)],
-            capture_output=True,
-            text=True,
-            timeout=60,
-            stdin=subprocess.DEVNULL,
-        )
-    except subprocess.TimeoutExpired:
+    res = corpus.launch(["api", case.id, str(folder)], 60)
+    if res is None:
         return "hang (killed after 60 s)\t"
     return "\t" + _first_line(res.stdout + res.stderr)
 

@@ -5,7 +5,6 @@ or option; FIFO, device and hang cases run in a fresh process with a time-out.""
 from __future__ import annotations
 
 import os
-import subprocess
 import sys
 from pathlib import Path
 
@@ -14,7 +13,6 @@ import pytest
 
 pytestmark = pytest.mark.slow  # every test here runs whole auditor processes
 
-LAUNCH = Path(__file__).with_name("launch.py")
 #: seconds a case run in its own process may take (the import of pyscf is most of it)
 TIME_OUT = 90
 
@@ -42,18 +40,8 @@ def _run_inline(case: corpus.Case, folder: Path, monkeypatch, capsys) -> tuple[i
 
 
 def _run_alone(case: corpus.Case, folder: Path) -> tuple[int, str, str]:
-    patch = ["--patch", case.patch] if case.patch else []
-    try:
-        res = subprocess.run(
-            [sys.executable, str(LAUNCH), "cli", *patch, *case.args],
-            cwd=folder,
-            capture_output=True,
-            text=True,
-            timeout=TIME_OUT,
-            stdin=subprocess.DEVNULL,
-            env={**os.environ, "COLUMNS": "80"},
-        )
-    except subprocess.TimeoutExpired:
+    res = corpus.launch(corpus.cli_args(case), TIME_OUT, folder, {**os.environ, "COLUMNS": "80"})
+    if res is None:
         pytest.fail(f"{case.id}: still running after {TIME_OUT} s (it should be refused at once)")
     return res.returncode, res.stdout, res.stderr
 
@@ -74,15 +62,8 @@ def test_command_line_case(case, tmp_path, monkeypatch, capsys):
 @pytest.mark.parametrize("case", corpus.API_CASES, ids=lambda c: c.id)
 def test_api_case(case, tmp_path):
     if case.alone:
-        try:
-            res = subprocess.run(
-                [sys.executable, str(LAUNCH), "api", case.id, str(tmp_path)],
-                capture_output=True,
-                text=True,
-                timeout=TIME_OUT,
-                stdin=subprocess.DEVNULL,
-            )
-        except subprocess.TimeoutExpired:
+        res = corpus.launch(["api", case.id, str(tmp_path)], TIME_OUT)
+        if res is None:
             pytest.fail(f"{case.id}: still running after {TIME_OUT} s")
         got = res.stdout.strip().splitlines()[-1] if res.stdout.strip() else res.stderr[-500:]
     else:
