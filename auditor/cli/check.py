@@ -7,6 +7,7 @@ from typing import Annotated
 
 import typer
 
+from ..base.defaults import TRIAL_MAX_FUNCTIONS, TRIAL_TIME_LIMIT
 from ..base.errors import EXIT_USAGE, AuditorError
 from . import options as o
 from .console import error_line, fail, out, stage_display
@@ -51,8 +52,8 @@ def check(
         ),
     ] = False,
     trial_scf: o.TrialScf = None,
-    trial_max_functions: o.TrialMaxFunctions = 400,
-    trial_seconds: o.TrialSeconds = 900.0,
+    trial_max_functions: o.TrialMaxFunctions = TRIAL_MAX_FUNCTIONS,
+    trial_seconds: o.TrialSeconds = TRIAL_TIME_LIMIT,
     no_remedies: Annotated[
         bool,
         typer.Option(

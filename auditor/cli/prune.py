@@ -7,6 +7,7 @@ from typing import Annotated
 
 import typer
 
+from ..base.defaults import TRIAL_MAX_FUNCTIONS, TRIAL_TIME_LIMIT
 from ..base.errors import AuditorError, UsageError
 from . import options as o
 from .console import fail, out
@@ -47,8 +48,8 @@ def prune(
         ),
     ] = None,
     trial_scf: o.TrialScf = None,
-    trial_max_functions: o.TrialMaxFunctions = 400,
-    trial_seconds: o.TrialSeconds = 900.0,
+    trial_max_functions: o.TrialMaxFunctions = TRIAL_MAX_FUNCTIONS,
+    trial_seconds: o.TrialSeconds = TRIAL_TIME_LIMIT,
     kmesh: o.KMesh = None,
     precision: o.Precision = None,
     quiet: o.Quiet = False,

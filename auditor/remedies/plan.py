@@ -50,7 +50,7 @@ from .shells import (
 )
 from .subset import TARGET_SLACK, Selection, check_atoms_not_emptied, check_target
 from .symmetry import SYMMETRY_TOLERANCE
-from .trial_scf import TIME_LIMIT, Progress, check_method, trial_scf
+from .trial_scf import MAX_FUNCTIONS, TIME_LIMIT, Progress, check_method, trial_scf
 
 __all__ = [
     "WHOLE_SHELL_RULE",
@@ -557,7 +557,7 @@ class RemedyOptions:
 
     target: float | None = None
     trial_scf: str | None = None
-    trial_max_functions: int = 400
+    trial_max_functions: int = MAX_FUNCTIONS
     trial_time_limit: float = TIME_LIMIT
     force: bool = False
     #: called after every trial-SCF cycle with {basis, cycle, energy, seconds} (the command

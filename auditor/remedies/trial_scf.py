@@ -13,6 +13,7 @@ import time
 from collections.abc import Callable
 from typing import TYPE_CHECKING, Any
 
+from ..base.defaults import TRIAL_MAX_FUNCTIONS, TRIAL_TIME_LIMIT
 from ..base.errors import UsageError
 from ..inputs.pruned import load_pruned_doc
 from .canonical import orthogonalizer
@@ -21,12 +22,8 @@ from .prepared import PreparedGeometry
 if TYPE_CHECKING:
     from pyscf import gto
 
-MAX_FUNCTIONS = 400
-#: seconds per SCF run. Measured (benchmarks/bench_trial_scf.py, docs/benchmarks.md): near the
-#: size limit a run took up to 357 s (9 waters in aug-cc-pVDZ, 369 functions, HF) and 309 s
-#: (pyridine in aug-cc-pVTZ, 391 functions, HF) on a shared two-core machine; pyscf computes the
-#: integrals anew every cycle above about 250 functions (direct SCF), so time grows fast with size.
-TIME_LIMIT = 900.0
+MAX_FUNCTIONS = TRIAL_MAX_FUNCTIONS
+TIME_LIMIT = TRIAL_TIME_LIMIT
 HF_NAMES = ("hf", "scf", "rhf", "uhf")
 
 
