@@ -13,7 +13,7 @@ import scipy.sparse.linalg
 from scipy.linalg import lapack
 
 from ..base.errors import InputError, UsageError
-from .inplace import column_major, mirror_triangle, solve_lower_view, tpqrt_in_place
+from .inplace import _cholesky, column_major, gather_block, mirror_triangle, solve_lower_view, tpqrt_in_place
 from .krylov import InverseSolver, _smallest_eigenpairs, factor_solver
 
 #: Largest deviation of a diagonal element from 1 that is accepted as "unit diagonal".
@@ -454,7 +454,7 @@ class SharedCore:
 
     core: np.ndarray  # ascending
     rest: np.ndarray  # every other function, ascending
-    L: np.ndarray  # lower factor of S[core, core], column-major
+    L: np.ndarray  # lower factor of S[core, core] in its lower triangle, column-major
     W: np.ndarray  # L^-1 S[core, rest]
     schur: np.ndarray  # S[rest, rest] - W^T W, its upper triangle (the lower one is stale)
 
@@ -463,17 +463,28 @@ def shared_core(S: np.ndarray, core: np.ndarray) -> SharedCore | None:
     """The `SharedCore` of ``S`` for ``core``; None when S[core, core] is not positive definite."""
     core = np.unique(core)
     rest = np.setdiff1d(np.arange(S.shape[0]), core)
-    try:  # the transpose of the C-ordered gathered block is the Fortran-ordered same matrix
-        L = scipy.linalg.cholesky(S[np.ix_(core, core)].T, lower=True, overwrite_a=True, check_finite=False)
-    except np.linalg.LinAlgError:
+    # S is symmetric: the transpose of a C-ordered gathered block is the Fortran-ordered
+    # block LAPACK and BLAS work on in place
+    L = gather_block(S, core, core).T
+    if _cholesky(L) != 0:  # its strict upper triangle keeps S's values (never read)
         return None
-    W = np.asfortranarray(S[np.ix_(core, rest)])
+    W = gather_block(S, rest, core).T
     solve_lower_view(L, W)
     # S[rest, rest] - W^T W: dsyrk forms the upper triangle only (half a product's flops);
     # its transpose, lower, is all that the Cholesky of a Schur block reads
-    schur = S[np.ix_(rest, rest)].T
+    schur = gather_block(S, rest, rest).T
     schur = scipy.linalg.blas.dsyrk(-1.0, W, beta=1.0, c=schur, trans=1, lower=0, overwrite_c=1)
     return SharedCore(core, rest, L, W, schur)
+
+
+def core_solver(shared: SharedCore) -> InverseSolver | None:
+    """The `InverseSolver` of all of S in the order (core, rest): the shared factor completed
+    by the Cholesky factor of the whole Schur complement (which ``shared`` keeps); None when
+    that is not positive definite to rounding."""
+    T = np.asfortranarray(shared.schur.T)  # a copy: schur's upper triangle as T's lower one
+    if _cholesky(T) != 0:
+        return None
+    return _core_solver(shared.L, shared.W, T)
 
 
 def smallest_with_core(idx: np.ndarray, shared: SharedCore) -> float | None:
@@ -588,12 +599,14 @@ def deletion_is_cheaper(m: int, drop: np.ndarray) -> bool:
 
 
 class FactorHandoff:
-    """A shift-pivoted factorization (`shifted_pivoted_cholesky`) made by one step (the
-    spectrum's count below a level) for a later one (the remedies' function subset at that
-    level), which takes it once: its factor is one N x N array, owned by whoever holds it."""
+    """Factorizations made by one step (the large spectrum) for a later one (the remedies),
+    which takes each once: the shift-pivoted factorization of S - level*I
+    (`shifted_pivoted_cholesky`, the function subset at that level; its factor is one N x N
+    array) and the `SharedCore` of the non-diffuse functions (the diffuse options)."""
 
     def __init__(self) -> None:
         self._result: CholeskyResult | None = None
+        self._core: SharedCore | None = None
 
     def give(self, result: CholeskyResult) -> None:
         self._result = result
@@ -602,3 +615,15 @@ class FactorHandoff:
         """The factorization (its shift is its ``tol``), if any; the handoff is empty afterwards."""
         result, self._result = self._result, None
         return result
+
+    def give_core(self, shared: SharedCore) -> None:
+        self._core = shared
+
+    def take_core(self) -> SharedCore | None:
+        """The `SharedCore`, if any; it is no longer held here afterwards."""
+        shared, self._core = self._core, None
+        return shared
+
+    def release(self) -> None:
+        """Drop whatever is still held (when no remedy will take it)."""
+        self._result, self._core = None, None

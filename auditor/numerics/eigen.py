@@ -20,6 +20,7 @@ def compute_spectrum(
     method: str = "full",
     stage: Callable[[str], None] | None = None,
     keep_factor: bool = False,
+    core: np.ndarray | None = None,
 ) -> Spectrum:
     """Spectrum of the unit-diagonal overlap matrix ``S``.
 
@@ -28,13 +29,16 @@ def compute_spectrum(
     restored), or "auto" (large from ``auditor.numerics.memory.CROSSOVER_N`` functions
     on, or when the full path would not fit in memory). ``stage`` is told each step's name.
     With ``keep_factor`` the large path's pivoted factorization of S - vector_level*I, when it
-    makes one, stays in the spectrum's ``handoff`` for the remedies (one N x N array).
+    makes one, stays in the spectrum's ``handoff`` for the remedies (one N x N array), and
+    so does the `auditor.numerics.cholesky.SharedCore` of ``core`` (the non-diffuse
+    functions, when given) through which that path then applies S^-1.
     """
     method = resolve_method(S.shape[0], method, s_built=True)
     check_memory(S.shape[0], method, s_built=True)  # ResourceError instead of being killed
     if method == "large":
         handoff = FactorHandoff() if keep_factor else None
-        return replace(large_spectrum(S, vector_level, stage=stage, handoff=handoff), handoff=handoff)
+        spectrum = large_spectrum(S, vector_level, stage=stage, handoff=handoff, core=core if keep_factor else None)
+        return replace(spectrum, handoff=handoff)
     if stage:
         stage("eigenvalues (dense)")
     return full_spectrum(S, vector_level)

@@ -10,7 +10,9 @@ second copy:
   functions it leaves, count them exactly (Sylvester's law of inertia, Haynsworth's
   additivity); that factorization is also the remedies' function subset at tau;
 * restarted block Krylov iteration with Rayleigh-Ritz on (S - sigma*I)^-1, applied
-  through a Cholesky factor (BLAS-3 solves), gives the smallest eigenpairs;
+  through a Cholesky factor (BLAS-3 solves), gives the smallest eigenpairs; when the
+  remedies follow, the factor is made in blocks, non-diffuse functions first, in new
+  arrays that the remedies' diffuse options reuse (`auditor.numerics.cholesky.SharedCore`);
 * Lanczos (ARPACK) on S gives the largest eigenvalue.
 """
 
@@ -18,16 +20,16 @@ from __future__ import annotations
 
 import time
 from collections.abc import Callable
-from dataclasses import replace
+from dataclasses import dataclass, replace
 from typing import Any
 
 import numpy as np
 import scipy.linalg
 
 from ..base.errors import ResourceError
-from .cholesky import FactorHandoff, pstrf_until_nonpositive, shifted_result
+from .cholesky import FactorHandoff, core_solver, pstrf_until_nonpositive, shared_core, shifted_result
 from .inplace import _cholesky, _fortran_view, _ldl_negative_count, _Triangles, solve_lower_view
-from .krylov import _largest_eigenvalue, _smallest_eigenpairs
+from .krylov import InverseSolver, _largest_eigenvalue, _smallest_eigenpairs, factor_solver
 from .memory import DEFAULT_MAX_VECTORS, _block_size
 from .spectrum import (
     COUNT_LEVELS,
@@ -59,6 +61,7 @@ def large_spectrum(
     info: dict[str, Any] | None = None,
     stage: Callable[[str], None] | None = None,
     handoff: FactorHandoff | None = None,
+    core: np.ndarray | None = None,
 ) -> Spectrum:
     """Spectrum of unit-diagonal S without a full eigendecomposition.
 
@@ -67,10 +70,11 @@ def large_spectrum(
     where the degenerate group at the cut ends), m the exact number below ``vector_level``
     capped at ``max_vectors``. A count at a decade is reported only when established
     (Cholesky success, inertia, or all eigenvalues below it computed), else None;
-    ``exact_counts`` adds one LDL^T per missing decade. ``tol`` bounds the relative residual of the Ritz pairs of
-    (S - sigma I)^-1 (eigenvalue errors are about its square); ``info`` receives
-    timings and iteration counts; ``stage`` is told the name of each step as it starts;
-    ``handoff`` receives the pivoted factorization of S - vector_level*I when one is made.
+    ``exact_counts`` adds one LDL^T per missing decade. ``tol`` bounds the relative residual
+    of the Ritz pairs of (S - sigma I)^-1 (eigenvalue errors are about its square); ``info``
+    receives timings and counts; ``stage`` is told the name of each step as it starts.
+    ``handoff`` receives the pivoted factorization of S - vector_level*I when one is made,
+    and, with ``core`` (non-diffuse functions), the `SharedCore` that then applies S^-1.
     """
     info = {} if info is None else info
     stage = stage or _quiet
@@ -85,19 +89,16 @@ def large_spectrum(
     try:
         widest = _block_size(min(n, max_vectors + GROUP_MARGIN), n)  # start block columns at most
         below_tau, factored_at_tau, start = _count_below(tri, tau, info, stage, handoff, radii, widest)
-        if not factored_at_tau:
-            stage("Cholesky factor of S below its spectrum")
-        factored_shift = _positive_definite_shift(tri, tau if factored_at_tau else None, largest, info)
+        inverse = _inverse(tri, tau if factored_at_tau else None, largest, info, handoff, core, stage)
         k = min(n, max(min(below_tau, max_vectors), min_vectors))
-        # a few pairs past k show where the degenerate group at the cut ends
-        stage(f"{min(n, k + GROUP_MARGIN)} smallest eigenpairs (block Krylov)")
-        want = min(n, k + GROUP_MARGIN)
-        values, vectors = _sorted_eigenpairs(tri, factored_shift, want, tol, maxiter, seed, info, start)
+        want = min(n, k + GROUP_MARGIN)  # a few past k show where the group at the cut ends
+        stage(f"{want} smallest eigenpairs (block Krylov)")
+        values, vectors = _sorted_eigenpairs(inverse, want, tol, maxiter, seed, info, start)
         if start is not None and np.searchsorted(values, tau) < min(below_tau, want):
             # fewer Ritz values below tau than the inertia counts: start again at random
-            values, vectors = _sorted_eigenpairs(tri, factored_shift, want, tol, maxiter, seed, info, None)
+            values, vectors = _sorted_eigenpairs(inverse, want, tol, maxiter, seed, info, None)
         info["ritz_below_vector_level"] = int(np.searchsorted(values, tau))
-        counts = _established_counts(values, tau, below_tau, factored_shift, all_below_tau=k >= below_tau)
+        counts = _established_counts(values, tau, below_tau, inverse.shift, all_below_tau=k >= below_tau)
         if exact_counts:
             _add_exact_counts(tri, counts, info)
     finally:
@@ -245,22 +246,59 @@ def _ritz_start(A: np.ndarray, order: np.ndarray, rank: int, C: np.ndarray, colu
     return R
 
 
-def _positive_definite_shift(tri: _Triangles, factored: float | None, largest: float, info: dict[str, Any]) -> float:
-    """A shift whose Cholesky factor of S - shift*I is in the lower triangle of ``tri``.
+@dataclass(frozen=True)
+class _Inverse:
+    """(S - shift*I)^-1 applied by ``solver``, in S's own order, or in ``order`` (a
+    symmetric permutation of S) when given."""
 
-    ``factored`` when that factor is already there (the shift `_count_below` factored),
-    else a shift below the spectrum, factored here.
-    """
+    shift: float
+    solver: InverseSolver
+    order: np.ndarray | None = None
+
+
+def _inverse(
+    tri: _Triangles,
+    factored: float | None,
+    largest: float,
+    info: dict[str, Any],
+    handoff: FactorHandoff | None,
+    core: np.ndarray | None,
+    stage: Callable[[str], None],
+) -> _Inverse:
+    """The inverse of S - shift*I for the Krylov iteration: through the factor of S - tau*I
+    already in ``tri`` (``factored`` = tau), through the `SharedCore` of ``core`` (then
+    given to ``handoff``), or through the Cholesky factor of S below its spectrum."""
     t1 = time.perf_counter()
-    shift = factored if factored is not None else _factor_below_spectrum(tri, largest)
+    if factored is None:
+        stage("Cholesky factor of S below its spectrum")
+    inverse = _core_inverse(tri, handoff, core) if factored is None else None
+    if inverse is None:
+        shift = factored if factored is not None else _factor_below_spectrum(tri, largest)
+        inverse = _Inverse(shift, factor_solver(tri.A))
     info["t_cholesky_shift"] = time.perf_counter() - t1
-    info["shift"] = shift
-    return shift
+    info["shift"] = inverse.shift
+    info["inverse"] = "core blocks" if inverse.order is not None else "cholesky"
+    return inverse
+
+
+def _core_inverse(tri: _Triangles, handoff: FactorHandoff | None, core: np.ndarray | None) -> _Inverse | None:
+    """S^-1 through the `SharedCore` of ``core`` (given to ``handoff``); None without a
+    handoff to take it, when ``core`` is empty or everything, or when S is not positive
+    definite to rounding that way."""
+    n = tri.A.shape[0]
+    if handoff is None or core is None or not 0 < np.unique(core).size < n:
+        return None
+    tri.restore()  # S whole again: the core's blocks are gathered from it
+    shared = shared_core(tri.A.T, core)  # C-ordered S: its rows are gathered whole
+    solver = None if shared is None else core_solver(shared)
+    if shared is None or solver is None:
+        return None
+    handoff.give_core(shared)
+    return _Inverse(0.0, solver, np.concatenate((shared.core, shared.rest)))
 
 
 def _sorted_eigenpairs(
-    tri: _Triangles,
-    shift: float,
+    inverse: _Inverse,
     k: int,
     tol: float,
     maxiter: int,
@@ -268,21 +306,28 @@ def _sorted_eigenpairs(
     info: dict[str, Any],
     start: np.ndarray | None,
 ) -> tuple[np.ndarray, np.ndarray]:
-    """The k smallest eigenpairs, ascending, from the factor of S - shift*I in ``tri``
-    (``start``: approximate eigenvectors for the start block, or None).
+    """The k smallest eigenpairs, ascending, through ``inverse`` (``start``: approximate
+    eigenvectors for the start block, or None).
 
     Raises ResourceError when the Ritz pairs did not converge to ``tol``.
     """
     t1 = time.perf_counter()
-    values, vectors = _smallest_eigenpairs(tri.A, shift, k, tol, maxiter, seed, info, start)
+    perm = inverse.order
+    if perm is not None and start is not None:
+        start = start[perm]
+    values, vectors = _smallest_eigenpairs(inverse.solver, inverse.shift, k, tol, maxiter, seed, info, start)
     info["t_eigenpairs"] = time.perf_counter() - t1
     if not info["residual"] <= tol:  # unconverged Ritz pairs would be reported as eigenpairs
-        n = tri.A.shape[0]
+        n = inverse.solver.size
         raise ResourceError(
             f"the large spectrum path did not converge in {maxiter} iterations for {n} basis functions "
             f"(residual {info['residual']:.1e} > {tol:.0e}); --spectrum full computes every eigenvalue if S fits"
         )
     order = np.argsort(values, kind="stable")
+    if perm is not None:  # rows back to S's own order, columns sorted
+        unpermuted = np.empty_like(vectors)
+        unpermuted[perm] = vectors[:, order]
+        return values[order], unpermuted
     if np.any(order != np.arange(order.size)):  # usually sorted already: no copy then
         values, vectors = values[order], vectors[:, order]
     return values, vectors

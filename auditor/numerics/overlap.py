@@ -49,6 +49,10 @@ class FunctionTable:
     def func_atom(self) -> np.ndarray:
         return self.shell_atom[self.func_shell]
 
+    @property
+    def func_diffuse(self) -> np.ndarray:
+        return self.shell_diffuse[self.func_shell]
+
     def function_label(self, i: int) -> str:
         s = int(self.func_shell[i])
         a = int(self.shell_atom[s])

@@ -161,7 +161,8 @@ def audit_core(
     when memory allows it."""
     stage = stage or _quiet
     keep = for_remedies and remedies_fit(prep.table.n_functions)
-    spec = compute_spectrum(prep.S, policy.caution, spectrum_method, stage, keep_factor=keep)
+    core = np.flatnonzero(~prep.table.func_diffuse)  # the remedies' diffuse options keep these
+    spec = compute_spectrum(prep.S, policy.caution, spectrum_method, stage, keep_factor=keep, core=core)
     stage("findings and causes")
     causes = attribute_causes(spec.vectors, prep.table, below=policy.caution, n_below=spec.count_below(policy.caution))
     findings = _findings(prep, spec, policy, causes)
@@ -243,9 +244,9 @@ def remedies_of(
         k, decision = broken[0]
         where = f"frame {cores[k].result.input.frame} of the file is" if len(cores) > 1 else "the geometry is"
         why = f"{where} broken ({decision.finding}): fix the geometry first; no remedy is offered for it"
-        for c in cores:  # release a factor kept for them
+        for c in cores:  # release the factors kept for them
             if c.spectrum.handoff is not None:
-                c.spectrum.handoff.take()
+                c.spectrum.handoff.release()
         return no_remedies(cores, target, why)
     rec = recommendation or cores[0].result.recommendation
     if stage:

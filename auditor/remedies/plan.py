@@ -162,12 +162,12 @@ def diffuse_element_options(
     Ss = [S] if isinstance(S, np.ndarray) else list(S)
     out = []
     func_el = np.array([str(table.elements[a - 1]) for a in table.func_atom])
-    func_dif = table.shell_diffuse[table.func_shell]
+    func_dif = table.func_diffuse
     elements = sorted(set(func_el[func_dif]))
-    if cache is not None and len(Ss) == 1 and len(elements) > 1 and verify_mode(table.n_functions) == "lanczos":
+    if cache is not None and len(Ss) == 1:
         # every option (and a published relative without diffuse shells) keeps the
-        # non-diffuse functions: factor them once (`SharedCore`)
-        cache[("core", id(Ss[0]))] = shared_core(Ss[0], np.flatnonzero(~func_dif))
+        # non-diffuse functions: factor them once (`SharedCore`), or use the spectrum's
+        _share_core(cache, Ss[0], np.flatnonzero(~func_dif), len(elements) > 1)
     for el in elements:
         drop = func_dif & (func_el == el)
         kept = np.flatnonzero(~drop)
@@ -180,6 +180,18 @@ def diffuse_element_options(
         names = sorted({table.shell_name[s][-1] + f" {table.shell_exponent[s]:.4g}" for s in shells})
         out.append(DiffuseOption(str(el), int(drop.sum()), len(shells), names, low, bool(low >= target)))
     return out
+
+
+def _share_core(cache: dict, S: np.ndarray, core: np.ndarray, worth_it: bool) -> None:
+    """Keep in ``cache`` the `SharedCore` of S for ``core``: the one already there if it is for
+    those functions, else a new one when ``worth_it`` (several options) and S is large."""
+    key = ("core", id(S))
+    held = cache.get(key)
+    if held is not None and np.array_equal(held.core, core):
+        return
+    cache.pop(key, None)
+    if worth_it and verify_mode(S.shape[0]) == "lanczos":
+        cache[key] = shared_core(S, core)
 
 
 def alternative(
@@ -505,11 +517,12 @@ def plan_frames(
     plan = RemedyPlan(target=target, needed=bool(min(s.smallest for s in spectra) < target), lower_bound=at.removed)
     if len(fr.preps) > 1:
         plan.deciding_frame = fr.worst.molecule.frame + 1
-    if not plan.needed and not force:
-        return plan
-    # the spectrum's factorization of S - target*I, when it made one (the same for one frame)
+    # the spectrum's factorization of S - target*I and shared core, when it made them (one frame)
     handoff = fr.spectra[0].handoff if len(fr.spectra) == 1 else None
     pivoted = handoff.take() if handoff is not None else None
+    shared = handoff.take_core() if handoff is not None else None
+    if not plan.needed and not force:
+        return plan
     problem = _memory_problem(table.n_functions, len(fr.preps))
     if problem:
         plan.problems.append(problem)
@@ -518,14 +531,22 @@ def plan_frames(
     atoms = table.func_atom - 1
     if recommendation.threshold is not None:  # none is advised for a broken geometry
         plan.alternatives.append(_canonical(at, target))
+    # the diffuse options and the named basis go first, so that the shared core they use is
+    # released before the function subset works in its factor; they are listed after it
+    first = len(plan.alternatives)
+    cache: dict = {} if shared is None else {("core", id(fr.worst_first[0])): shared}
+    del shared
+    _add_diffuse_options(plan, fr.worst_first, table, cache)
+    _add_named_basis(plan, fr, table.n_functions, cache)
+    del cache
+    later = plan.alternatives[first:]
+    del plan.alternatives[first:]
     _add_function_subset(plan, fr.worst_first, atoms, mode, pivoted)
     del pivoted  # its factor now lives in plan.functions
     _add_shell_prunings(plan, fr, atoms, mode)
     if plan.functions is not None:  # its factor served the shell prunings: release it
         plan.functions = replace(plan.functions, factor=None)
-    cache: dict = {}  # smallest eigenvalues of kept sets that several remedies share
-    _add_diffuse_options(plan, fr.worst_first, table, cache)
-    _add_named_basis(plan, fr, table.n_functions, cache)
+    plan.alternatives += later
     if len(fr.preps) > 1:
         plan.frames = _frame_figures(plan, fr, at)
     plan.alternatives = rank_alternatives(plan.alternatives, table.n_functions)

@@ -422,3 +422,59 @@ def test_the_attempt_is_skipped_when_a_block_already_has_an_eigenvalue_below():
     spec = large_spectrum(S.copy(), 1e-5, info=info)
     assert spec.counts_below["1e-05"] == int(np.searchsorted(w, 1e-5))
     assert not _block_has_one_below(np.eye(300), np.zeros(300), 1e-5)  # nothing below: no claim
+
+
+@pytest.mark.parametrize("distance", [0.001, 0.05])
+def test_eigenpairs_through_a_shared_core_agree_with_eigh(distance):
+    # Reference: numpy.linalg.eigh. With a handoff and a core, S^-1 is applied by blocks in
+    # the order (core, other functions): the core's factor, then the Schur complement of the
+    # others. Values, counts and vectors (back in S's own order) are the same as eigh's.
+    from auditor.numerics.cholesky import FactorHandoff
+
+    S = trimer_with_ghost(distance)
+    n, S0 = S.shape[0], S.copy()
+    w, U = reference(S)
+    others = np.union1d(np.arange(n - 23, n), np.arange(0, n, 7))  # the ghost O, and scattered ones
+    core = np.setdiff1d(np.arange(n), others)
+    handoff, info = FactorHandoff(), {}
+    spec = large_spectrum(S, 1e-5, handoff=handoff, core=core, info=info)
+    assert info["inverse"] == "core blocks" and info["shift"] == 0.0
+    assert np.array_equal(S, S0)  # restored
+    m = spec.values.size
+    tol = np.maximum(1e-8 * w[:m], 64 * np.finfo(float).eps * w[-1])
+    assert np.all(np.abs(spec.values - w[:m]) <= tol)
+    check_counts(spec, w)
+    k = spec.vectors.shape[1]
+    assert k == int(np.searchsorted(w, 1e-5)) > 0
+    j = max(i for i in range(1, k + 1) if w[i] / w[i - 1] > 2.0)  # a gap: a well-defined subspace
+    assert subspace_sine(spec.vectors[:, :j], U, j) < 1e-5
+    shared = handoff.take_core()  # kept for the remedies: the core's own factor
+    assert shared is not None and np.array_equal(shared.core, core) and np.array_equal(shared.rest, others)
+    L = np.tril(shared.L)
+    assert np.allclose(L @ L.T, S0[np.ix_(core, core)], atol=1e-12)
+    assert handoff.take_core() is None  # taken once
+    handoff.release()
+    assert handoff.take() is None
+
+
+def test_without_a_handoff_the_core_is_not_used():
+    # nothing would take the shared core: S^-1 comes from one Cholesky factor in S's own
+    # memory, as before (reference for the values: numpy.linalg.eigh)
+    S = trimer_with_ghost(0.05)
+    w, _ = reference(S)
+    info: dict = {}
+    spec = large_spectrum(S, 1e-5, core=np.arange(0, S.shape[0], 2), info=info)
+    assert info["inverse"] == "cholesky"
+    assert abs(spec.smallest - w[0]) <= 1e-8 * w[0]
+
+
+def test_gather_block_equals_fancy_indexing():
+    # reference: numpy's own fancy indexing S[np.ix_(rows, cols)]
+    from auditor.numerics.inplace import gather_block
+
+    S = np.arange(600 * 600, dtype=float).reshape(600, 600)
+    rng = np.random.default_rng(5)
+    rows, cols = np.sort(rng.choice(600, 300, replace=False)), np.sort(rng.choice(600, 257, replace=False))
+    for order in ("C", "F"):
+        got = gather_block(np.asarray(S, order=order), rows, cols, chunk=64)
+        assert np.array_equal(got, S[np.ix_(rows, cols)]) and got.flags.c_contiguous

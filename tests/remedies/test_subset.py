@@ -490,3 +490,38 @@ def test_shells_from_a_consumed_factor_equal_those_from_a_kept_one(dimer, target
     assert not np.array_equal(fn.factor, before)  # it did work in place
     assert np.array_equal(kept.kept, used.kept)
     assert abs(kept.smallest_kept - used.smallest_kept) <= 1e-10 * kept.smallest_kept
+
+
+def test_diffuse_options_reuse_the_spectrum_shared_core(tmp_path, monkeypatch):
+    # The large path hands its shared core (the non-diffuse functions' factor) to the
+    # remedies, which use it and make none of their own; the options' smallest eigenvalues
+    # equal the dense path's (reference: numpy.linalg.eigvalsh there, through the full path).
+    import auditor
+    from auditor.numerics import cholesky, factored
+    from auditor.remedies import plan
+
+    calls = {"made by the spectrum": 0, "made by the remedies": 0, "used": 0}
+
+    def spy(module, name, key):
+        real = getattr(module, name)
+
+        def counted(*args):
+            calls[key] += 1
+            return real(*args)
+
+        monkeypatch.setattr(module, name, counted)
+
+    spy(factored, "shared_core", "made by the spectrum")
+    spy(plan, "shared_core", "made by the remedies")
+    spy(cholesky, "smallest_with_core", "used")
+    xyz = tmp_path / "w2.xyz"
+    atoms = ["O 0 0 0", "H 0.9572 0 0", "H -0.24 0.9266 0", "O 2.9 0.1 0.2", "H 3.8572 0.1 0.2", "H 2.66 1.0266 0.2"]
+    xyz.write_text("7\nwater dimer + ghost O\n" + "\n".join(atoms + ["O 0.05 0 0"]) + "\n")
+    full = auditor.audit(str(xyz), "aug-cc-pvdz", ghost="7", spectrum_method="full")
+    assert calls == {"made by the spectrum": 0, "made by the remedies": 0, "used": 0}  # small: eigvalsh
+    large = auditor.audit(str(xyz), "aug-cc-pvdz", ghost="7", spectrum_method="large")
+    assert calls["made by the spectrum"] == 1 and calls["made by the remedies"] == 0 and calls["used"] >= 2
+    options = [{d.element: d.smallest_after for d in r.remedies.diffuse_by_element} for r in (full, large)]
+    assert options[0].keys() == options[1].keys() == {"H", "O"}
+    for el, ref in options[0].items():
+        assert abs(options[1][el] - ref) <= 1e-8 * ref
