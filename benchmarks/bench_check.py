@@ -11,8 +11,8 @@ Printed per size: the bare script's time, `auditor check` with default options (
 reports in all formats), `auditor check --no-remedies`, the ratios bare / check, and the peak
 memory of each in units of one copy of S (8 N^2 bytes). With --stages the command's stage
 timings (from the API's stage callback, in-process) are printed as well; this process sets
-OPENBLAS_THREAD_TIMEOUT=4 and NUMPY_MADVISE_HUGEPAGE=0 for them, as the command line does;
-the bare script and the commands run with the environment the benchmark was started with.
+OPENBLAS_THREAD_TIMEOUT=4 for them, as the command line does; the bare script and the
+commands run with the environment the benchmark was started with.
 """
 
 from __future__ import annotations
@@ -31,7 +31,6 @@ from pathlib import Path
 # before numpy loads); every child process gets the environment this one was started with
 CHILD_ENV = dict(os.environ)
 os.environ.setdefault("OPENBLAS_THREAD_TIMEOUT", "4")
-os.environ.setdefault("NUMPY_MADVISE_HUGEPAGE", "0")
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 import clusters  # noqa: E402

@@ -19,11 +19,6 @@ from typing import Annotated
 # Threads that go to sleep sooner remove the stall (measured: `check` on 5980 functions
 # 8.8 s -> 7.9 s); results do not change. Set before numpy loads; a user's own value wins.
 os.environ.setdefault("OPENBLAS_THREAD_TIMEOUT", "4")
-# numpy asks Linux for transparent huge pages on large arrays; the factor handed to the
-# remedies is an N x N array whose pages are mostly left untouched by design (room to grow),
-# and huge pages fault all of it in. Off, the handoff copy at 5980 functions took 0.10 s
-# instead of 0.85-0.95 s on the benchmark machine, and the peak fell by about 0.4 copies of S.
-os.environ.setdefault("NUMPY_MADVISE_HUGEPAGE", "0")
 
 import typer  # noqa: E402
 import typer.rich_utils

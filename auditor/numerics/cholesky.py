@@ -13,7 +13,15 @@ import scipy.sparse.linalg
 from scipy.linalg import lapack
 
 from ..base.errors import InputError, UsageError
-from .inplace import _cholesky, column_major, gather_block, mirror_triangle, solve_lower_view, tpqrt_in_place
+from .inplace import (
+    _cholesky,
+    column_major,
+    gather_block,
+    mirror_triangle,
+    roomy_zeros,
+    solve_lower_view,
+    tpqrt_in_place,
+)
 from .krylov import InverseSolver, _smallest_eigenpairs, factor_solver
 
 #: Largest deviation of a diagonal element from 1 that is accepted as "unit diagonal".
@@ -543,7 +551,7 @@ def delete_from_factor(L: np.ndarray, drop: np.ndarray, room: int = 0) -> np.nda
     drop = np.unique(np.asarray(drop, dtype=np.int64))
     keep = np.setdiff1d(np.arange(L.shape[0]), drop)
     m = keep.size
-    F = np.zeros((m + room, m + room), order="F")[:m, :m]
+    F = roomy_zeros(m + room)[:m, :m]
     j0 = int(drop[0]) if drop.size else m  # keep[:j0] is 0..j0-1: those rows stay as they are
     F[:j0, :j0] = L[:j0, :j0]
     if j0 == m:

@@ -28,7 +28,7 @@ import scipy.linalg
 
 from ..base.errors import ResourceError
 from .cholesky import FactorHandoff, core_solver, pstrf_until_nonpositive, shared_core, shifted_result
-from .inplace import _cholesky, _fortran_view, _ldl_negative_count, _Triangles, solve_lower_view
+from .inplace import _cholesky, _fortran_view, _ldl_negative_count, _Triangles, roomy_zeros, solve_lower_view
 from .krylov import InverseSolver, _largest_eigenvalue, _smallest_eigenpairs, factor_solver
 from .memory import DEFAULT_MAX_VECTORS, _block_size
 from .spectrum import (
@@ -208,7 +208,7 @@ def _pivoted_count(
     if handoff is not None:
         # the leading block of an N x N array (its untouched pages cost nothing): room for the
         # remedies to work in it (`auditor.numerics.cholesky.delete_in_place`, add-back)
-        factor = np.zeros((n, n), order="F")[:rank, :rank]
+        factor = roomy_zeros(n)[:rank, :rank]
         for j in range(rank):  # the lower triangle, column by column (contiguous in Fortran order)
             factor[j:, j] = A[j:rank, j]
         handoff.give(shifted_result(order, factor, n, tau))

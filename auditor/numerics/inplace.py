@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import ctypes
+import mmap
 from typing import Any
 
 import numpy as np
@@ -173,6 +174,21 @@ class _Triangles:
         if self.dirty:
             _restore_lower(self.A, self.diag, 0.0)
             self.dirty = False
+
+
+def roomy_zeros(n: int) -> np.ndarray:
+    """A zeroed n x n Fortran-ordered array whose untouched pages take no memory: anonymous
+    mmap on small pages. numpy asks for transparent huge pages on large arrays, which fault
+    in 2 MiB at the first write; a factor written in a corner of this array (with room to
+    grow) would then hold all of it (measured at 5980 functions: copying a factor into it
+    0.85-0.95 s against 0.10 s here)."""
+    if n == 0:
+        return np.zeros((0, 0), order="F")
+    buf = mmap.mmap(-1, 8 * n * n)
+    if hasattr(mmap, "MADV_NOHUGEPAGE"):
+        buf.madvise(mmap.MADV_NOHUGEPAGE)
+    # one 2-D array on the buffer: views of it keep it as their base (`_grown` looks there)
+    return np.ndarray((n, n), dtype=np.float64, buffer=buf, order="F")
 
 
 def gather_block(S: np.ndarray, rows: np.ndarray, cols: np.ndarray, chunk: int = 256) -> np.ndarray:
