@@ -17,6 +17,7 @@ from .inplace import (
     _cholesky,
     column_major,
     gather_block,
+    gather_triangle,
     mirror_triangle,
     roomy_zeros,
     solve_lower_view,
@@ -462,25 +463,23 @@ class SharedCore:
 
     core: np.ndarray  # ascending
     rest: np.ndarray  # every other function, ascending
-    L: np.ndarray  # lower factor of S[core, core] in its lower triangle, column-major
+    L: np.ndarray  # lower factor of S[core, core] (upper triangle zero), column-major
     W: np.ndarray  # L^-1 S[core, rest]
-    schur: np.ndarray  # S[rest, rest] - W^T W, its upper triangle (the lower one is stale)
+    schur: np.ndarray  # S[rest, rest] - W^T W, its upper triangle (the lower one is zero)
 
 
 def shared_core(S: np.ndarray, core: np.ndarray) -> SharedCore | None:
     """The `SharedCore` of ``S`` for ``core``; None when S[core, core] is not positive definite."""
     core = np.unique(core)
     rest = np.setdiff1d(np.arange(S.shape[0]), core)
-    # S is symmetric: the transpose of a C-ordered gathered block is the Fortran-ordered
-    # block LAPACK and BLAS work on in place
-    L = gather_block(S, core, core).T
-    if _cholesky(L) != 0:  # its strict upper triangle keeps S's values (never read)
+    L = gather_triangle(S, core)  # the lower triangle only: all that Cholesky touches
+    if _cholesky(L) != 0:
         return None
-    W = gather_block(S, rest, core).T
+    W = gather_block(S, rest, core).T  # S symmetric: S[core, rest], Fortran-ordered
     solve_lower_view(L, W)
     # S[rest, rest] - W^T W: dsyrk forms the upper triangle only (half a product's flops);
     # its transpose, lower, is all that the Cholesky of a Schur block reads
-    schur = gather_block(S, rest, rest).T
+    schur = gather_triangle(S, rest, lower=False)
     schur = scipy.linalg.blas.dsyrk(-1.0, W, beta=1.0, c=schur, trans=1, lower=0, overwrite_c=1)
     return SharedCore(core, rest, L, W, schur)
 

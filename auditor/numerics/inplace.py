@@ -191,6 +191,21 @@ def roomy_zeros(n: int) -> np.ndarray:
     return np.ndarray((n, n), dtype=np.float64, buffer=buf, order="F")
 
 
+def gather_triangle(S: np.ndarray, idx: np.ndarray, lower: bool = True) -> np.ndarray:
+    """One triangle of the symmetric S[np.ix_(idx, idx)] (the lower, or the upper), in a
+    `roomy_zeros` array (column-major) whose other triangle stays zero and takes no memory:
+    Cholesky and dsyrk read and write one triangle only. Column j is read from S's row
+    idx[j] (contiguous when S is C-ordered; S is symmetric)."""
+    m = idx.size
+    out = roomy_zeros(m)
+    for j in range(m):
+        if lower:
+            out[j:, j] = S[idx[j], idx[j:]]
+        else:
+            out[: j + 1, j] = S[idx[j], idx[: j + 1]]
+    return out
+
+
 def gather_block(S: np.ndarray, rows: np.ndarray, cols: np.ndarray, chunk: int = 256) -> np.ndarray:
     """S[np.ix_(rows, cols)], C-ordered, gathered ``chunk`` rows at a time (whole rows, then
     their columns): about three times faster than np.ix_ on blocks of thousands of functions."""

@@ -478,3 +478,18 @@ def test_gather_block_equals_fancy_indexing():
     for order in ("C", "F"):
         got = gather_block(np.asarray(S, order=order), rows, cols, chunk=64)
         assert np.array_equal(got, S[np.ix_(rows, cols)]) and got.flags.c_contiguous
+
+
+@pytest.mark.parametrize("lower", [True, False])
+def test_gather_triangle_is_one_triangle_of_the_block(lower):
+    # reference: numpy's np.tril / np.triu of the fancy-indexed block; the other triangle is zero
+    from auditor.numerics.inplace import gather_triangle
+
+    rng = np.random.default_rng(8)
+    A = rng.standard_normal((300, 300))
+    S = A + A.T
+    idx = np.sort(rng.choice(300, 123, replace=False))
+    got = gather_triangle(S, idx, lower=lower)
+    block = S[np.ix_(idx, idx)]
+    assert np.array_equal(got, np.tril(block) if lower else np.triu(block))
+    assert got.flags.f_contiguous and got.flags.writeable
