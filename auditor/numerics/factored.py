@@ -270,7 +270,10 @@ def _inverse(
     given to ``handoff``), or through the Cholesky factor of S below its spectrum."""
     t1 = time.perf_counter()
     if factored is None:
-        stage("Cholesky factor of S below its spectrum")
+        blocks = handoff is not None and core is not None
+        stage(
+            "Cholesky factor of S in blocks, non-diffuse first" if blocks else "Cholesky factor of S below its spectrum"
+        )
     inverse = _core_inverse(tri, handoff, core) if factored is None else None
     if inverse is None:
         shift = factored if factored is not None else _factor_below_spectrum(tri, largest)
