@@ -525,3 +525,17 @@ def test_diffuse_options_reuse_the_spectrum_shared_core(tmp_path, monkeypatch):
     assert options[0].keys() == options[1].keys() == {"H", "O"}
     for el, ref in options[0].items():
         assert abs(options[1][el] - ref) <= 1e-8 * ref
+
+
+def test_a_factor_in_roomy_zeros_can_grow_in_place():
+    # the factor handed to the remedies sits in a `roomy_zeros` array; the add-back finds its
+    # room through the view's base (common practice: numpy views keep the array they view)
+    from auditor.numerics.inplace import roomy_zeros
+    from auditor.remedies.subset import _grown
+
+    room = roomy_zeros(50)
+    F = room[:30, :30]
+    assert not F.any() and F.flags.writeable
+    grown = _grown(F, 40)
+    assert grown is not None and grown.shape == (40, 40) and np.shares_memory(grown, room)
+    assert _grown(F, 51) is None  # no room beyond the array
