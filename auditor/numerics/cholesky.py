@@ -484,14 +484,19 @@ def shared_core(S: np.ndarray, core: np.ndarray) -> SharedCore | None:
     return SharedCore(core, rest, L, W, schur)
 
 
-def core_solver(shared: SharedCore) -> InverseSolver | None:
-    """The `InverseSolver` of all of S in the order (core, rest): the shared factor completed
-    by the Cholesky factor of the whole Schur complement (which ``shared`` keeps); None when
-    that is not positive definite to rounding."""
-    T = np.asfortranarray(shared.schur.T)  # a copy: schur's upper triangle as T's lower one
+def core_solver(shared: SharedCore, extra: np.ndarray | None = None) -> InverseSolver | None:
+    """The `InverseSolver` of S[idx, idx] in the order (core, the others ``extra`` picks from
+    ``shared.rest``; all of them when None, that is all of S): the shared factor completed by
+    the Cholesky factor of that block of the Schur complement. None when that block is not
+    positive definite to rounding."""
+    if extra is None:
+        WE, block = shared.W, shared.schur.T
+    else:
+        WE, block = np.asfortranarray(shared.W[:, extra]), shared.schur[np.ix_(extra, extra)].T
+    T = np.asfortranarray(block)  # a copy: schur's upper triangle as T's lower one
     if _cholesky(T) != 0:
         return None
-    return _core_solver(shared.L, shared.W, T)
+    return _core_solver(shared.L, WE, T)
 
 
 def smallest_with_core(idx: np.ndarray, shared: SharedCore) -> float | None:
@@ -502,12 +507,8 @@ def smallest_with_core(idx: np.ndarray, shared: SharedCore) -> float | None:
     to rounding."""
     if not np.isin(shared.core, idx).all():
         return None
-    extra = np.flatnonzero(np.isin(shared.rest, idx))
-    try:  # schur holds its upper triangle: the Cholesky of a block reads that triangle
-        upper = scipy.linalg.cholesky(shared.schur[np.ix_(extra, extra)], lower=False, check_finite=False)
-    except np.linalg.LinAlgError:
-        return None
-    return smallest_from_solver(_core_solver(shared.L, np.asfortranarray(shared.W[:, extra]), upper.T))
+    solver = core_solver(shared, np.flatnonzero(np.isin(shared.rest, idx)))
+    return None if solver is None else smallest_from_solver(solver)
 
 
 def _core_solver(L: np.ndarray, WE: np.ndarray, T: np.ndarray) -> InverseSolver:

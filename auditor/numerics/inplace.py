@@ -208,7 +208,8 @@ def gather_triangle(S: np.ndarray, idx: np.ndarray, lower: bool = True) -> np.nd
 
 def gather_block(S: np.ndarray, rows: np.ndarray, cols: np.ndarray, chunk: int = 256) -> np.ndarray:
     """S[np.ix_(rows, cols)], C-ordered, gathered ``chunk`` rows at a time (whole rows, then
-    their columns): about three times faster than np.ix_ on blocks of thousands of functions."""
+    their columns): measured at 5980 functions, the non-diffuse block in 0.10 s against
+    np.ix_'s 0.37 s (memory already in use; new memory costs both the same)."""
     out = np.empty((rows.size, cols.size))
     for r0 in range(0, rows.size, chunk):
         np.take(S[rows[r0 : r0 + chunk]], cols, axis=1, out=out[r0 : r0 + chunk])

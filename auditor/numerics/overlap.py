@@ -53,6 +53,12 @@ class FunctionTable:
     def func_diffuse(self) -> np.ndarray:
         return self.shell_diffuse[self.func_shell]
 
+    @property
+    def non_diffuse(self) -> np.ndarray:
+        """Indices of the functions of non-diffuse shells: the set every diffuse option and
+        published relative without diffuse shells keeps (`auditor.numerics.cholesky.SharedCore`)."""
+        return np.flatnonzero(~self.func_diffuse)
+
     def function_label(self, i: int) -> str:
         s = int(self.func_shell[i])
         a = int(self.shell_atom[s])

@@ -161,7 +161,7 @@ def audit_core(
     when memory allows it."""
     stage = stage or _quiet
     keep = for_remedies and remedies_fit(prep.table.n_functions)
-    core = np.flatnonzero(~prep.table.func_diffuse)  # the remedies' diffuse options keep these
+    core = prep.table.non_diffuse if keep else None  # the remedies' diffuse options keep these
     spec = compute_spectrum(prep.S, policy.caution, spectrum_method, stage, keep_factor=keep, core=core)
     stage("findings and causes")
     causes = attribute_causes(spec.vectors, prep.table, below=policy.caution, n_below=spec.count_below(policy.caution))

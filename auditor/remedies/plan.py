@@ -167,7 +167,7 @@ def diffuse_element_options(
     if cache is not None and len(Ss) == 1:
         # every option (and a published relative without diffuse shells) keeps the
         # non-diffuse functions: factor them once (`SharedCore`), or use the spectrum's
-        _share_core(cache, Ss[0], np.flatnonzero(~func_dif), len(elements) > 1)
+        _share_core(cache, Ss[0], table.non_diffuse, len(elements) > 1)
     for el in elements:
         drop = func_dif & (func_el == el)
         kept = np.flatnonzero(~drop)
