@@ -74,7 +74,12 @@ def main() -> None:
             from ..gate.workers import start_early
 
             start_early(sys.argv[1:])
-        code = app(standalone_mode=False)
+        elif sys.argv[1:2] in (["check"], ["demo"]):
+            check.start_figures_early(sys.argv[1:])
+        try:
+            code = app(standalone_mode=False)
+        finally:
+            check.stop_figures()
     except TyperException as exc:  # the argument parser's errors (typer's own click)
         sys.exit(_parser_error(exc))
     except (KeyboardInterrupt, Abort):

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import sys
 from pathlib import Path
 from typing import Annotated
 
@@ -122,3 +123,33 @@ def check(
         if outcome.written:
             out.print(f"wrote {len(outcome.written)} report file(s) to {out_dir}/", markup=False)
     raise typer.Exit(outcome.exit_code)
+
+
+def start_figures_early(argv: list[str]) -> None:
+    """Start the figure helper (`auditor.report.figures`) before anything heavy loads, when
+    the command will draw figures: not for --help or --format json."""
+    if any(a in ("--help", "-h") for a in argv) or _format_asked(argv) == "json":
+        return
+    from ..report.figures import start_helper  # standard library only
+
+    start_helper()
+
+
+def stop_figures() -> None:
+    """Stop the figure helper, if `start_figures_early` started one."""
+    figures = sys.modules.get("auditor.report.figures")  # not imported: nothing was started
+    if figures is not None:
+        figures.stop_helper()
+
+
+def _format_asked(argv: list[str]) -> str | None:
+    """The value of --format/-f in ``argv``, if given (the last one wins, as in the parser)."""
+    found = None
+    for i, a in enumerate(argv):
+        if a in ("--format", "-f") and i + 1 < len(argv):
+            found = argv[i + 1]
+        elif a.startswith("--format="):
+            found = a.split("=", 1)[1]
+        elif a.startswith("-f") and len(a) > 2 and not a.startswith("--"):
+            found = a[2:]
+    return found

@@ -19,7 +19,8 @@ from ..base.files import atomic_write
 from ..base.jsonio import clean
 from ..diagnosis.findings import SEVERITY_ORDER
 from .counterpoise import counterpoise_html
-from .periodic import periodic_figures, periodic_html
+from .figures import draw_figures
+from .periodic import periodic_html
 from .style import PAGE_CSS
 from .text import (
     X_NOTE,
@@ -515,11 +516,8 @@ def render_html(result: AuditResult | dict, images: dict[str, bytes] | None = No
     """The HTML text of one result. ``images`` maps "spectrum", "causes" and "molecule" to
     PNG bytes; when None they are drawn here."""
     d = _d(result)
-    if images is None:
-        # matplotlib loads only when the figures are drawn here (callers usually pass them)
-        from .plots import report_plots
-
-        images = {**report_plots(d), **periodic_figures(d)}
+    if images is None:  # callers usually pass them
+        images = draw_figures(d)
     sections = [
         *_page_top(d),
         *_figure_sections(d, images),

@@ -1,20 +1,12 @@
 """The periodic part of the reports: the Markdown and HTML sections (lattice, mesh, lattice-sum
-check, the table of k-points, the remedies' details) and the figure of the smallest eigenvalue
-at every k-point. Each reads the ``periodic`` part of a JSON result; none recomputes."""
+check, the table of k-points, the remedies' details). Each reads the ``periodic`` part of a
+JSON result; none recomputes. Its figure (the smallest eigenvalue at every k-point) is drawn
+in `auditor.report.plots`."""
 
 from __future__ import annotations
 
-import math
 from collections.abc import Callable
 from html import escape
-from typing import Any
-
-import numpy as np
-from matplotlib import rc_context
-from matplotlib.figure import Figure
-
-from .plots import STYLE, _new, _png
-from .style import BLUE, LEVEL_LINES, VERMILION
 
 #: rows of the k-point table shown (the JSON holds every k-point)
 MAX_KPOINT_ROWS = 30
@@ -160,49 +152,3 @@ def _kpoint_row(r: dict, num: Num) -> str:
         + "".join(f'<td class="n">{c}</td>' for c in cells)
         + "</tr>"
     )
-
-
-def kpoints_png(result: Any) -> bytes:
-    """The smallest eigenvalue of S(k) at every k-point, log axis, with the policy levels."""
-    d = result if isinstance(result, dict) else result.as_dict()
-    with rc_context(STYLE):
-        return _png(_kpoints_figure(d))
-
-
-def _kpoints_figure(d: dict) -> Figure:
-    part, pol = d["periodic"], d["policy"]
-    rows = part["kpoints"]
-    x = np.array([r["k"] for r in rows])
-    y = np.array([r["smallest"] for r in rows], dtype=float)
-    fig, ax = _new(8.6, 3.4)
-    fig.subplots_adjust(left=0.09, right=0.70, top=0.88, bottom=0.16)
-    positive = y[y > 0]
-    floor = 10.0 ** (math.floor(math.log10(min([pol["fail"], *positive[:1].tolist(), *positive.tolist()]))) - 1)
-    low = y <= floor
-    ax.semilogy(x[~low], y[~low], "o-", color=BLUE, ms=4, lw=1.0, label="smallest eigenvalue", zorder=3)
-    if low.any():
-        ax.semilogy(
-            x[low],
-            np.full(int(low.sum()), floor),
-            "v",
-            color=VERMILION,
-            ms=6,
-            ls="none",
-            label=f"≤ {floor:.0e} (drawn on the floor)",
-            zorder=4,
-        )
-    for key in ("caution", "fail"):
-        line = LEVEL_LINES[key]
-        ax.axhline(pol[key], color=line.colour, ls=line.dashes, lw=line.width, label=line.label(pol[key]))
-    w = part["worst"]
-    ax.set_xlabel("k-point (mesh order, 1-based)")
-    ax.set_ylabel("smallest eigenvalue of S(k)")
-    ax.set_title(f"S(k) over the {'×'.join(map(str, part['kmesh']))} mesh: worst k-point {w['k']}", loc="left")
-    ax.legend(loc="upper left", bbox_to_anchor=(1.02, 1.0), borderaxespad=0)
-    return fig
-
-
-def periodic_figures(result: Any) -> dict[str, bytes]:
-    """{"kpoints": PNG} for a periodic result, {} for a molecule."""
-    d = result if isinstance(result, dict) else result.as_dict()
-    return {"kpoints": kpoints_png(d)} if _part(d) else {}

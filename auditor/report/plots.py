@@ -9,11 +9,9 @@ from __future__ import annotations
 
 import io
 import math
-from collections.abc import Iterable, Iterator
+from collections.abc import Iterator
 from dataclasses import dataclass
-from pathlib import Path
 from typing import TYPE_CHECKING, Any
-from urllib.parse import quote
 
 import numpy as np
 from ase.data import atomic_numbers, covalent_radii
@@ -26,7 +24,6 @@ from matplotlib.lines import Line2D
 from matplotlib.patches import Circle
 
 from ..base.elements import L_LETTERS
-from ..base.files import atomic_write
 from .style import BLUE, GREEN, GREY, INK, LEVEL_LINES, ORANGE, SKY, VERDICT_COLOURS, VERMILION, WEIGHT_CMAP
 from .text import vectors_note
 
@@ -508,35 +505,54 @@ def _set_histogram_figure(smallest: list[float | None], verdicts: list[str], pol
     return fig
 
 
-def report_plots(result: AuditResult | dict) -> dict[str, bytes]:
-    """The three figures of a single-geometry report, by short name."""
+# ---------------------------------------------------------------- k-points (periodic)
+
+
+def kpoints_png(result: AuditResult | dict) -> bytes:
+    """The smallest eigenvalue of S(k) at every k-point, log axis, with the policy levels."""
     d = _d(result)
-    return {"spectrum": spectrum_png(d), "causes": causes_png(d), "molecule": molecule_png(d)}
+    with rc_context(STYLE):
+        return _png(_kpoints_figure(d))
 
 
-FIGURE_TITLES = {
-    "spectrum": "Overlap spectrum with the caution and fail levels and the advised threshold",
-    "causes": "Share of the near-null space per atom, angular momentum and shell kind",
-    "molecule": "Geometry on its principal plane, atoms shaded by their near-null-space share",
-    "kpoints": "Smallest eigenvalue of S(k) at every k-point of the mesh (periodic inputs)",
-}
+def _kpoints_figure(d: dict) -> Figure:
+    part, pol = d["periodic"], d["policy"]
+    rows = part["kpoints"]
+    x = np.array([r["k"] for r in rows])
+    y = np.array([r["smallest"] for r in rows], dtype=float)
+    fig, ax = _new(8.6, 3.4)
+    fig.subplots_adjust(left=0.09, right=0.70, top=0.88, bottom=0.16)
+    positive = y[y > 0]
+    floor = 10.0 ** (math.floor(math.log10(min([pol["fail"], *positive[:1].tolist(), *positive.tolist()]))) - 1)
+    low = y <= floor
+    ax.semilogy(x[~low], y[~low], "o-", color=BLUE, ms=4, lw=1.0, label="smallest eigenvalue", zorder=3)
+    if low.any():
+        ax.semilogy(
+            x[low],
+            np.full(int(low.sum()), floor),
+            "v",
+            color=VERMILION,
+            ms=6,
+            ls="none",
+            label=f"≤ {floor:.0e} (drawn on the floor)",
+            zorder=4,
+        )
+    for key in ("caution", "fail"):
+        line = LEVEL_LINES[key]
+        ax.axhline(pol[key], color=line.colour, ls=line.dashes, lw=line.width, label=line.label(pol[key]))
+    w = part["worst"]
+    ax.set_xlabel("k-point (mesh order, 1-based)")
+    ax.set_ylabel("smallest eigenvalue of S(k)")
+    ax.set_title(f"S(k) over the {'×'.join(map(str, part['kmesh']))} mesh: worst k-point {w['k']}", loc="left")
+    ax.legend(loc="upper left", bbox_to_anchor=(1.02, 1.0), borderaxespad=0)
+    return fig
 
 
-def write_figures(images: dict[str, bytes], out: str | Path, stem: str) -> list[Path]:
-    """Write each figure as out/<stem>_<name>.png; returns the paths in FIGURE_TITLES order."""
-    paths = []
-    for name in FIGURE_TITLES:
-        if images.get(name):
-            path = Path(out) / f"{stem}_{name}.png"
-            atomic_write(path, images[name])
-            paths.append(path)
-    return paths
-
-
-def markdown_figures(paths: Iterable[Path], stem: str) -> list[str]:
-    """Markdown lines that show the figures written beside the report (relative links)."""
-    lines = ["## Figures", ""]
-    for path in paths:
-        name = path.name[len(stem) + 1 : -4] if path.name.startswith(stem + "_") else path.stem
-        lines += [f"![{FIGURE_TITLES.get(name, name)}]({quote(path.name)})", ""]
-    return lines
+def report_plots(result: AuditResult | dict) -> dict[str, bytes]:
+    """Every figure of a single-geometry report, by short name: spectrum, causes and
+    molecule, and kpoints for a periodic result."""
+    d = _d(result)
+    images = {"spectrum": spectrum_png(d), "causes": causes_png(d), "molecule": molecule_png(d)}
+    if isinstance(d.get("periodic"), dict):
+        images["kpoints"] = kpoints_png(d)
+    return images

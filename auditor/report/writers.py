@@ -5,6 +5,7 @@ from __future__ import annotations
 from pathlib import Path
 from typing import TYPE_CHECKING
 
+from .figures import markdown_figures, report_figures, write_figures
 from .json_report import write_json
 
 if TYPE_CHECKING:
@@ -18,17 +19,11 @@ def write_reports(result: AuditResult, out: Path, formats: str, stem: str) -> li
     written: list[Path] = []
     images: dict[str, bytes] = {}
     if formats in ("md", "html", "all"):
-        # matplotlib loads only when a format with figures is asked for (JSON-only runs stay fast)
-        from .periodic import periodic_figures
-        from .plots import report_plots
-
-        images = report_plots(result)
-        images.update(periodic_figures(result))
+        images = report_figures(result)  # matplotlib loads only then (JSON-only runs stay fast)
     if formats in ("json", "all"):
         written.append(write_json(result, out / f"{stem}.json"))
     if formats in ("md", "all"):
         from .markdown import write_markdown
-        from .plots import markdown_figures, write_figures
 
         pngs = write_figures(images, out, stem)
         written += pngs
