@@ -77,8 +77,8 @@ def _smallest_eigenpairs(
     Restarted block Krylov iteration on A = (S - shift*I)^-1: from a block X of p > k
     columns the basis Q = [X, AX, A^2 X, ...] (``KRYLOV_DEPTH`` blocks, orthonormalized
     against each other) gives Rayleigh-Ritz pairs of A; the p leading Ritz vectors
-    restart it (from a start block, the first pass first grows up to ``KRYLOV_MAX_DEPTH``
-    blocks). Each application of A is one BLAS-3 solve with p right-hand sides.
+    restart it (the first pass first grows up to ``KRYLOV_MAX_DEPTH`` blocks). Each
+    application of A is one BLAS-3 solve with p right-hand sides.
 
     Only Q and the image W = A Q_last of its last block are stored: A Q_j for an earlier
     block lies in span(Q) (the next block was made from it), so H = Q^T A Q is filled
@@ -88,8 +88,8 @@ def _smallest_eigenpairs(
     solve = L if isinstance(L, InverseSolver) else factor_solver(L)
     n, p = solve.size, _block_size(k, solve.size)
     depth = KRYLOV_DEPTH if KRYLOV_DEPTH * p <= n // 2 else 1
-    # from a start block, the first pass may go deeper instead of restarting
-    deepest = KRYLOV_MAX_DEPTH if start is not None and KRYLOV_MAX_DEPTH * p <= n // 2 else depth
+    # the first pass may go deeper instead of restarting
+    deepest = KRYLOV_MAX_DEPTH if KRYLOV_MAX_DEPTH * p <= n // 2 else depth
     rng = np.random.default_rng(seed)
     Q = np.empty((n, deepest * p), order="F")  # orthonormal Krylov basis
     W = np.empty((n, p), order="F")  # A applied to the newest block
