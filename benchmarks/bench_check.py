@@ -9,7 +9,8 @@ bench_large.py: 92 functions per water), at about 3000, 6000 and 12000 functions
 
 Printed per size: the bare script's time, `auditor check` with default options (remedies,
 reports in all formats), `auditor check --no-remedies`, the ratios bare / check, and the peak
-memory of each in units of one copy of S (8 N^2 bytes). With --stages the command's stage
+memory of each in units of one copy of S (8 N^2 bytes; check's figure helper process is not
+included, see the last line printed). With --stages the command's stage
 timings (from the API's stage callback, in-process) are printed as well; this process sets
 OPENBLAS_THREAD_TIMEOUT=4 for them, as the command line does; the bare script and the
 commands run with the environment the benchmark was started with.
@@ -136,7 +137,9 @@ def main() -> None:
                     print(f"{'':>14}{dt:8.2f} s  {step}")
     print(
         f"load after: {os.getloadavg()[0]:.2f}; peak RSS includes the interpreter and imports "
-        f"(about {resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024:.0f} MB in this process)"
+        f"(about {resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024:.0f} MB in this process); "
+        "the figure helper that check starts (auditor.report.figures, about 110 MB resident, 70 MB "
+        "of it its own) is a separate process and not in check's peak"
     )
 
 

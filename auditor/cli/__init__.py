@@ -2,7 +2,8 @@
 
 One module per command; options that several commands share are declared once in
 ``options``. Heavy modules are imported inside the commands, so that ``auditor gate`` can
-start its worker processes before numpy and pyscf load in this one.
+start its worker processes, and ``check`` and ``demo`` their figure helper
+(`auditor.report.figures`), before numpy and pyscf load in this one.
 
 May import everything below it (auditor.gate, auditor.report, auditor.pipeline, ...).
 """
