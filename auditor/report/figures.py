@@ -64,12 +64,11 @@ class _Helper:
     it reads from its standard input (pickled, framed by `multiprocessing.connection`)."""
 
     def __init__(self) -> None:
-        root = str(Path(__file__).resolve().parents[2])  # this copy of auditor, for the child
-        env = {
-            **os.environ,
-            **_ONE_THREAD,
-            "PYTHONPATH": os.pathsep.join(filter(None, [root, os.environ.get("PYTHONPATH")])),
-        }
+        env = {**os.environ, **_ONE_THREAD}
+        root = Path(__file__).resolve().parents[2]
+        if root.name not in ("site-packages", "dist-packages"):
+            # a source tree: the child imports this copy of auditor, not another one installed
+            env["PYTHONPATH"] = os.pathsep.join(filter(None, [str(root), os.environ.get("PYTHONPATH")]))
         self.proc = subprocess.Popen(
             [sys.executable, "-c", "from auditor.report.figures import serve; serve()"],
             stdin=subprocess.PIPE,
