@@ -3,6 +3,15 @@ can name them without importing the numerics (it starts gate workers before nump
 
 from __future__ import annotations
 
+#: environment variables that size the thread pools of BLAS/OpenMP libraries (pinned in
+#: worker and helper processes)
+THREAD_VARS = (
+    "OMP_NUM_THREADS",
+    "OPENBLAS_NUM_THREADS",
+    "MKL_NUM_THREADS",
+    "VECLIB_MAXIMUM_THREADS",
+    "NUMEXPR_NUM_THREADS",
+)
 #: the trial SCF runs only for bases up to this many functions
 TRIAL_MAX_FUNCTIONS = 400
 #: seconds per trial SCF run. Measured (benchmarks/bench_trial_scf.py, docs/benchmarks.md): near

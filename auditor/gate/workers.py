@@ -1,7 +1,7 @@
 """Worker processes for sets of geometries: how they are started and their environment.
 
-Standard library only, so that the command line can start the fork server before it
-imports numpy, pyscf or its own argument parser.
+Standard library only (and `auditor.base.defaults`, which is too), so that the command line
+can start the fork server before it imports numpy, pyscf or its own argument parser.
 """
 
 from __future__ import annotations
@@ -13,20 +13,14 @@ from contextlib import contextmanager
 from pathlib import Path
 from typing import TYPE_CHECKING, Union
 
+from ..base.defaults import THREAD_VARS
+
 if TYPE_CHECKING:
     from multiprocessing.context import ForkServerContext, SpawnContext
 
 #: how worker processes are started (see worker_context)
 WorkerContext = Union["ForkServerContext", "SpawnContext"]
 
-#: thread pools of BLAS/OpenMP libraries, pinned in worker processes
-THREAD_VARS = (
-    "OMP_NUM_THREADS",
-    "OPENBLAS_NUM_THREADS",
-    "MKL_NUM_THREADS",
-    "VECLIB_MAXIMUM_THREADS",
-    "NUMEXPR_NUM_THREADS",
-)
 #: glibc malloc tunables for worker processes (see worker_env)
 MALLOC_VARS = {"MALLOC_MMAP_THRESHOLD_": str(64 << 20), "MALLOC_TRIM_THRESHOLD_": str(256 << 20)}
 #: what the fork server imports once for all workers

@@ -28,7 +28,15 @@ import scipy.linalg
 
 from ..base.errors import ResourceError
 from .cholesky import FactorHandoff, core_solver, pstrf_until_nonpositive, shared_core, shifted_result
-from .inplace import _cholesky, _fortran_view, _ldl_negative_count, _Triangles, roomy_zeros, solve_lower_view
+from .inplace import (
+    _cholesky,
+    _fortran_view,
+    _ldl_negative_count,
+    _Triangles,
+    gather_block,
+    roomy_zeros,
+    solve_lower_view,
+)
 from .krylov import InverseSolver, _largest_eigenvalue, _smallest_eigenpairs, factor_solver
 from .memory import DEFAULT_MAX_VECTORS, _block_size
 from .spectrum import (
@@ -185,7 +193,7 @@ def _block_has_one_below(A: np.ndarray, radii: np.ndarray, tau: float) -> bool:
     if n < 256:
         return False
     idx = np.sort(np.argsort(-radii, kind="stable")[: n // 4])
-    block = A[np.ix_(idx, idx)]  # A is intact here: S itself (symmetric)
+    block = gather_block(A.T, idx, idx).T  # A is intact here: S itself (symmetric), by whole rows
     block[np.diag_indices_from(block)] -= tau
     return scipy.linalg.lapack.dpotrf(block, lower=1, overwrite_a=1, clean=0)[1] != 0
 

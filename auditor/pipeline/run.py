@@ -327,16 +327,11 @@ def with_digest(records: list[dict], named_by: str | None) -> dict:
     """basis_data from per-element records: one digest over them all, and where the basis
     was named (``named_by``; no "from" key when None)."""
     joined = "".join(f"{r['element']}:{r['digest']};" for r in records)
-    digest = hashlib.sha256(joined.encode("ascii")).hexdigest()
-    return (
-        {"digest": digest, "elements": records}
-        if named_by is None
-        else {
-            "digest": digest,
-            "from": named_by,
-            "elements": records,
-        }
-    )
+    data: dict = {"digest": hashlib.sha256(joined.encode("ascii")).hexdigest()}
+    if named_by is not None:
+        data["from"] = named_by
+    data["elements"] = records  # last, as in every report written so far
+    return data
 
 
 def _carried_basis_data(mol: Molecule, data: FileBasis, elements: list[str]) -> dict:

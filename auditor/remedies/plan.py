@@ -12,6 +12,7 @@ from typing import Any
 
 import numpy as np
 
+from ..base.defaults import TRIAL_MAX_FUNCTIONS, TRIAL_TIME_LIMIT
 from ..base.errors import UsageError
 from ..numerics.cholesky import (
     CholeskyResult,
@@ -50,7 +51,7 @@ from .shells import (
 )
 from .subset import TARGET_SLACK, Selection, check_atoms_not_emptied, check_target
 from .symmetry import SYMMETRY_TOLERANCE
-from .trial_scf import MAX_FUNCTIONS, TIME_LIMIT, Progress, check_method, trial_scf
+from .trial_scf import Progress, check_method, trial_scf
 
 __all__ = [
     "WHOLE_SHELL_RULE",
@@ -578,8 +579,8 @@ class RemedyOptions:
 
     target: float | None = None
     trial_scf: str | None = None
-    trial_max_functions: int = MAX_FUNCTIONS
-    trial_time_limit: float = TIME_LIMIT
+    trial_max_functions: int = TRIAL_MAX_FUNCTIONS
+    trial_time_limit: float = TRIAL_TIME_LIMIT
     force: bool = False
     #: called after every trial-SCF cycle with {basis, cycle, energy, seconds} (the command
     #: line prints it on a terminal); not part of the options' identity

@@ -22,8 +22,6 @@ from .prepared import PreparedGeometry
 if TYPE_CHECKING:
     from pyscf import gto
 
-MAX_FUNCTIONS = TRIAL_MAX_FUNCTIONS
-TIME_LIMIT = TRIAL_TIME_LIMIT
 HF_NAMES = ("hf", "scf", "rhf", "uhf")
 
 
@@ -53,7 +51,7 @@ def run_scf(
     mol: gto.Mole,
     method: str,
     threshold: float,
-    time_limit: float = TIME_LIMIT,
+    time_limit: float = TRIAL_TIME_LIMIT,
     conv_tol: float = 1e-9,
     progress: Progress | None = None,
     label: str = "",
@@ -136,8 +134,8 @@ def trial_scf(
     method: str,
     threshold: float,
     pruned_doc: dict | None,
-    max_functions: int = MAX_FUNCTIONS,
-    time_limit: float = TIME_LIMIT,
+    max_functions: int = TRIAL_MAX_FUNCTIONS,
+    time_limit: float = TRIAL_TIME_LIMIT,
     progress: Progress | None = None,
 ) -> dict:
     """Full basis at ``threshold`` versus the pruned basis; energies in hartree and the

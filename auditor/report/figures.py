@@ -23,6 +23,7 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any
 from urllib.parse import quote
 
+from ..base.defaults import THREAD_VARS
 from ..base.files import atomic_write
 
 if TYPE_CHECKING:
@@ -38,7 +39,7 @@ FIGURE_TITLES = {
 #: longest wait (s) for the helper to be ready, and then for one report's figures
 HELPER_WAIT = 60.0
 #: the helper draws on one core: no BLAS or OpenMP thread pools of its own
-_ONE_THREAD = {k: "1" for k in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")}
+_ONE_THREAD = {k: "1" for k in THREAD_VARS}
 
 
 def draw_figures(result: AuditResult | dict) -> dict[str, bytes]:

@@ -14,7 +14,8 @@ MAX_KPOINT_ROWS = 30
 Num = Callable[..., str]
 
 
-def _part(d: dict) -> dict | None:
+def periodic_part(d: dict) -> dict | None:
+    """The result's ``periodic`` part, or None for a molecule."""
     part = d.get("periodic")
     return part if isinstance(part, dict) else None
 
@@ -44,7 +45,7 @@ def _precision_text(p: dict) -> str:
 
 def periodic_lines(d: dict) -> list[str]:
     """The Markdown section of a periodic result ([] for a molecule)."""
-    part = _part(d)
+    part = periodic_part(d)
     if part is None:
         return []
     mesh = "×".join(str(n) for n in part["kmesh"])
@@ -111,7 +112,7 @@ def remedy_lines(rem: dict | None) -> list[str]:
 def periodic_html(d: dict, images: dict[str, bytes], num: Num, img: Callable[[bytes | None, str, str], str]) -> str:
     """The HTML section of a periodic result ("" for a molecule); ``num`` and ``img`` are the
     page's tagged-number and figure helpers (auditor.report.html)."""
-    part = _part(d)
+    part = periodic_part(d)
     if part is None:
         return ""
     w = part["worst"]

@@ -24,6 +24,7 @@ from matplotlib.lines import Line2D
 from matplotlib.patches import Circle
 
 from ..base.elements import L_LETTERS
+from .periodic import periodic_part
 from .style import BLUE, GREEN, GREY, INK, LEVEL_LINES, ORANGE, SKY, VERDICT_COLOURS, VERMILION, WEIGHT_CMAP
 from .text import vectors_note
 
@@ -553,6 +554,6 @@ def report_plots(result: AuditResult | dict) -> dict[str, bytes]:
     molecule, and kpoints for a periodic result."""
     d = _d(result)
     images = {"spectrum": spectrum_png(d), "causes": causes_png(d), "molecule": molecule_png(d)}
-    if isinstance(d.get("periodic"), dict):
+    if periodic_part(d):
         images["kpoints"] = kpoints_png(d)
     return images

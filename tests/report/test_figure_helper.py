@@ -67,9 +67,9 @@ def test_format_is_read_from_the_command_line_as_the_parser_reads_it():
 
 
 @pytest.mark.slow
-def test_console_run_writes_the_figures_the_helper_drew(tmp_path):
-    # end to end as a user runs it: the command starts the helper, which draws the PNGs;
-    # they must be the bytes this process draws from the JSON written beside them
+def test_console_run_writes_the_figures_drawn_in_process(tmp_path):
+    # end to end as a user runs it (the command starts the helper, which draws the PNGs, or
+    # falls back to drawing them itself): the bytes must be those drawn here for the same audit
     xyz = write_xyz(tmp_path / "w.xyz", *WATER)
     out = tmp_path / "o"
     cmd = [sys.executable, "-c", "from auditor.cli import main; main()", "check", str(xyz), "-b", "sto-3g"]
