@@ -465,7 +465,7 @@ class SharedCore:
     rest: np.ndarray  # every other function, ascending
     L: np.ndarray  # lower factor of S[core, core] (upper triangle zero), column-major
     W: np.ndarray  # L^-1 S[core, rest]
-    schur: np.ndarray  # S[rest, rest] - W^T W, its upper triangle (the lower one is zero)
+    schur: np.ndarray  # S[rest, rest] - W^T W, its lower triangle (the upper one is zero)
 
 
 def shared_core(S: np.ndarray, core: np.ndarray) -> SharedCore | None:
@@ -477,10 +477,10 @@ def shared_core(S: np.ndarray, core: np.ndarray) -> SharedCore | None:
         return None
     W = gather_block(S, rest, core).T  # S symmetric: S[core, rest], Fortran-ordered
     solve_lower_view(L, W)
-    # S[rest, rest] - W^T W: dsyrk forms the upper triangle only (half a product's flops);
-    # its transpose, lower, is all that the Cholesky of a Schur block reads
-    schur = gather_triangle(S, rest, lower=False)
-    schur = scipy.linalg.blas.dsyrk(-1.0, W, beta=1.0, c=schur, trans=1, lower=0, overwrite_c=1)
+    # S[rest, rest] - W^T W: dsyrk forms the lower triangle only (half a product's flops),
+    # all that the Cholesky of a Schur block reads
+    schur = gather_triangle(S, rest)
+    schur = scipy.linalg.blas.dsyrk(-1.0, W, beta=1.0, c=schur, trans=1, lower=1, overwrite_c=1)
     return SharedCore(core, rest, L, W, schur)
 
 
@@ -489,11 +489,10 @@ def core_solver(shared: SharedCore, extra: np.ndarray | None = None) -> InverseS
     ``shared.rest``; all of them when None, that is all of S): the shared factor completed by
     the Cholesky factor of that block of the Schur complement. None when that block is not
     positive definite to rounding."""
-    if extra is None:
-        WE, block = shared.W, shared.schur.T
-    else:
-        WE, block = np.asfortranarray(shared.W[:, extra]), shared.schur[np.ix_(extra, extra)].T
-    T = np.asfortranarray(block)  # a copy: schur's upper triangle as T's lower one
+    if extra is None:  # a plain copy (the shared Schur complement stays as it is)
+        WE, T = shared.W, shared.schur.copy(order="F")
+    else:  # a new Fortran-ordered block with schur's lower triangle (extra ascending)
+        WE, T = np.asfortranarray(shared.W[:, extra]), shared.schur.T[np.ix_(extra, extra)].T
     if _cholesky(T) != 0:
         return None
     return _core_solver(shared.L, WE, T)

@@ -191,18 +191,14 @@ def roomy_zeros(n: int) -> np.ndarray:
     return np.ndarray((n, n), dtype=np.float64, buffer=buf, order="F")
 
 
-def gather_triangle(S: np.ndarray, idx: np.ndarray, lower: bool = True) -> np.ndarray:
-    """One triangle of the symmetric S[np.ix_(idx, idx)] (the lower, or the upper), in a
-    `roomy_zeros` array (column-major) whose other triangle stays zero and takes no memory:
-    Cholesky and dsyrk read and write one triangle only. Column j is read from S's row
-    idx[j] (contiguous when S is C-ordered; S is symmetric)."""
-    m = idx.size
-    out = roomy_zeros(m)
-    for j in range(m):
-        if lower:
-            out[j:, j] = S[idx[j], idx[j:]]
-        else:
-            out[: j + 1, j] = S[idx[j], idx[: j + 1]]
+def gather_triangle(S: np.ndarray, idx: np.ndarray) -> np.ndarray:
+    """The lower triangle of the symmetric S[np.ix_(idx, idx)], in a `roomy_zeros` array
+    (column-major) whose upper triangle stays zero and takes no memory: Cholesky and dsyrk
+    read and write one triangle only. Column j is read from S's row idx[j] (contiguous when
+    S is C-ordered; S is symmetric)."""
+    out = roomy_zeros(idx.size)
+    for j in range(idx.size):
+        out[j:, j] = S[idx[j], idx[j:]]
     return out
 
 

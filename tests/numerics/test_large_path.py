@@ -452,6 +452,11 @@ def test_eigenpairs_through_a_shared_core_agree_with_eigh(distance):
     assert shared is not None and np.array_equal(shared.core, core) and np.array_equal(shared.rest, others)
     L = np.tril(shared.L)
     assert np.allclose(L @ L.T, S0[np.ix_(core, core)], atol=1e-12)
+    # its Schur complement (lower triangle; the upper is zero), against numpy.linalg.solve
+    schur = S0[np.ix_(others, others)] - S0[np.ix_(others, core)] @ np.linalg.solve(
+        S0[np.ix_(core, core)], S0[np.ix_(core, others)]
+    )
+    assert np.allclose(shared.schur, np.tril(schur), atol=1e-10)
     assert handoff.take_core() is None  # taken once
     handoff.release()
     assert handoff.take() is None
@@ -480,16 +485,14 @@ def test_gather_block_equals_fancy_indexing():
         assert np.array_equal(got, S[np.ix_(rows, cols)]) and got.flags.c_contiguous
 
 
-@pytest.mark.parametrize("lower", [True, False])
-def test_gather_triangle_is_one_triangle_of_the_block(lower):
-    # reference: numpy's np.tril / np.triu of the fancy-indexed block; the other triangle is zero
+def test_gather_triangle_is_the_lower_triangle_of_the_block():
+    # reference: numpy's np.tril of the fancy-indexed block; the upper triangle is zero
     from auditor.numerics.inplace import gather_triangle
 
     rng = np.random.default_rng(8)
     A = rng.standard_normal((300, 300))
     S = A + A.T
     idx = np.sort(rng.choice(300, 123, replace=False))
-    got = gather_triangle(S, idx, lower=lower)
-    block = S[np.ix_(idx, idx)]
-    assert np.array_equal(got, np.tril(block) if lower else np.triu(block))
+    got = gather_triangle(S, idx)
+    assert np.array_equal(got, np.tril(S[np.ix_(idx, idx)]))
     assert got.flags.f_contiguous and got.flags.writeable
