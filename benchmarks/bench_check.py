@@ -14,6 +14,12 @@ included, see the last line printed). With --stages the command's stage
 timings (from the API's stage callback, in-process) are printed as well; this process sets
 OPENBLAS_THREAD_TIMEOUT=4 for them, as the command line does; the bare script and the
 commands run with the environment the benchmark was started with.
+
+Each measured process starts after a pause (--pause, 15 s by default). On the virtual machine
+these figures come from, memory that a process frees goes back to the host within seconds, and
+writing new memory for the first time costs seconds per GB (printed on the first line), while
+a process started at once would reuse the memory the previous one freed at no cost: without the
+pause, `check`, run right after the bare script, would get its memory for free.
 """
 
 from __future__ import annotations
@@ -90,7 +96,17 @@ def stages(xyz: Path) -> list[tuple[str, float]]:
     return [(a[0], b[1] - a[1]) for a, b in zip(marks, marks[1:])]
 
 
-def measure(xyz: Path, work: Path, repeat: int) -> dict[str, tuple[float, int]]:
+def first_touch_seconds_per_gb(size: int = 1 << 29) -> float:
+    """Seconds per GB to write new memory for the first time, here (a fresh array): the
+    machine's state, which each measured process pays for all the memory it uses."""
+    import numpy as np  # here: OPENBLAS_THREAD_TIMEOUT is set above before numpy loads
+
+    t = time.perf_counter()
+    np.ones(size // 8)
+    return (time.perf_counter() - t) / (size / 1e9)
+
+
+def measure(xyz: Path, work: Path, repeat: int, pause: float) -> dict[str, tuple[float, int]]:
     auditor_cmd = [shutil.which("auditor") or "auditor", "check", str(xyz), "-b", BASIS]
     runs = {
         "bare": [sys.executable, "-c", BARE, str(xyz), BASIS],
@@ -100,6 +116,7 @@ def measure(xyz: Path, work: Path, repeat: int) -> dict[str, tuple[float, int]]:
     best: dict[str, tuple[float, int]] = {}
     for _ in range(repeat):  # interleaved, best of the repeats
         for name, cmd in runs.items():
+            time.sleep(pause)  # memory the last process freed goes back to the host (see --pause)
             seconds, rss, _ = timed(cmd)
             if name not in best or seconds < best[name][0]:
                 best[name] = (seconds, rss)
@@ -111,9 +128,21 @@ def main() -> None:
     ap.add_argument("--waters", type=int, nargs="+", default=[33, 65, 130])
     ap.add_argument("--repeat", type=int, default=1)
     ap.add_argument("--stages", action="store_true", help="also print the in-process stage timings")
+    ap.add_argument(
+        "--pause",
+        type=float,
+        default=15.0,
+        help="seconds to wait before each measured process (default 15): on a virtual machine that "
+        "returns freed memory to its host, a process started at once reuses the memory the last "
+        "one freed, which costs nothing to touch, while new memory does; the wait gives every "
+        "process new memory",
+    )
     args = ap.parse_args()
+    base_rss = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024  # before the probe's array
+    time.sleep(args.pause)
     print(
-        f"{time.strftime('%Y-%m-%d %H:%M UTC', time.gmtime())}, load {os.getloadavg()[0]:.2f}, {os.cpu_count()} cores"
+        f"{time.strftime('%Y-%m-%d %H:%M UTC', time.gmtime())}, load {os.getloadavg()[0]:.2f}, {os.cpu_count()} cores, "
+        f"first touch of new memory {first_touch_seconds_per_gb():.2f} s/GB, pause {args.pause:g} s"
     )
     print(
         f"{'waters':>6} {'N':>6} {'bare s':>8} {'check s':>8} {'ratio':>6} {'verdict s':>9} {'ratio':>6} "
@@ -124,7 +153,7 @@ def main() -> None:
         for waters in args.waters:
             xyz = write_cluster(work, waters)
             n = 92 * waters
-            best = measure(xyz, work, args.repeat)
+            best = measure(xyz, work, args.repeat, args.pause)
             s = 8.0 * n * n
             (tb, mb), (tc, mc), (tv, mv) = best["bare"], best["check"], best["verdict"]
             print(
@@ -137,7 +166,7 @@ def main() -> None:
                     print(f"{'':>14}{dt:8.2f} s  {step}")
     print(
         f"load after: {os.getloadavg()[0]:.2f}; peak RSS includes the interpreter and imports "
-        f"(about {resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024:.0f} MB in this process); "
+        f"(about {base_rss:.0f} MB in this process); "
         "the figure helper that check starts (auditor.report.figures, about 110 MB resident, 70 MB "
         "of it its own) is a separate process and not in check's peak"
     )
