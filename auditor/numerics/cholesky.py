@@ -583,12 +583,14 @@ def delete_in_place(L: np.ndarray, drop: np.ndarray, chunk: int = 256) -> np.nda
     m, j0 = keep.size, int(drop[0])
     tail = keep[j0:]  # keep[:j0] is 0..j0-1: those rows and columns stay where they are
     X = np.asfortranarray(L[np.ix_(tail, drop)].T)
-    for c0 in range(0, j0, chunk):  # each step reads all it moves before writing (rows only move up)
-        c1 = min(j0, c0 + chunk)
-        L[j0:m, c0:c1] = L[tail, c0:c1]
-    for a0 in range(0, tail.size, chunk):  # columns move left: a later source is never written first
-        a1 = min(tail.size, a0 + chunk)
-        L[j0:m, j0 + a0 : j0 + a1] = L[np.ix_(tail, tail[a0:a1])]
+    # Rows move up and columns left: column c of the result (row c of the row-major view L.T)
+    # is column source[c] at the rows ``tail``, gathered by whole columns (`gather_block`; the
+    # element-wise np.ix_ gather on a column-major array was the slow part). A chunk is
+    # gathered before it is written, and a later chunk's sources lie beyond all rows written.
+    LT, source = L.T, np.concatenate((np.arange(j0), tail))
+    for c0 in range(0, m, chunk):
+        c1 = min(m, c0 + chunk)
+        LT[c0:c1, j0:m] = gather_block(LT, source[c0:c1], tail)
     block = L[j0:m, j0:m]
     mirror_triangle(block, upward=True)  # R form: the upper triangle LAPACK works on
     tpqrt_in_place(block, X)
