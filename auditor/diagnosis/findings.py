@@ -13,7 +13,7 @@ import numpy as np
 
 from ..base.elements import BOHR_IN_ANGSTROM, ELEMENTS, NOBLE, covalent_radii
 from ..inputs.geometry import Molecule
-from ..numerics.inplace import gather_block
+from ..numerics.inplace import gather_symmetric
 from ..numerics.memory import SCAN_BYTES
 from ..numerics.overlap import FunctionTable
 from ..numerics.spectrum import Spectrum
@@ -263,13 +263,12 @@ def _diffuse_block_maxima(
     starts = np.flatnonzero(np.r_[True, order[1:] != order[:-1]])
     rows_per_chunk = max(1, chunk_bytes // (8 * max(funcs.size, 1)))
     out = np.empty((shells.size, shells.size))
-    rows_whole = S.T if S.flags.f_contiguous else S  # S symmetric: its row-major form, read by whole rows
     k = 0
     while k < starts.size:
         k_end = min(starts.size, k + max(1, rows_per_chunk // 4))  # shells have up to ~9 functions
         lo = starts[k]
         hi = starts[k_end] if k_end < starts.size else funcs.size
-        block = np.abs(gather_block(rows_whole, funcs[lo:hi], funcs))
+        block = np.abs(gather_symmetric(S, funcs[lo:hi], funcs))
         block = np.maximum.reduceat(block, starts[k:k_end] - lo, axis=0)
         out[k:k_end] = np.maximum.reduceat(block, starts, axis=1)
         k = k_end

@@ -472,10 +472,11 @@ def shared_core(S: np.ndarray, core: np.ndarray) -> SharedCore | None:
     """The `SharedCore` of ``S`` for ``core``; None when S[core, core] is not positive definite."""
     core = np.unique(core)
     rest = np.setdiff1d(np.arange(S.shape[0]), core)
+    S = S if S.flags.c_contiguous else S.T  # symmetric: its row-major form, read by whole rows
     L = gather_triangle(S, core)  # the lower triangle only: all that Cholesky touches
     if _cholesky(L) != 0:
         return None
-    W = gather_block(S, rest, core).T  # S symmetric: S[core, rest], Fortran-ordered
+    W = gather_block(S, rest, core).T  # S[core, rest], Fortran-ordered
     solve_lower_view(L, W)
     # S[rest, rest] - W^T W: dsyrk forms the lower triangle only (half a product's flops),
     # all that the Cholesky of a Schur block reads
@@ -492,7 +493,7 @@ def core_solver(shared: SharedCore, extra: np.ndarray | None = None) -> InverseS
     if extra is None:  # a plain copy (the shared Schur complement stays as it is)
         WE, T = shared.W, shared.schur.copy(order="F")
     else:  # a new Fortran-ordered block with schur's lower triangle (extra ascending)
-        WE, T = np.asfortranarray(shared.W[:, extra]), shared.schur.T[np.ix_(extra, extra)].T
+        WE, T = np.asfortranarray(shared.W[:, extra]), gather_block(shared.schur.T, extra, extra).T
     if _cholesky(T) != 0:
         return None
     return _core_solver(shared.L, WE, T)
@@ -582,12 +583,14 @@ def delete_in_place(L: np.ndarray, drop: np.ndarray, chunk: int = 256) -> np.nda
     keep = np.setdiff1d(np.arange(L.shape[0]), drop)
     m, j0 = keep.size, int(drop[0])
     tail = keep[j0:]  # keep[:j0] is 0..j0-1: those rows and columns stay where they are
-    X = np.asfortranarray(L[np.ix_(tail, drop)].T)
-    # Rows move up and columns left: column c of the result (row c of the row-major view L.T)
-    # is column source[c] at the rows ``tail``, gathered by whole columns (`gather_block`; the
-    # element-wise np.ix_ gather on a column-major array was the slow part). A chunk is
-    # gathered before it is written, and a later chunk's sources lie beyond all rows written.
-    LT, source = L.T, np.concatenate((np.arange(j0), tail))
+    # Every gather reads whole columns of L, the rows of its row-major view L.T (`gather_block`;
+    # element-wise np.ix_ gathers on a column-major array were the slow part).
+    LT = L.T
+    X = np.asfortranarray(gather_block(LT, drop, tail))  # L[tail, drop]^T
+    # Rows move up and columns left: column c of the result is column source[c] at the rows
+    # ``tail``. A chunk is gathered before it is written, and a later chunk's sources lie
+    # beyond all rows written.
+    source = np.concatenate((np.arange(j0), tail))
     for c0 in range(0, m, chunk):
         c1 = min(m, c0 + chunk)
         LT[c0:c1, j0:m] = gather_block(LT, source[c0:c1], tail)

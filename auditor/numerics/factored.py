@@ -33,7 +33,7 @@ from .inplace import (
     _fortran_view,
     _ldl_negative_count,
     _Triangles,
-    gather_block,
+    gather_symmetric,
     roomy_zeros,
     solve_lower_view,
 )
@@ -193,7 +193,7 @@ def _block_has_one_below(A: np.ndarray, radii: np.ndarray, tau: float) -> bool:
     if n < 256:
         return False
     idx = np.sort(np.argsort(-radii, kind="stable")[: n // 4])
-    block = gather_block(A.T, idx, idx).T  # A is intact here: S itself (symmetric), by whole rows
+    block = gather_symmetric(A, idx, idx).T  # A is intact here: S itself; Fortran-ordered for dpotrf
     block[np.diag_indices_from(block)] -= tau
     return scipy.linalg.lapack.dpotrf(block, lower=1, overwrite_a=1, clean=0)[1] != 0
 

@@ -212,6 +212,12 @@ def gather_block(S: np.ndarray, rows: np.ndarray, cols: np.ndarray, chunk: int =
     return out
 
 
+def gather_symmetric(S: np.ndarray, rows: np.ndarray, cols: np.ndarray) -> np.ndarray:
+    """S[np.ix_(rows, cols)] of a symmetric S held in either order, C-ordered: `gather_block`
+    on its row-major form (S itself, or S.T, the same matrix)."""
+    return gather_block(S if S.flags.c_contiguous else S.T, rows, cols)
+
+
 def column_major(F: np.ndarray) -> bool:
     """Whether F is a column-major float64 matrix or a leading block of one (unit row stride)."""
     return F.dtype == np.float64 and F.ndim == 2 and F.strides[0] == 8 and F.strides[1] >= 8 * max(1, F.shape[0])

@@ -485,6 +485,19 @@ def test_gather_block_equals_fancy_indexing():
         assert np.array_equal(got, S[np.ix_(rows, cols)]) and got.flags.c_contiguous
 
 
+@pytest.mark.parametrize("order", ["C", "F"])
+def test_gather_symmetric_equals_fancy_indexing_in_either_order(order):
+    # reference: numpy's own fancy indexing S[np.ix_(rows, cols)] of a symmetric S
+    from auditor.numerics.inplace import gather_symmetric
+
+    rng = np.random.default_rng(6)
+    A = rng.standard_normal((400, 400))
+    S = np.array(A + A.T, order=order)
+    rows, cols = rng.choice(400, 290, replace=False), np.sort(rng.choice(400, 130, replace=False))
+    got = gather_symmetric(S, rows, cols)
+    assert np.array_equal(got, S[np.ix_(rows, cols)]) and got.flags.c_contiguous
+
+
 def test_gather_triangle_is_the_lower_triangle_of_the_block():
     # reference: numpy's np.tril of the fancy-indexed block; the upper triangle is zero
     from auditor.numerics.inplace import gather_triangle
