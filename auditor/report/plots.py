@@ -524,7 +524,7 @@ def _kpoints_figure(d: dict) -> Figure:
     fig, ax = _new(8.6, 3.4)
     fig.subplots_adjust(left=0.09, right=0.70, top=0.88, bottom=0.16)
     positive = y[y > 0]
-    floor = 10.0 ** (math.floor(math.log10(min([pol["fail"], *positive[:1].tolist(), *positive.tolist()]))) - 1)
+    floor = 10.0 ** (math.floor(math.log10(min([pol["fail"], *positive.tolist()]))) - 1)
     low = y <= floor
     ax.semilogy(x[~low], y[~low], "o-", color=BLUE, ms=4, lw=1.0, label="smallest eigenvalue", zorder=3)
     if low.any():
