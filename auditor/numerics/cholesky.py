@@ -18,6 +18,7 @@ from .inplace import (
     column_major,
     gather_block,
     gather_triangle,
+    lower_copy,
     mirror_triangle,
     roomy_zeros,
     solve_lower_view,
@@ -490,8 +491,8 @@ def core_solver(shared: SharedCore, extra: np.ndarray | None = None) -> InverseS
     ``shared.rest``; all of them when None, that is all of S): the shared factor completed by
     the Cholesky factor of that block of the Schur complement. None when that block is not
     positive definite to rounding."""
-    if extra is None:  # a plain copy (the shared Schur complement stays as it is)
-        WE, T = shared.W, shared.schur.copy(order="F")
+    if extra is None:  # a copy of its lower triangle (the shared Schur complement stays as it is)
+        WE, T = shared.W, lower_copy(shared.schur)
     else:  # a new Fortran-ordered block with schur's lower triangle (extra ascending)
         WE, T = np.asfortranarray(shared.W[:, extra]), gather_block(shared.schur.T, extra, extra).T
     if _cholesky(T) != 0:

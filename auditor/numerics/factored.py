@@ -34,7 +34,7 @@ from .inplace import (
     _ldl_negative_count,
     _Triangles,
     gather_symmetric,
-    roomy_zeros,
+    lower_copy,
     solve_lower_view,
 )
 from .krylov import InverseSolver, _largest_eigenvalue, _smallest_eigenpairs, factor_solver
@@ -216,10 +216,7 @@ def _pivoted_count(
     if handoff is not None:
         # the leading block of an N x N array (its untouched pages cost nothing): room for the
         # remedies to work in it (`auditor.numerics.cholesky.delete_in_place`, add-back)
-        factor = roomy_zeros(n)[:rank, :rank]
-        for j in range(rank):  # the lower triangle, column by column (contiguous in Fortran order)
-            factor[j:, j] = A[j:rank, j]
-        handoff.give(shifted_result(order, factor, n, tau))
+        handoff.give(shifted_result(order, lower_copy(A[:rank, :rank], n), n, tau))
     rest = order[rank:]
     if rest.size == 0:
         return 0, None

@@ -191,6 +191,17 @@ def roomy_zeros(n: int) -> np.ndarray:
     return np.ndarray((n, n), dtype=np.float64, buffer=buf, order="F")
 
 
+def lower_copy(A: np.ndarray, order: int | None = None) -> np.ndarray:
+    """The lower triangle of the column-major square A (a leading block of a larger array
+    is fine) as the leading block of a new `roomy_zeros` array of ``order`` (A's by default;
+    larger leaves room to grow in place): its upper triangle stays zero and takes no memory."""
+    m = A.shape[0]
+    out = roomy_zeros(m if order is None else order)[:m, :m]
+    for j in range(m):  # columns are contiguous in Fortran order
+        out[j:, j] = A[j:, j]
+    return out
+
+
 def gather_triangle(S: np.ndarray, idx: np.ndarray) -> np.ndarray:
     """The lower triangle of the symmetric S[np.ix_(idx, idx)], in a `roomy_zeros` array
     (column-major) whose upper triangle stays zero and takes no memory: Cholesky and dsyrk

@@ -509,3 +509,16 @@ def test_gather_triangle_is_the_lower_triangle_of_the_block():
     got = gather_triangle(S, idx)
     assert np.array_equal(got, np.tril(S[np.ix_(idx, idx)]))
     assert got.flags.f_contiguous and got.flags.writeable
+
+
+def test_lower_copy_is_the_lower_triangle_with_room_to_grow():
+    # reference: numpy's np.tril of the block; a leading block of a larger column-major array
+    # as input, and the copy a leading block of a zeroed array of the order asked for
+    from auditor.numerics.inplace import lower_copy
+
+    rng = np.random.default_rng(9)
+    big = np.asfortranarray(rng.standard_normal((200, 200)))
+    got = lower_copy(big[:150, :150], 180)
+    assert np.array_equal(got, np.tril(big[:150, :150]))
+    assert got.base.shape == (180, 180) and not got.base[150:, :].any() and not got.base[:, 150:].any()
+    assert np.array_equal(lower_copy(big), np.tril(big)) and lower_copy(big).flags.f_contiguous
