@@ -281,10 +281,23 @@ def crowding_findings(S: np.ndarray, mol: Molecule, table: FunctionTable, troubl
     The largest |S_ij| between the two shells' functions decides; the closed-form
     s-type overlap at the shells' smallest exponents explains why.
     """
+    return crowding_from_maxima(diffuse_shell_maxima(S, table), mol, table, troubled)
+
+
+def diffuse_shell_maxima(S: np.ndarray, table: FunctionTable) -> np.ndarray | None:
+    """max |S_ij| over the functions of every pair of diffuse shells (None for fewer than two):
+    all that the crowding findings read of S."""
     dif_shells = np.flatnonzero(table.shell_diffuse)
-    if dif_shells.size < 2:
+    return None if dif_shells.size < 2 else _diffuse_block_maxima(S, table, dif_shells)
+
+
+def crowding_from_maxima(
+    shellmax: np.ndarray | None, mol: Molecule, table: FunctionTable, troubled: bool
+) -> list[Finding]:
+    """`crowding_findings` from the `diffuse_shell_maxima` of S."""
+    if shellmax is None:
         return []
-    shellmax = _diffuse_block_maxima(S, table, dif_shells)
+    dif_shells = np.flatnonzero(table.shell_diffuse)
     satom = table.shell_atom[dif_shells]
     best: dict[tuple[int, int], tuple[float, int, int]] = {}
     ii, jj = np.nonzero(np.triu(shellmax >= CROWDING_OVERLAP, k=1))

@@ -15,6 +15,7 @@ from scipy.linalg import lapack
 from ..base.errors import InputError, UsageError
 from .inplace import (
     _cholesky,
+    _Triangles,
     column_major,
     gather_block,
     gather_triangle,
@@ -445,15 +446,27 @@ def verify_mode(n: int) -> str:
 def smallest_eigenvalue_cached(S: np.ndarray, idx: np.ndarray, cache: dict | None) -> float:
     """`smallest_eigenvalue`, remembered in ``cache`` (keyed by S's identity and the index
     set) so that remedies that keep the same functions share one computation; through the
-    `SharedCore` of S in the cache (``cache[("core", id(S))]``) when ``idx`` contains it."""
+    `SharedCore` of S in the cache (``cache[("core", id(S))]``) when ``idx`` contains it;
+    S is made whole first (`end_loan`) when it is read itself."""
     if cache is None:
         return smallest_eigenvalue(S, idx)
     key = (id(S), np.asarray(idx, dtype=np.int64).tobytes())
     if key not in cache:
         shared = cache.get(("core", id(S)))
         value = None if shared is None else smallest_with_core(np.asarray(idx), shared)
-        cache[key] = smallest_eigenvalue(S, idx) if value is None else value
+        if value is None:
+            end_loan(cache, S)
+            value = smallest_eigenvalue(S, idx)
+        cache[key] = value
     return cache[key]
+
+
+def end_loan(cache: dict | None, S: np.ndarray) -> None:
+    """Make S whole when ``cache`` holds the `FactorHandoff` that lends S's lower triangle
+    (under ("lender", id(S))): before anything reads S other than through the shared core."""
+    lender = None if cache is None else cache.pop(("lender", id(S)), None)
+    if lender is not None:
+        lender.whole()
 
 
 @dataclass(frozen=True)
@@ -615,17 +628,46 @@ class FactorHandoff:
     """Factorizations made by one step (the large spectrum) for a later one (the remedies),
     which takes each once: the shift-pivoted factorization of S - level*I
     (`shifted_pivoted_cholesky`, the function subset at that level; its factor is one N x N
-    array) and the `SharedCore` of the non-diffuse functions (the diffuse options)."""
+    array) and the `SharedCore` of the non-diffuse functions (the diffuse options).
+
+    The pivoted factor may be *lent*: left in the lower triangle of S's own array (whose
+    strict upper triangle and saved diagonal still hold S), to be copied out only when it is
+    taken, once the shared core has been released, so that the copy reuses the core's memory
+    instead of new memory. While it is lent S must not be read below its diagonal: `whole`
+    makes S whole first (the factor is then copied out at once); `take` and `release` end
+    the loan."""
 
     def __init__(self) -> None:
         self._result: CholeskyResult | None = None
         self._core: SharedCore | None = None
+        self._lent: tuple[_Triangles, np.ndarray, int, float] | None = None
 
     def give(self, result: CholeskyResult) -> None:
         self._result = result
 
+    def lend(self, tri: _Triangles, order: np.ndarray, rank: int, shift: float) -> None:
+        """Hold the factor of rank ``rank`` that the pivoted factorization left in ``tri``'s
+        lower triangle (pivot ``order``, of S - shift*I) without copying it."""
+        self._lent = (tri, order, rank, shift)
+
+    @property
+    def lending(self) -> bool:
+        """Whether S's lower triangle holds the factor (S not whole)."""
+        return self._lent is not None
+
+    def whole(self) -> None:
+        """End the loan: copy the factor out, then put S back in its lower triangle."""
+        if self._lent is None:
+            return
+        tri, order, rank, shift = self._lent
+        n = tri.A.shape[0]
+        self._result = shifted_result(order, lower_copy(tri.A[:rank, :rank], n), n, shift)
+        tri.restore()
+        self._lent = None
+
     def take(self) -> CholeskyResult | None:
         """The factorization (its shift is its ``tol``), if any; the handoff is empty afterwards."""
+        self.whole()
         result, self._result = self._result, None
         return result
 
@@ -638,5 +680,7 @@ class FactorHandoff:
         return shared
 
     def release(self) -> None:
-        """Drop whatever is still held (when no remedy will take it)."""
-        self._result, self._core = None, None
+        """Drop whatever is still held (when no remedy will take it), S whole again."""
+        if self._lent is not None:
+            self._lent[0].restore()
+        self._result, self._core, self._lent = None, None, None

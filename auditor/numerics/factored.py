@@ -27,7 +27,7 @@ import numpy as np
 import scipy.linalg
 
 from ..base.errors import ResourceError
-from .cholesky import FactorHandoff, core_solver, pstrf_until_nonpositive, shared_core, shifted_result
+from .cholesky import FactorHandoff, SharedCore, core_solver, pstrf_until_nonpositive, shared_core, shifted_result
 from .inplace import (
     _cholesky,
     _fortran_view,
@@ -73,16 +73,15 @@ def large_spectrum(
 ) -> Spectrum:
     """Spectrum of unit-diagonal S without a full eigendecomposition.
 
-    S is used as workspace and restored (symmetric, from its mirror triangle) before
-    returning. Computes the max(m, min_vectors) smallest eigenpairs (and a few more, to see
-    where the degenerate group at the cut ends), m the exact number below ``vector_level``
-    capped at ``max_vectors``. A count at a decade is reported only when established
-    (Cholesky success, inertia, or all eigenvalues below it computed), else None;
-    ``exact_counts`` adds one LDL^T per missing decade. ``tol`` bounds the relative residual
-    of the Ritz pairs of (S - sigma I)^-1 (eigenvalue errors are about its square); ``info``
-    receives timings and counts; ``stage`` is told the name of each step as it starts.
-    ``handoff`` receives the pivoted factorization of S - vector_level*I when one is made,
-    and, with ``core`` (non-diffuse functions), the `SharedCore` that then applies S^-1.
+    S is workspace, restored (from its mirror triangle) before returning, unless ``handoff``
+    holds the pivoted factor lent in its lower triangle (`FactorHandoff.lend`; S is whole
+    again when that is taken or released). Computes the max(m, min_vectors) smallest
+    eigenpairs (`_krylov_step`), m the exact number below ``vector_level`` capped at
+    ``max_vectors``. Counts at decades only when established (Cholesky success, inertia,
+    all eigenvalues below computed), else None; ``exact_counts`` adds one LDL^T per missing
+    one. ``tol``: relative residual of the Ritz pairs of (S - sigma I)^-1. ``info`` gets
+    timings and counts, ``stage`` each step's name; ``handoff`` the pivoted factorization of
+    S - vector_level*I and, with ``core`` (non-diffuse functions), its `SharedCore`.
     """
     info = {} if info is None else info
     stage = stage or _quiet
@@ -96,26 +95,51 @@ def large_spectrum(
     tri = _Triangles(A)
     try:
         widest = _block_size(min(n, max_vectors + GROUP_MARGIN), n)  # start block columns at most
-        below_tau, factored_at_tau, start = _count_below(tri, tau, info, stage, handoff, radii, widest)
-        inverse = _inverse(tri, tau if factored_at_tau else None, largest, info, handoff, core, stage)
+        factored_at_tau = _attempt(tri, tau, info, stage, radii)
+        shared, below_tau, start = None, 0, None
+        if not factored_at_tau:
+            shared, below_tau, start = _core_and_count(tri, tau, info, stage, handoff, core, widest, exact_counts)
+        inverse = _inverse(tri, tau if factored_at_tau else None, largest, info, handoff, shared, stage)
         k = min(n, max(min(below_tau, max_vectors), min_vectors))
-        want = min(n, k + GROUP_MARGIN)  # a few past k show where the group at the cut ends
-        stage(f"{want} smallest eigenpairs (block Krylov)")
-        values, vectors = _sorted_eigenpairs(inverse, want, tol, maxiter, seed, info, start)
-        if start is not None and np.searchsorted(values, tau) < min(below_tau, want):
-            # fewer Ritz values below tau than the inertia counts: start again at random
-            values, vectors = _sorted_eigenpairs(inverse, want, tol, maxiter, seed, info, None)
-        info["ritz_below_vector_level"] = int(np.searchsorted(values, tau))
+        values, vectors = _krylov_step(inverse, k, tau, below_tau, start, (tol, maxiter, seed), info, stage)
         counts = _established_counts(values, tau, below_tau, inverse.shift, all_below_tau=k >= below_tau)
         if exact_counts:
             _add_exact_counts(tri, counts, info)
+    except BaseException:
+        if handoff is not None:
+            handoff.release()  # nothing will take what it holds; S whole again
+        raise
     finally:
-        tri.restore()
+        if handoff is None or not handoff.lending:
+            tri.restore()
     info["t_total"] = time.perf_counter() - t0
     wanted = max(min(below_tau, max_vectors), 1)  # the cause vectors: those below tau, else the smallest group
     spectrum = _assemble(values, vectors, largest, counts, 1.0 - float(radii.max(initial=0.0)), wanted)
     # exactly below_tau eigenvalues lie below tau, so the first one not computed is >= tau
     return replace(spectrum, beyond=tau if values.size >= below_tau else None)
+
+
+def _krylov_step(
+    inverse: _Inverse,
+    k: int,
+    tau: float,
+    below_tau: int,
+    start: np.ndarray | None,
+    how: tuple[float, int, int],
+    info: dict[str, Any],
+    stage: Callable[[str], None],
+) -> tuple[np.ndarray, np.ndarray]:
+    """The k smallest eigenpairs and a few more, to see where the degenerate group at the cut
+    ends (`_sorted_eigenpairs`; ``how``: its tol, maxiter and seed), from ``start`` first."""
+    tol, maxiter, seed = how
+    want = min(inverse.solver.size, k + GROUP_MARGIN)
+    stage(f"{want} smallest eigenpairs (block Krylov)")
+    values, vectors = _sorted_eigenpairs(inverse, want, tol, maxiter, seed, info, start)
+    if start is not None and np.searchsorted(values, tau) < min(below_tau, want):
+        # fewer Ritz values below tau than the inertia counts: start again at random
+        values, vectors = _sorted_eigenpairs(inverse, want, tol, maxiter, seed, info, None)
+    info["ritz_below_vector_level"] = int(np.searchsorted(values, tau))
+    return values, vectors
 
 
 def _assemble(values, vectors, largest: float, counts, bound: float, wanted: int) -> Spectrum:
@@ -154,35 +178,45 @@ def _quiet(_: str) -> None:
     pass
 
 
-def _count_below(
+def _attempt(
+    tri: _Triangles, tau: float, info: dict[str, Any], stage: Callable[[str], None], radii: np.ndarray
+) -> bool:
+    """Whether S - tau*I is positive definite: a Cholesky attempt (skipped when a block of the
+    most overlapping functions already has an eigenvalue below tau, `_block_has_one_below`).
+    When it is, the lower triangle of ``tri`` holds its Cholesky factor."""
+    t1 = time.perf_counter()
+    stage(f"Cholesky attempt of S - {tau:.0e} I")
+    factored = not _block_has_one_below(tri.A, radii, tau) and _cholesky(tri.load(tau)) == 0
+    info["t_cholesky_tau"] = time.perf_counter() - t1
+    info["below_vector_level"] = 0
+    return factored
+
+
+def _core_and_count(
     tri: _Triangles,
     tau: float,
     info: dict[str, Any],
     stage: Callable[[str], None],
     handoff: FactorHandoff | None,
-    radii: np.ndarray,
+    core: np.ndarray | None,
     columns: int,
-) -> tuple[int, bool, np.ndarray | None]:
-    """Number of eigenvalues of S below ``tau``, whether S - tau*I was factored, and Ritz
-    vectors (at most ``columns``) for the Krylov start block when the count made them.
+    exact_counts: bool,
+) -> tuple[SharedCore | None, int, np.ndarray | None]:
+    """The `SharedCore` of ``core`` when it will be handed on (`_early_core`), then
+    `_pivoted_count`: (shared core or None, count below tau, start block or None).
 
-    A Cholesky attempt of S - tau*I decides whether there is any (skipped when a block of the
-    most overlapping functions already has one, `_block_has_one_below`); when there are, a
-    pivoted factorization counts them (`_pivoted_count`). When the attempt succeeds (the
-    count is 0), the lower triangle of ``tri`` holds the Cholesky factor of S - tau*I.
-    """
+    The core comes first, while S is whole, so that the pivoted factor can then stay lent in
+    S's lower triangle (not with ``exact_counts``, whose factorizations need that triangle)."""
     t1 = time.perf_counter()
-    stage(f"Cholesky attempt of S - {tau:.0e} I")
-    factored = not _block_has_one_below(tri.A, radii, tau) and _cholesky(tri.load(tau)) == 0
-    info["t_cholesky_tau"] = time.perf_counter() - t1
-    below_tau, start = 0, None
-    if not factored:
-        t1 = time.perf_counter()
-        stage(f"pivoted Cholesky inertia of S - {tau:.0e} I")
-        below_tau, start = _pivoted_count(tri, tau, handoff, columns)
-        info["t_inertia_tau"] = time.perf_counter() - t1
+    shared = _early_core(tri, handoff, core, stage)
+    info["t_core"] = time.perf_counter() - t1
+    t1 = time.perf_counter()
+    stage(f"pivoted Cholesky inertia of S - {tau:.0e} I")
+    lend = shared is not None and not exact_counts
+    below_tau, start = _pivoted_count(tri, tau, handoff, columns, lend)
+    info["t_inertia_tau"] = time.perf_counter() - t1
     info["below_vector_level"] = below_tau
-    return below_tau, factored, start
+    return shared, below_tau, start
 
 
 def _block_has_one_below(A: np.ndarray, radii: np.ndarray, tau: float) -> bool:
@@ -199,7 +233,7 @@ def _block_has_one_below(A: np.ndarray, radii: np.ndarray, tau: float) -> bool:
 
 
 def _pivoted_count(
-    tri: _Triangles, tau: float, handoff: FactorHandoff | None, columns: int
+    tri: _Triangles, tau: float, handoff: FactorHandoff | None, columns: int, lend: bool = False
 ) -> tuple[int, np.ndarray | None]:
     """Number of eigenvalues of S below ``tau`` from one pivoted Cholesky of S - tau*I, and
     up to ``columns`` Ritz vectors of S for a start block (`_ritz_start`; None when no
@@ -208,12 +242,15 @@ def _pivoted_count(
     It stops at its first pivot that is not positive, so its leading block is positive
     definite and, by Haynsworth's inertia additivity, S - tau*I has as many negative
     eigenvalues as the Schur complement of the functions left (few), counted by LDL^T
-    inertia. ``handoff`` (when given) receives the factorization with a copy of its factor.
+    inertia. ``handoff`` (when given) receives the factorization: with a copy of its factor,
+    or with ``lend`` the factor left where it is (`FactorHandoff.lend`; S is then not whole).
     """
     A = tri.load(tau)
     n = A.shape[0]
     order, rank = pstrf_until_nonpositive(A)
-    if handoff is not None:
+    if handoff is not None and lend:
+        handoff.lend(tri, order, rank, tau)
+    elif handoff is not None:
         # the leading block of an N x N array (its untouched pages cost nothing): room for the
         # remedies to work in it (`auditor.numerics.cholesky.delete_in_place`, add-back)
         handoff.give(shifted_result(order, lower_copy(A[:rank, :rank], n), n, tau))
@@ -261,48 +298,49 @@ class _Inverse:
     order: np.ndarray | None = None
 
 
+def _early_core(
+    tri: _Triangles, handoff: FactorHandoff | None, core: np.ndarray | None, stage: Callable[[str], None]
+) -> SharedCore | None:
+    """The `SharedCore` of ``core``, gathered from S made whole; None without a handoff to
+    take it, when ``core`` is empty or everything, or when S[core, core] is not positive
+    definite to rounding."""
+    n = tri.A.shape[0]
+    if handoff is None or core is None or not 0 < np.unique(core).size < n:
+        return None
+    stage("Cholesky factor of S in blocks, non-diffuse first")
+    tri.restore()  # S whole again: the core's blocks are gathered from it
+    return shared_core(tri.A.T, core)  # C-ordered S: its rows are gathered whole
+
+
 def _inverse(
     tri: _Triangles,
     factored: float | None,
     largest: float,
     info: dict[str, Any],
     handoff: FactorHandoff | None,
-    core: np.ndarray | None,
+    shared: SharedCore | None,
     stage: Callable[[str], None],
 ) -> _Inverse:
     """The inverse of S - shift*I for the Krylov iteration: through the factor of S - tau*I
-    already in ``tri`` (``factored`` = tau), through the `SharedCore` of ``core`` (then
-    given to ``handoff``), or through the Cholesky factor of S below its spectrum."""
+    already in ``tri`` (``factored`` = tau), through ``shared`` (then given to ``handoff``),
+    or through the Cholesky factor of S below its spectrum (made in ``tri``, the factor
+    ``handoff`` holds there copied out first)."""
     t1 = time.perf_counter()
-    if factored is None:
-        blocks = handoff is not None and core is not None
-        stage(
-            "Cholesky factor of S in blocks, non-diffuse first" if blocks else "Cholesky factor of S below its spectrum"
-        )
-    inverse = _core_inverse(tri, handoff, core) if factored is None else None
-    if inverse is None:
-        shift = factored if factored is not None else _factor_below_spectrum(tri, largest)
-        inverse = _Inverse(shift, factor_solver(tri.A))
+    solver = None if factored is not None or shared is None else core_solver(shared)
+    if factored is not None:
+        inverse = _Inverse(factored, factor_solver(tri.A))
+    elif shared is not None and solver is not None and handoff is not None:
+        handoff.give_core(shared)
+        inverse = _Inverse(0.0, solver, np.concatenate((shared.core, shared.rest)))
+    else:
+        if handoff is not None:
+            handoff.whole()  # the triangle is needed for the factor of S
+        stage("Cholesky factor of S below its spectrum")
+        inverse = _Inverse(_factor_below_spectrum(tri, largest), factor_solver(tri.A))
     info["t_cholesky_shift"] = time.perf_counter() - t1
     info["shift"] = inverse.shift
     info["inverse"] = "core blocks" if inverse.order is not None else "cholesky"
     return inverse
-
-
-def _core_inverse(tri: _Triangles, handoff: FactorHandoff | None, core: np.ndarray | None) -> _Inverse | None:
-    """S^-1 through the `SharedCore` of ``core`` (given to ``handoff``); None without a
-    handoff to take it, when ``core`` is empty or everything, or when S is not positive
-    definite to rounding that way."""
-    n = tri.A.shape[0]
-    if handoff is None or core is None or not 0 < np.unique(core).size < n:
-        return None
-    tri.restore()  # S whole again: the core's blocks are gathered from it
-    shared = shared_core(tri.A.T, core)  # C-ordered S: its rows are gathered whole
-    solver = None if shared is None else core_solver(shared)
-    if shared is None or solver is None:
-        return None
-    handoff.give_core(shared)
-    return _Inverse(0.0, solver, np.concatenate((shared.core, shared.rest)))
 
 
 def _sorted_eigenpairs(

@@ -77,7 +77,7 @@ def estimate_bytes(n_functions: int, method: str, max_vectors: int = DEFAULT_MAX
         k = min(n, max(max_vectors, min_vectors))
         p = _block_size(k, n)
         basis = 8 * n * ((KRYLOV_MAX_DEPTH + 2) * p + k + 64) + 2 * 8 * (KRYLOV_MAX_DEPTH * p) ** 2
-        return s + max(basis, findings)  # the findings run after the spectrum step
+        return s + max(basis, findings)  # the findings' scan of S runs before the spectrum step
     if method == "auto":
         return estimate_bytes(n, resolve_method(n, "auto"), max_vectors, min_vectors)
     raise UsageError(f"unknown spectrum method {method!r}; choose one of {', '.join(METHODS)}")

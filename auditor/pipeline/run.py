@@ -18,7 +18,8 @@ from ..diagnosis.causes import Causes, attribute_causes
 from ..diagnosis.findings import (
     SEVERITY_ORDER,
     Finding,
-    crowding_findings,
+    crowding_from_maxima,
+    diffuse_shell_maxima,
     duplicate_findings,
     geometry_findings,
     near_singular_finding,
@@ -162,10 +163,30 @@ def audit_core(
     stage = stage or _quiet
     keep = for_remedies and remedies_fit(prep.table.n_functions)
     core = prep.table.non_diffuse if keep else None  # the remedies' diffuse options keep these
+    # what the findings read of S, read first: the spectrum may lend S's lower triangle to the
+    # remedies (auditor.numerics.cholesky.FactorHandoff)
+    stage("duplicate and crowded functions")
+    scan = (duplicate_findings(prep.S, prep.table), diffuse_shell_maxima(prep.S, prep.table))
     spec = compute_spectrum(prep.S, policy.caution, spectrum_method, stage, keep_factor=keep, core=core)
+    try:
+        return _diagnose(prep, policy, spec, scan, stage)
+    except BaseException:
+        if spec.handoff is not None:
+            spec.handoff.release()  # S whole again
+        raise
+
+
+def _diagnose(
+    prep: Prepared,
+    policy: Policy,
+    spec: Spectrum,
+    scan: tuple[list[Finding], np.ndarray | None],
+    stage: Callable[[str], None],
+) -> Audited:
+    """Causes, findings, verdict and advice of one frame from its spectrum and ``scan``."""
     stage("findings and causes")
     causes = attribute_causes(spec.vectors, prep.table, below=policy.caution, n_below=spec.count_below(policy.caution))
-    findings = _findings(prep, spec, policy, causes)
+    findings = _findings(prep, spec, policy, causes, scan)
     decision = decide(policy, spec.smallest, findings)
     broken = decision.finding in BROKEN_KINDS
     if broken:
@@ -213,12 +234,15 @@ def _quiet(_: str) -> None:
     pass
 
 
-def _findings(prep: Prepared, spec: Spectrum, policy: Policy, causes: Causes) -> list[Finding]:
-    """Every finding, errors first (stable within a severity)."""
-    mol, table, S = prep.molecule, prep.table, prep.S
+def _findings(
+    prep: Prepared, spec: Spectrum, policy: Policy, causes: Causes, scan: tuple[list[Finding], np.ndarray | None]
+) -> list[Finding]:
+    """Every finding, errors first (stable within a severity); ``scan``: the duplicate
+    findings and the diffuse shells' overlap maxima, read from S before its spectrum."""
+    mol, table = prep.molecule, prep.table
     findings: list[Finding] = geometry_findings(mol, policy.contact_fail, policy.contact_caution)
-    findings += duplicate_findings(S, table)
-    findings += crowding_findings(S, mol, table, troubled=spec.smallest < policy.caution)
+    findings += scan[0]
+    findings += crowding_from_maxima(scan[1], mol, table, troubled=spec.smallest < policy.caution)
     if spec.smallest < policy.caution:
         findings.insert(0, near_singular_finding(spec, policy, causes))
     findings.sort(key=lambda f: SEVERITY_ORDER[f.severity])

@@ -16,6 +16,8 @@ from ..base.defaults import TRIAL_MAX_FUNCTIONS, TRIAL_TIME_LIMIT
 from ..base.errors import UsageError
 from ..numerics.cholesky import (
     CholeskyResult,
+    FactorHandoff,
+    end_loan,
     shared_core,
     smallest_eigenvalue,
     smallest_eigenvalue_cached,
@@ -192,6 +194,7 @@ def _share_core(cache: dict, S: np.ndarray, core: np.ndarray, worth_it: bool) ->
         return
     cache.pop(key, None)
     if worth_it and verify_mode(S.shape[0]) == "lanczos":
+        end_loan(cache, S)
         cache[key] = shared_core(S, core)
 
 
@@ -511,17 +514,25 @@ def plan_frames(
 
     Nothing is computed when every frame already meets the target (and not ``force``).
     """
-    target = check_target(target)
     fr = _Frames(list(preps), list(spectra), frame_order([s.smallest for s in spectra]))
-    table = fr.worst.table
-    at = _at_target(fr.spectra, target)
-    plan = RemedyPlan(target=target, needed=bool(min(s.smallest for s in spectra) < target), lower_bound=at.removed)
-    if len(fr.preps) > 1:
-        plan.deciding_frame = fr.worst.molecule.frame + 1
     # the spectrum's factorization of S - target*I and shared core, when it made them (one frame)
     handoff = fr.spectra[0].handoff if len(fr.spectra) == 1 else None
-    pivoted = handoff.take() if handoff is not None else None
-    shared = handoff.take_core() if handoff is not None else None
+    try:
+        return _plan(fr, recommendation, check_target(target), force, handoff)
+    finally:
+        if handoff is not None:
+            handoff.release()  # whatever was not taken is dropped; S whole again
+
+
+def _plan(
+    fr: _Frames, recommendation: Recommendation, target: float, force: bool, handoff: FactorHandoff | None
+) -> RemedyPlan:
+    """`plan_frames` once the frames are sorted (``handoff``: the spectrum's, or None)."""
+    table = fr.worst.table
+    at = _at_target(fr.spectra, target)
+    plan = RemedyPlan(target=target, needed=bool(min(s.smallest for s in fr.spectra) < target), lower_bound=at.removed)
+    if len(fr.preps) > 1:
+        plan.deciding_frame = fr.worst.molecule.frame + 1
     if not plan.needed and not force:
         return plan
     problem = _memory_problem(table.n_functions, len(fr.preps))
@@ -532,18 +543,22 @@ def plan_frames(
     atoms = table.func_atom - 1
     if recommendation.threshold is not None:  # none is advised for a broken geometry
         plan.alternatives.append(_canonical(at, target))
-    # the diffuse options and the named basis go first, so that the shared core they use is
-    # released before the function subset works in its factor; they are listed after it
+    # The diffuse options and the named basis go first, through the shared core, while the
+    # pivoted factor may still be lent in S's lower triangle; the function subset then takes
+    # the factor, copied into the memory the core has just freed. They are listed after it.
     first = len(plan.alternatives)
-    cache: dict = {} if shared is None else {("core", id(fr.worst_first[0])): shared}
+    shared = handoff.take_core() if handoff is not None else None
+    S = fr.worst_first[0]
+    cache: dict = {} if shared is None else {("core", id(S)): shared}
+    if handoff is not None:
+        cache[("lender", id(S))] = handoff  # a read of S beyond the core ends the loan first
     del shared
     _add_diffuse_options(plan, fr.worst_first, table, cache)
     _add_named_basis(plan, fr, table.n_functions, cache)
     del cache
     later = plan.alternatives[first:]
     del plan.alternatives[first:]
-    _add_function_subset(plan, fr.worst_first, atoms, mode, pivoted)
-    del pivoted  # its factor now lives in plan.functions
+    _add_function_subset(plan, fr.worst_first, atoms, mode, handoff.take() if handoff is not None else None)
     _add_shell_prunings(plan, fr, atoms, mode)
     if plan.functions is not None:  # its factor served the shell prunings: release it
         plan.functions = replace(plan.functions, factor=None)

@@ -439,7 +439,12 @@ def test_eigenpairs_through_a_shared_core_agree_with_eigh(distance):
     handoff, info = FactorHandoff(), {}
     spec = large_spectrum(S, 1e-5, handoff=handoff, core=core, info=info)
     assert info["inverse"] == "core blocks" and info["shift"] == 0.0
-    assert np.array_equal(S, S0)  # restored
+    # the pivoted factor stays lent in the lower triangle of S's column-major view; the strict
+    # upper triangle still holds S
+    assert handoff.lending
+    A, A0 = (S, S0) if S.flags.f_contiguous else (S.T, S0.T)
+    upper = np.triu_indices(n, 1)
+    assert np.array_equal(A[upper], A0[upper]) and not np.array_equal(S, S0)
     m = spec.values.size
     tol = np.maximum(1e-8 * w[:m], 64 * np.finfo(float).eps * w[-1])
     assert np.all(np.abs(spec.values - w[:m]) <= tol)
@@ -458,6 +463,14 @@ def test_eigenpairs_through_a_shared_core_agree_with_eigh(distance):
     )
     assert np.allclose(shared.schur, np.tril(schur), atol=1e-10)
     assert handoff.take_core() is None  # taken once
+    # taking the factor copies it out and makes S whole; reference: an independent
+    # shift-pivoted factorization of a copy of S
+    from auditor.numerics.cholesky import shifted_pivoted_cholesky
+
+    got, ref = handoff.take(), shifted_pivoted_cholesky(S0.copy(), 1e-5)
+    assert np.array_equal(S, S0) and not handoff.lending
+    assert got is not None and np.array_equal(got.pivots, ref.pivots)
+    assert np.allclose(np.tril(got.factor), np.tril(ref.factor), atol=1e-12)
     handoff.release()
     assert handoff.take() is None
 
@@ -522,3 +535,71 @@ def test_lower_copy_is_the_lower_triangle_with_room_to_grow():
     assert np.array_equal(got, np.tril(big[:150, :150]))
     assert got.base.shape == (180, 180) and not got.base[150:, :].any() and not got.base[:, 150:].any()
     assert np.array_equal(lower_copy(big), np.tril(big)) and lower_copy(big).flags.f_contiguous
+
+
+def _lent(distance=0.05):
+    """S of the trimer with a ghost, the large path run on it with a handoff and a core of
+    scattered functions (so that the pivoted factor stays lent), and S's original."""
+    from auditor.numerics.cholesky import FactorHandoff
+
+    S = trimer_with_ghost(distance)
+    n, S0 = S.shape[0], S.copy()
+    core = np.setdiff1d(np.arange(n), np.union1d(np.arange(n - 23, n), np.arange(0, n, 7)))
+    handoff = FactorHandoff()
+    large_spectrum(S, 1e-5, handoff=handoff, core=core)
+    assert handoff.lending and not np.array_equal(S, S0)
+    return S, S0, core, handoff
+
+
+def test_releasing_a_lent_factor_makes_s_whole():
+    # reference: S as it was before the large path ran (restored bit for bit)
+    S, S0, _, handoff = _lent()
+    handoff.release()
+    assert np.array_equal(S, S0) and not handoff.lending and handoff.take() is None
+
+
+def test_a_failure_after_the_loan_leaves_s_whole():
+    # the Krylov step cannot converge (tol 1e-300): the error propagates, S is restored and
+    # the handoff holds nothing (reference: S as it was)
+    from auditor.numerics.cholesky import FactorHandoff
+
+    S = trimer_with_ghost(0.05)
+    n, S0 = S.shape[0], S.copy()
+    core = np.setdiff1d(np.arange(n), np.arange(0, n, 7))
+    handoff = FactorHandoff()
+    with pytest.raises(ResourceError, match="did not converge"):
+        large_spectrum(S, 1e-5, handoff=handoff, core=core, maxiter=1, tol=1e-300)
+    assert np.array_equal(S, S0) and not handoff.lending and handoff.take() is None
+
+
+def test_a_read_of_s_beyond_the_core_ends_the_loan_first():
+    # A kept set without the whole core cannot be served by the shared core, so S itself is
+    # read: the lender in the cache makes it whole first (reference: numpy.linalg.eigvalsh
+    # of the block of the original S); the factor is still there to take afterwards.
+    from auditor.numerics.cholesky import shifted_pivoted_cholesky, smallest_eigenvalue_cached
+
+    S, S0, core, handoff = _lent()
+    idx = np.setdiff1d(np.arange(S.shape[0]), core[:5])  # five core functions left out
+    cache = {("core", id(S)): handoff.take_core(), ("lender", id(S)): handoff}
+    got = smallest_eigenvalue_cached(S, idx, cache)
+    assert got == pytest.approx(np.linalg.eigvalsh(S0[np.ix_(idx, idx)])[0], rel=1e-8)
+    assert np.array_equal(S, S0) and not handoff.lending and ("lender", id(S)) not in cache
+    factor, ref = handoff.take(), shifted_pivoted_cholesky(S0.copy(), 1e-5)
+    assert factor is not None and np.array_equal(factor.pivots, ref.pivots)
+
+
+def test_the_audit_leaves_s_whole_and_finds_what_the_dense_path_finds(tmp_path):
+    # the findings read S before its spectrum lends a triangle; after the whole audit with
+    # remedies S is whole again (reference: the overlap matrix built anew, and the dense path)
+    from auditor.inputs.readers import load_molecules
+    from auditor.pipeline.run import audit_prepared, make_spec, prepare
+
+    mol = load_molecules(_write_trimer_with_ghost(tmp_path / "g.xyz", 0.05), ghost="10")[0]
+    runs = []
+    for method in ("large", "full"):
+        prep = prepare(mol, make_spec("aug-cc-pvdz"), method)
+        S0 = prep.S.copy()
+        runs.append(audit_prepared(prep, spectrum_method=method))
+        assert np.array_equal(prep.S, S0)
+    assert [f.kind for f in runs[0].findings] == [f.kind for f in runs[1].findings]
+    assert [f.message for f in runs[0].findings[1:]] == [f.message for f in runs[1].findings[1:]]
