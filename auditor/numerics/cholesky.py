@@ -23,6 +23,7 @@ from .inplace import (
     mirror_triangle,
     roomy_zeros,
     solve_lower_view,
+    tplqt_in_place,
     tpqrt_in_place,
 )
 from .krylov import InverseSolver, _smallest_eigenpairs, factor_solver
@@ -582,13 +583,15 @@ def delete_in_place(L: np.ndarray, drop: np.ndarray, chunk: int = 256) -> np.nda
     """A lower triangular F with F F^T = A[keep, keep] from the lower Cholesky factor L of
     A = L L^T (``keep``: every position not in ``drop``; F's diagonal signs are arbitrary),
     made in L's own memory, which is lost: no new N x N array. L must be column-major (or a
-    leading block of a column-major array); F is its leading m x m block, m the number kept.
+    leading block of a column-major array); F is its leading m x m block, m the number kept;
+    its strict upper triangle is zero when L's is (it is not written where it can be avoided).
 
     Only the rows from the first dropped position j0 on change. The kept rows and columns
     move up and left; with P the kept positions after j0 and D the dropped ones, A[P, P] =
-    L[P, :] L[P, :]^T less the dropped columns' part, so F's trailing block is the R^T of the
-    QR factorization of the triangular-pentagonal [L[P, P]^T; L[P, D]^T] (LAPACK dtpqrt, on
-    the block's mirror image): about 2 |P|^2 |D| flops against m^3 / 3 anew."""
+    L[P, :] L[P, :]^T less the dropped columns' part, so F's trailing block is the L of the
+    LQ factorization of the triangular-pentagonal [L[P, P], L[P, D]] (LAPACK dtplqt, in the
+    lower triangle; where that routine is missing, the R^T of dtpqrt's QR factorization of
+    the transpose, on the block's mirror image): about 2 |P|^2 |D| flops against m^3 / 3."""
     drop = np.unique(np.asarray(drop, dtype=np.int64))
     if drop.size == 0:
         return L
@@ -600,18 +603,24 @@ def delete_in_place(L: np.ndarray, drop: np.ndarray, chunk: int = 256) -> np.nda
     # Every gather reads whole columns of L, the rows of its row-major view L.T (`gather_block`;
     # element-wise np.ix_ gathers on a column-major array were the slow part).
     LT = L.T
-    X = np.asfortranarray(gather_block(LT, drop, tail))  # L[tail, drop]^T
+    Y = gather_block(LT, drop, tail).T  # L[tail, drop], Fortran-ordered
     # Rows move up and columns left: column c of the result is column source[c] at the rows
     # ``tail``. A chunk is gathered before it is written, and a later chunk's sources lie
-    # beyond all rows written.
+    # beyond all rows written. Only the lower triangle is written (the upper one, zero, keeps
+    # its pages untouched: new memory on this path costs more than the arithmetic).
     source = np.concatenate((np.arange(j0), tail))
     for c0 in range(0, m, chunk):
         c1 = min(m, c0 + chunk)
-        LT[c0:c1, j0:m] = gather_block(LT, source[c0:c1], tail)
+        moved = gather_block(LT, source[c0:c1], tail)
+        LT[c0 : min(c1, j0), j0:m] = moved[: max(0, j0 - c0)]  # columns left of j0: rows j0.. all lower
+        for c in range(max(c0, j0), c1):
+            LT[c, c:m] = moved[c - c0, c - j0 :]
     block = L[j0:m, j0:m]
-    mirror_triangle(block, upward=True)  # R form: the upper triangle LAPACK works on
-    tpqrt_in_place(block, X)
-    mirror_triangle(block, upward=False)
+    if not tplqt_in_place(block, Y):  # the LQ form needs no upper triangle (new memory)
+        X = np.asfortranarray(Y.T)
+        mirror_triangle(block, upward=True)  # R form: the upper triangle LAPACK works on
+        tpqrt_in_place(block, X)
+        mirror_triangle(block, upward=False)
     return L[:m, :m]
 
 

@@ -4,9 +4,11 @@ from __future__ import annotations
 
 import ctypes
 import mmap
+from pathlib import Path
 from typing import Any
 
 import numpy as np
+import scipy
 from scipy.linalg import cython_blas, cython_lapack, lapack
 
 
@@ -50,6 +52,21 @@ def _fortran_routine(module, name: str, n_args: int):
     return ctypes.CFUNCTYPE(None, *([ctypes.c_void_p] * n_args))(address)
 
 
+def _vendored_routine(name: str, n_args: int):
+    """LAPACK routine ``name`` (for example "dtplqt", which scipy's cython_lapack does not
+    export) from the OpenBLAS that scipy's wheels bundle (LP64, symbols prefixed "scipy_",
+    already loaded for scipy.linalg); None elsewhere (another build of scipy, another
+    LAPACK), where the callers fall back on the routines cython_lapack has."""
+    root = Path(scipy.__file__).parent
+    for path in sorted([*root.parent.glob("scipy.libs/*openblas*"), *root.glob(".dylibs/*openblas*")]):
+        try:
+            found = getattr(ctypes.CDLL(str(path)), f"scipy_{name}_")
+        except (AttributeError, OSError):
+            continue
+        return ctypes.CFUNCTYPE(None, *([ctypes.c_void_p] * n_args))(ctypes.cast(found, ctypes.c_void_p).value or 0)
+    return None
+
+
 _ROUTINES: dict[str, Any] = {}
 
 
@@ -63,6 +80,7 @@ def _routine(name: str):
             dtrsv=_fortran_routine(cython_blas, "dtrsv", 8),
             dtpqrt=_fortran_routine(cython_lapack, "dtpqrt", 12),
         )
+        _ROUTINES["dtplqt"] = _vendored_routine("dtplqt", 12)
     return _ROUTINES[name]
 
 
@@ -184,7 +202,12 @@ def roomy_zeros(n: int) -> np.ndarray:
     0.85-0.95 s against 0.10 s here)."""
     if n == 0:
         return np.zeros((0, 0), order="F")
-    buf = mmap.mmap(-1, 8 * n * n)
+    if hasattr(mmap, "MAP_PRIVATE"):
+        # private: reading a page never written maps the shared zero page; the default
+        # (shared, shmem-backed) memory allocated a page for every read of the zero triangle
+        buf = mmap.mmap(-1, 8 * n * n, flags=mmap.MAP_PRIVATE | mmap.MAP_ANONYMOUS)
+    else:
+        buf = mmap.mmap(-1, 8 * n * n)
     if hasattr(mmap, "MADV_NOHUGEPAGE"):
         buf.madvise(mmap.MADV_NOHUGEPAGE)
     # one 2-D array on the buffer: views of it keep it as their base (`_grown` looks there)
@@ -278,6 +301,35 @@ def mirror_triangle(A: np.ndarray, upward: bool, block: int = 256) -> None:
         else:
             d[lower] = d.T[lower]
             d.T[lower] = 0.0
+
+
+def tplqt_in_place(A: np.ndarray, B: np.ndarray) -> bool:
+    """LAPACK dtplqt with a rectangular B: the L of the LQ factorization of [A B] into the
+    lower triangle of A, in place, so that L L^T = A A^T + B B^T (A square, lower and
+    column-major, possibly a block of a larger array; B Fortran-ordered, with A's rows; B is
+    overwritten). The upper triangle of A is not touched. False, with nothing done, when
+    the routine is not available (`_vendored_routine`)."""
+    m, d = A.shape[0], B.shape[1]
+    if not (column_major(A) and A.shape[1] == m and B.flags.f_contiguous and B.shape[0] == m):
+        raise ValueError("needs a column-major square A and a Fortran-ordered B with its rows")
+    routine = _routine("dtplqt")
+    if routine is None:
+        return False
+    if m == 0 or d == 0:
+        return True
+    mb = min(32, m)
+    T = np.empty((mb, m), order="F")
+    work = np.empty(mb * m)
+    c = ctypes
+    ref = c.byref
+    info = c.c_int(0)
+    ints = [c.c_int(x) for x in (m, d, 0, mb)]
+    lda, ldb, ldt = c.c_int(A.strides[1] // 8), c.c_int(m), c.c_int(mb)
+    ptr = [c.c_void_p(x.ctypes.data) for x in (A, B, T, work)]
+    routine(*(ref(x) for x in ints), ptr[0], ref(lda), ptr[1], ref(ldb), ptr[2], ref(ldt), ptr[3], ref(info))
+    if info.value != 0:
+        raise RuntimeError(f"dtplqt failed (info {info.value})")
+    return True
 
 
 def tpqrt_in_place(A: np.ndarray, B: np.ndarray) -> None:

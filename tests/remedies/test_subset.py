@@ -457,13 +457,21 @@ def test_smallest_eigenvalue_through_a_shared_core_equals_eigvalsh(monkeypatch):
     )
 
 
+@pytest.mark.parametrize("lq", [True, False], ids=["dtplqt", "dtpqrt-mirror"])
 @pytest.mark.parametrize("drop", [[0], [39], [3, 4, 17, 30], list(range(0, 40, 3))])
-def test_factor_after_deleting_in_place(drop):
+def test_factor_after_deleting_in_place(drop, lq, monkeypatch):
     # Reference: scipy.linalg.cholesky of the kept block itself (through F F^T and |F|). The
-    # in-place deletion works in the factor's own array, whatever lies beside it.
+    # in-place deletion works in the factor's own array, whatever lies beside it; by LAPACK's
+    # dtplqt, or by dtpqrt on the mirror image where dtplqt is missing (forced here).
     import scipy.linalg
 
+    from auditor.numerics import inplace
     from auditor.numerics.cholesky import delete_in_place
+
+    if inplace._routine("dtplqt") is None and lq:
+        pytest.skip("dtplqt not found in scipy's LAPACK here")
+    if not lq:
+        monkeypatch.setitem(inplace._ROUTINES, "dtplqt", None)
 
     A = random_s_overlap(40, 5) + 0.05 * np.eye(40)
     keep = np.setdiff1d(np.arange(40), drop)
@@ -539,3 +547,22 @@ def test_a_factor_in_roomy_zeros_can_grow_in_place():
     grown = _grown(F, 40)
     assert grown is not None and grown.shape == (40, 40) and np.shares_memory(grown, room)
     assert _grown(F, 51) is None  # no room beyond the array
+
+
+def test_tplqt_in_place_is_the_lq_update_and_leaves_the_upper_triangle():
+    # Reference: numpy products, L L^T = A A^T + B B^T for the L that LAPACK dtplqt leaves in
+    # the lower triangle of A; the upper triangle (NaN here) is neither read nor written.
+    from auditor.numerics import inplace
+
+    if inplace._routine("dtplqt") is None:
+        pytest.skip("dtplqt not found in scipy's LAPACK here")
+    rng = np.random.default_rng(12)
+    m, d = 70, 9
+    A0 = np.tril(rng.standard_normal((m, m))) + 3 * np.eye(m)
+    B0 = np.asfortranarray(rng.standard_normal((m, d)))
+    big = np.full((m + 5, m + 5), np.nan, order="F")
+    big[:m, :m][np.tril_indices(m)] = A0[np.tril_indices(m)]
+    assert inplace.tplqt_in_place(big[:m, :m], B0.copy(order="F"))
+    L = np.tril(big[:m, :m])
+    assert np.allclose(L @ L.T, A0 @ A0.T + B0 @ B0.T, atol=1e-10)
+    assert np.isnan(big[:m, :m][np.triu_indices(m, 1)]).all() and np.isnan(big[m:, :]).all()
