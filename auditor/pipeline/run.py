@@ -464,6 +464,8 @@ def prune_options(options: RemedyOptions | None, policy: Policy) -> RemedyOption
 def refuse_broken(core: Audited) -> None:
     """UsageError for a broken geometry: its basis is not pruned, the file must be fixed."""
     if core.result.verdict_finding in BROKEN_KINDS:
+        if core.spectrum.handoff is not None:
+            core.spectrum.handoff.release()  # no remedy will take it: S whole again
         r = core.result
         raise UsageError(f"{r.input.path}: {r.verdict_reason} Fix the geometry before pruning its basis.")
 

@@ -603,3 +603,25 @@ def test_the_audit_leaves_s_whole_and_finds_what_the_dense_path_finds(tmp_path):
         assert np.array_equal(prep.S, S0)
     assert [f.kind for f in runs[0].findings] == [f.kind for f in runs[1].findings]
     assert [f.message for f in runs[0].findings[1:]] == [f.message for f in runs[1].findings[1:]]
+
+
+def test_refusing_a_broken_geometry_ends_the_loan(tmp_path):
+    # prune refuses a broken geometry after its spectrum: S must be whole again all the same
+    # (reference: the overlap matrix as prepared). The verdict is set broken by hand here; a
+    # trimer with a ghost atom is what makes the large path lend its factor.
+    from dataclasses import replace
+
+    from auditor.base.errors import UsageError
+    from auditor.diagnosis.verdict import Policy
+    from auditor.inputs.readers import load_molecules
+    from auditor.pipeline.run import audit_core, make_spec, prepare, refuse_broken
+
+    mol = load_molecules(_write_trimer_with_ghost(tmp_path / "g.xyz", 0.05), ghost="10")[0]
+    prep = prepare(mol, make_spec("aug-cc-pvdz"), "large")
+    S0 = prep.S.copy()
+    core = audit_core(prep, Policy(), "large", for_remedies=True)
+    assert core.spectrum.handoff is not None and core.spectrum.handoff.lending
+    broken = replace(core, result=replace(core.result, verdict_finding="coincident_atoms"))
+    with pytest.raises(UsageError):
+        refuse_broken(broken)
+    assert np.array_equal(prep.S, S0) and not core.spectrum.handoff.lending
