@@ -315,21 +315,27 @@ def tplqt_in_place(A: np.ndarray, B: np.ndarray) -> bool:
     routine = _routine("dtplqt")
     if routine is None:
         return False
-    if m == 0 or d == 0:
-        return True
-    mb = min(32, m)
-    T = np.empty((mb, m), order="F")
-    work = np.empty(mb * m)
+    if m > 0 and d > 0:
+        _triangular_pentagonal(routine, "dtplqt", (m, d), A, B, m)
+    return True
+
+
+def _triangular_pentagonal(routine, name: str, mn: tuple[int, int], A: np.ndarray, B: np.ndarray, k: int) -> None:
+    """Call LAPACK dtpqrt or dtplqt (the same arguments: M, N, L = 0 (B rectangular), the
+    block size, A, LDA, B, LDB = B's rows, T, LDT, WORK, INFO) with blocks of at most 32
+    over k, the order of A."""
+    nb = min(32, k)
+    T = np.empty((nb, k), order="F")
+    work = np.empty(nb * k)
     c = ctypes
     ref = c.byref
     info = c.c_int(0)
-    ints = [c.c_int(x) for x in (m, d, 0, mb)]
-    lda, ldb, ldt = c.c_int(A.strides[1] // 8), c.c_int(m), c.c_int(mb)
+    ints = [c.c_int(x) for x in (*mn, 0, nb)]
+    lda, ldb, ldt = c.c_int(A.strides[1] // 8), c.c_int(B.shape[0]), c.c_int(nb)
     ptr = [c.c_void_p(x.ctypes.data) for x in (A, B, T, work)]
     routine(*(ref(x) for x in ints), ptr[0], ref(lda), ptr[1], ref(ldb), ptr[2], ref(ldt), ptr[3], ref(info))
     if info.value != 0:
-        raise RuntimeError(f"dtplqt failed (info {info.value})")
-    return True
+        raise RuntimeError(f"{name} failed (info {info.value})")
 
 
 def tpqrt_in_place(A: np.ndarray, B: np.ndarray) -> None:
@@ -339,18 +345,5 @@ def tpqrt_in_place(A: np.ndarray, B: np.ndarray) -> None:
     t, d = A.shape[0], B.shape[0]
     if not (column_major(A) and A.shape[1] == t and B.flags.f_contiguous and B.shape[1] == t):
         raise ValueError("needs a column-major square A and a Fortran-ordered B with its columns")
-    if t == 0 or d == 0:
-        return
-    nb = min(32, t)
-    T = np.empty((nb, t), order="F")
-    work = np.empty(nb * t)
-    c = ctypes
-    ref = c.byref
-    info = c.c_int(0)
-    ints = [c.c_int(x) for x in (d, t, 0, nb)]
-    lda, ldb, ldt = c.c_int(A.strides[1] // 8), c.c_int(d), c.c_int(nb)
-    ptr = [c.c_void_p(x.ctypes.data) for x in (A, B, T, work)]
-    routine = _routine("dtpqrt")
-    routine(*(ref(x) for x in ints), ptr[0], ref(lda), ptr[1], ref(ldb), ptr[2], ref(ldt), ptr[3], ref(info))
-    if info.value != 0:
-        raise RuntimeError(f"dtpqrt failed (info {info.value})")
+    if t > 0 and d > 0:
+        _triangular_pentagonal(_routine("dtpqrt"), "dtpqrt", (d, t), A, B, t)
