@@ -48,7 +48,11 @@ def _fortran_routine(module, name: str, n_args: int):
     api.PyCapsule_GetName.argtypes = [ctypes.py_object]
     api.PyCapsule_GetPointer.restype = ctypes.c_void_p
     api.PyCapsule_GetPointer.argtypes = [ctypes.py_object, ctypes.c_char_p]
-    address = api.PyCapsule_GetPointer(capsule, api.PyCapsule_GetName(capsule))
+    return _pointer_routine(api.PyCapsule_GetPointer(capsule, api.PyCapsule_GetName(capsule)), n_args)
+
+
+def _pointer_routine(address: int, n_args: int):
+    """The Fortran routine at ``address``, called with ``n_args`` raw pointers."""
     return ctypes.CFUNCTYPE(None, *([ctypes.c_void_p] * n_args))(address)
 
 
@@ -60,10 +64,11 @@ def _vendored_routine(name: str, n_args: int):
     root = Path(scipy.__file__).parent
     for path in sorted([*root.parent.glob("scipy.libs/*openblas*"), *root.glob(".dylibs/*openblas*")]):
         try:
-            found = getattr(ctypes.CDLL(str(path)), f"scipy_{name}_")
+            address = ctypes.cast(getattr(ctypes.CDLL(str(path)), f"scipy_{name}_"), ctypes.c_void_p).value
         except (AttributeError, OSError):
             continue
-        return ctypes.CFUNCTYPE(None, *([ctypes.c_void_p] * n_args))(ctypes.cast(found, ctypes.c_void_p).value or 0)
+        if address:
+            return _pointer_routine(address, n_args)
     return None
 
 

@@ -171,9 +171,15 @@ def audit_core(
     try:
         return _diagnose(prep, policy, spec, scan, stage)
     except BaseException:
-        if spec.handoff is not None:
-            spec.handoff.release()  # S whole again
+        _release(spec)
         raise
+
+
+def _release(spec: Spectrum) -> None:
+    """Drop what the spectrum kept for remedies that will not run (S whole again: its lower
+    triangle may hold a lent factor, auditor.numerics.cholesky.FactorHandoff)."""
+    if spec.handoff is not None:
+        spec.handoff.release()
 
 
 def _diagnose(
@@ -269,8 +275,7 @@ def remedies_of(
         where = f"frame {cores[k].result.input.frame} of the file is" if len(cores) > 1 else "the geometry is"
         why = f"{where} broken ({decision.finding}): fix the geometry first; no remedy is offered for it"
         for c in cores:  # release the factors kept for them
-            if c.spectrum.handoff is not None:
-                c.spectrum.handoff.release()
+            _release(c.spectrum)
         return no_remedies(cores, target, why)
     rec = recommendation or cores[0].result.recommendation
     if stage:
@@ -464,8 +469,7 @@ def prune_options(options: RemedyOptions | None, policy: Policy) -> RemedyOption
 def refuse_broken(core: Audited) -> None:
     """UsageError for a broken geometry: its basis is not pruned, the file must be fixed."""
     if core.result.verdict_finding in BROKEN_KINDS:
-        if core.spectrum.handoff is not None:
-            core.spectrum.handoff.release()  # no remedy will take it: S whole again
+        _release(core.spectrum)
         r = core.result
         raise UsageError(f"{r.input.path}: {r.verdict_reason} Fix the geometry before pruning its basis.")
 
